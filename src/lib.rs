@@ -1,0 +1,14 @@
+//! tailtally: tail probabilities, quantiles and the whole law of a count of independent events.
+//!
+//! The count S is a sum of independent parts: Bernoulli exposures with their own probabilities (the
+//! Poisson-binomial law), blocks of identical exposures (binomial) and Poisson sources. The crate has a pure
+//! computation core (`portfolio`, `engine`) and a thin HTTP service on top (`api`, `server`).
+//!
+//! Guarantees of each method are stated in its module; every estimate carries an error bound and says whether
+//! that bound is rigorous or estimated.
+//!
+//! Assumption: the parts are independent. Results support, and do not replace, the judgement of a qualified
+//! actuary or engineer and the rules of local regulation.
+
+pub mod engine;
+pub mod portfolio;

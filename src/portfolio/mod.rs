@@ -1,0 +1,14 @@
+//! The portfolio: what a client sends (`spec`), how generated sequences are expanded (`families`), and the
+//! validated, normalised model that the engine computes on (`model`).
+//!
+//! Nothing here does probability theory beyond expanding formulas into probabilities; the law of the count
+//! lives in `engine`.
+
+pub mod families;
+pub mod model;
+pub mod spec;
+pub mod validate;
+
+pub use model::{Binomial, Model};
+pub use spec::{FamilySpec, GroupSpec, PortfolioSpec};
+pub use validate::{Limits, Violation};

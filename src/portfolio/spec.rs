@@ -1,0 +1,51 @@
+//! Wire form of a portfolio, shared by every endpoint: independent parts, any of which may be absent.
+
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
+
+/// A portfolio of independent exposures. The count S is the sum of all parts.
+#[derive(Debug, Clone, Default, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct PortfolioSpec {
+    /// Per-exposure event probabilities in [0, 1] (one Bernoulli exposure each).
+    #[serde(default)]
+    #[schema(example = json!([0.01, 0.02, 0.15]))]
+    pub probabilities: Vec<f64>,
+    /// Blocks of identical exposures (a binomial part each).
+    #[serde(default)]
+    pub groups: Vec<GroupSpec>,
+    /// Poisson sources (rates >= 0); they are summed into one Poisson part.
+    #[serde(default)]
+    pub poisson_rates: Vec<f64>,
+    /// Generated probability sequences, appended to `probabilities` in order.
+    #[serde(default)]
+    pub families: Vec<FamilySpec>,
+}
+
+/// `size` identical exposures, each with event probability `probability`.
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct GroupSpec {
+    #[schema(example = 250000)]
+    pub size: u64,
+    #[schema(example = 0.004)]
+    pub probability: f64,
+}
+
+/// A generated sequence of probabilities p_1..p_n.
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum FamilySpec {
+    /// n exposures with the same probability.
+    Constant { n: u64, probability: f64 },
+    /// p_k = 1/k for k = 1..n (the number of cycles of a uniform random permutation of n items).
+    Harmonic { n: u64 },
+    /// p_k = theta / (theta + k - 1) for k = 1..n, theta > 0.
+    Ewens { n: u64, theta: f64 },
+    /// p_k = first * ratio^(k-1) for k = 1..n.
+    Geometric { n: u64, first: f64, ratio: f64 },
+    /// n probabilities evenly spaced from `first` to `last` (inclusive).
+    Linear { n: u64, first: f64, last: f64 },
+    /// p = 1 / (1 + exp(-(intercept + slope * score))) for each score.
+    Logistic { scores: Vec<f64>, intercept: f64, slope: f64 },
+}
