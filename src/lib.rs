@@ -10,5 +10,9 @@
 //! Assumption: the parts are independent. Results support, and do not replace, the judgement of a qualified
 //! actuary or engineer and the rules of local regulation.
 
+pub mod api;
+pub mod config;
 pub mod engine;
 pub mod portfolio;
+pub mod server;
+pub mod telemetry;

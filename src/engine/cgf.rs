@@ -41,7 +41,13 @@ pub struct TiltConsts {
 
 impl TiltConsts {
     pub fn new(t: f64) -> Self {
-        TiltConsts { t, et: t.exp(), emt: (-t).exp(), em1: t.exp_m1(), emm1: (-t).exp_m1() }
+        TiltConsts {
+            t,
+            et: t.exp(),
+            emt: (-t).exp(),
+            em1: t.exp_m1(),
+            emm1: (-t).exp_m1(),
+        }
     }
 }
 
@@ -114,7 +120,10 @@ impl Scale {
     pub fn ln_scale(&self, t: f64, x: f64) -> (f64, f64) {
         let (hi, lo) = super::float::two_prod(t, self.b - x);
         let v = self.phi + hi + lo;
-        (v, self.phi_err + 2.0 * super::float::U * (self.phi.abs() + hi.abs() + v.abs()))
+        (
+            v,
+            self.phi_err + 2.0 * super::float::U * (self.phi.abs() + hi.abs() + v.abs()),
+        )
     }
 }
 
@@ -141,7 +150,11 @@ pub fn scale(model: &Model, t: f64) -> Scale {
     }
     // Each phi is within ~6 ulps of itself (see `tilt`); the product by a group size adds one more.
     let phi_err = phi.error_bound() + 8.0 * super::float::U * abs;
-    Scale { phi: phi.value(), phi_err, b }
+    Scale {
+        phi: phi.value(),
+        phi_err,
+        b,
+    }
 }
 
 pub fn eval(model: &Model, t: f64) -> CgfValue {
@@ -213,7 +226,11 @@ pub fn solve(model: &Model, x: f64, tol: f64) -> f64 {
         return 0.0;
     }
     // Bracket [lo, hi] with K'(lo) < x < K'(hi); K' is increasing.
-    let (mut lo, mut hi) = if x > m0 { (0.0, f64::NAN) } else { (f64::NAN, 0.0) };
+    let (mut lo, mut hi) = if x > m0 {
+        (0.0, f64::NAN)
+    } else {
+        (f64::NAN, 0.0)
+    };
     // First guess from a Newton step at 0, bounded to a sensible size.
     let mut t = ((x - m0) / v0).clamp(-T_MAX, T_MAX);
     for _ in 0..200 {

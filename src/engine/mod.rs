@@ -62,7 +62,10 @@ pub struct Estimate {
 impl Estimate {
     /// [lo, hi] clipped to [0, 1], where the truth lies given the bound.
     pub fn interval(&self) -> (f64, f64) {
-        ((self.probability - self.error_bound).max(0.0), (self.probability + self.error_bound).min(1.0))
+        (
+            (self.probability - self.error_bound).max(0.0),
+            (self.probability + self.error_bound).min(1.0),
+        )
     }
 }
 
@@ -74,7 +77,10 @@ pub struct Prepared<'a> {
 
 impl<'a> Prepared<'a> {
     pub fn new(model: &'a Model) -> Self {
-        Prepared { model, moments: Moments::of(model) }
+        Prepared {
+            model,
+            moments: Moments::of(model),
+        }
     }
 }
 

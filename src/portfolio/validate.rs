@@ -20,7 +20,11 @@ pub struct Limits {
 
 impl Default for Limits {
     fn default() -> Self {
-        Limits { max_listed_exposures: 10_000_000, max_total_exposures: 1_000_000_000, max_poisson_rate: 1e9 }
+        Limits {
+            max_listed_exposures: 10_000_000,
+            max_total_exposures: 1_000_000_000,
+            max_poisson_rate: 1e9,
+        }
     }
 }
 
@@ -35,7 +39,10 @@ pub struct Violation {
 
 impl Violation {
     pub fn new(pointer: impl Into<String>, detail: impl Into<String>) -> Self {
-        Violation { pointer: pointer.into(), detail: detail.into() }
+        Violation {
+            pointer: pointer.into(),
+            detail: detail.into(),
+        }
     }
 }
 
@@ -47,7 +54,11 @@ fn probability_ok(p: f64) -> bool {
 }
 
 /// Check `spec` (found at `base`, e.g. "/portfolio") and build the model.
-pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<Model, Vec<Violation>> {
+pub fn build_model(
+    spec: &PortfolioSpec,
+    base: &str,
+    limits: &Limits,
+) -> Result<Model, Vec<Violation>> {
     let mut errs = Vec::new();
     let push = |errs: &mut Vec<Violation>, v: Violation| {
         if errs.len() < MAX_REPORTED {
@@ -56,27 +67,54 @@ pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<
     };
     for (i, &p) in spec.probabilities.iter().enumerate() {
         if !probability_ok(p) {
-            push(&mut errs, Violation::new(format!("{base}/probabilities/{i}"), format!("must be a probability in [0, 1], got {p}")));
+            push(
+                &mut errs,
+                Violation::new(
+                    format!("{base}/probabilities/{i}"),
+                    format!("must be a probability in [0, 1], got {p}"),
+                ),
+            );
         }
     }
     let mut total: u64 = spec.probabilities.len() as u64;
     let mut listed: u64 = total;
     for (i, g) in spec.groups.iter().enumerate() {
         if !probability_ok(g.probability) {
-            push(&mut errs, Violation::new(format!("{base}/groups/{i}/probability"), format!("must be a probability in [0, 1], got {}", g.probability)));
+            push(
+                &mut errs,
+                Violation::new(
+                    format!("{base}/groups/{i}/probability"),
+                    format!("must be a probability in [0, 1], got {}", g.probability),
+                ),
+            );
         }
         total = total.saturating_add(g.size);
     }
     let mut rate = 0.0;
     for (i, &r) in spec.poisson_rates.iter().enumerate() {
         if !(r.is_finite() && r >= 0.0) {
-            push(&mut errs, Violation::new(format!("{base}/poisson_rates/{i}"), format!("must be a finite rate >= 0, got {r}")));
+            push(
+                &mut errs,
+                Violation::new(
+                    format!("{base}/poisson_rates/{i}"),
+                    format!("must be a finite rate >= 0, got {r}"),
+                ),
+            );
         } else {
             rate += r;
         }
     }
     if rate > limits.max_poisson_rate {
-        push(&mut errs, Violation::new(format!("{base}/poisson_rates"), format!("total rate {rate} exceeds the limit {}", limits.max_poisson_rate)));
+        push(
+            &mut errs,
+            Violation::new(
+                format!("{base}/poisson_rates"),
+                format!(
+                    "total rate {rate} exceeds the limit {}",
+                    limits.max_poisson_rate
+                ),
+            ),
+        );
     }
     for (i, f) in spec.families.iter().enumerate() {
         let at = format!("{base}/families/{i}");
@@ -88,15 +126,36 @@ pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<
         total = total.saturating_add(len);
     }
     if listed > limits.max_listed_exposures {
-        push(&mut errs, Violation::new(base.to_string(), format!("{listed} listed or generated exposures exceed the limit of {}", limits.max_listed_exposures)));
+        push(
+            &mut errs,
+            Violation::new(
+                base.to_string(),
+                format!(
+                    "{listed} listed or generated exposures exceed the limit of {}",
+                    limits.max_listed_exposures
+                ),
+            ),
+        );
     }
     if total > limits.max_total_exposures {
-        push(&mut errs, Violation::new(base.to_string(), format!("{total} exposures in total exceed the limit of {}", limits.max_total_exposures)));
+        push(
+            &mut errs,
+            Violation::new(
+                base.to_string(),
+                format!(
+                    "{total} exposures in total exceed the limit of {}",
+                    limits.max_total_exposures
+                ),
+            ),
+        );
     }
     if !errs.is_empty() {
         return Err(errs);
     }
-    let mut model = Model { poisson: rate, ..Model::default() };
+    let mut model = Model {
+        poisson: rate,
+        ..Model::default()
+    };
     model.bernoulli.reserve(listed as usize);
     for &p in &spec.probabilities {
         model.push_bernoulli(p);
@@ -114,7 +173,10 @@ fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {
     let mut v = Vec::new();
     let mut prob = |name: &str, x: f64| {
         if !probability_ok(x) {
-            v.push(Violation::new(format!("{at}/{name}"), format!("must be a probability in [0, 1], got {x}")));
+            v.push(Violation::new(
+                format!("{at}/{name}"),
+                format!("must be a probability in [0, 1], got {x}"),
+            ));
         }
     };
     match *f {
@@ -122,20 +184,30 @@ fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {
         FamilySpec::Harmonic { .. } => {}
         FamilySpec::Ewens { theta, .. } => {
             if !(theta.is_finite() && theta > 0.0) {
-                v.push(Violation::new(format!("{at}/theta"), format!("must be finite and > 0, got {theta}")));
+                v.push(Violation::new(
+                    format!("{at}/theta"),
+                    format!("must be finite and > 0, got {theta}"),
+                ));
             }
         }
         FamilySpec::Geometric { first, ratio, .. } => {
             prob("first", first);
             if !(ratio.is_finite() && (0.0..=1.0).contains(&ratio)) {
-                v.push(Violation::new(format!("{at}/ratio"), format!("must be in [0, 1] so that every p_k stays a probability, got {ratio}")));
+                v.push(Violation::new(
+                    format!("{at}/ratio"),
+                    format!("must be in [0, 1] so that every p_k stays a probability, got {ratio}"),
+                ));
             }
         }
         FamilySpec::Linear { first, last, .. } => {
             prob("first", first);
             prob("last", last);
         }
-        FamilySpec::Logistic { ref scores, intercept, slope } => {
+        FamilySpec::Logistic {
+            ref scores,
+            intercept,
+            slope,
+        } => {
             if !intercept.is_finite() {
                 v.push(Violation::new(format!("{at}/intercept"), "must be finite"));
             }
@@ -144,7 +216,10 @@ fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {
             }
             for (i, s) in scores.iter().enumerate() {
                 if !(s.is_finite() && (intercept + slope * s).is_finite()) {
-                    v.push(Violation::new(format!("{at}/scores/{i}"), format!("score {s} gives a non-finite linear predictor")));
+                    v.push(Violation::new(
+                        format!("{at}/scores/{i}"),
+                        format!("score {s} gives a non-finite linear predictor"),
+                    ));
                     break;
                 }
             }

@@ -1,0 +1,219 @@
+//! Time the exact engine on a file of probabilities, for `benches/compare_scipy.py`.
+//!
+//! Usage: `time_exact PROBS_FILE MODE [REPEATS]`
+//!
+//! * `PROBS_FILE`: one probability per line, as written by Python's `repr(float)` (shortest round-trip form, so
+//!   Rust's `f64::from_str` recovers exactly the same doubles as the Python side).
+//! * `MODE`:
+//!   - `tail`: P(S >= k) with k = ceil(mean + 5 sd), through `exact::evaluate`;
+//!   - `full`: the untilted law over its Bernstein window, through `exact::tilted(&model, 0.0)`;
+//!   - `phases` (diagnostic): one `tail` computation split into its stages, to see where the time goes.
+//! * `REPEATS`: number of timed runs (default 7); the median and the minimum are reported.
+//!
+//! Prints one JSON line. Timed work: building the `Model` from the slice, `Moments::of` and the engine call;
+//! reading and parsing the file is not timed.
+
+use std::time::Instant;
+
+use tailtally::engine::exact::{self, ExactValue};
+use tailtally::engine::moments::Moments;
+use tailtally::engine::{cgf, Side};
+use tailtally::portfolio::Model;
+
+fn usage() -> ! {
+    eprintln!("usage: time_exact PROBS_FILE tail|full|phases [REPEATS=7]");
+    std::process::exit(2);
+}
+
+fn read_probs(path: &str) -> Vec<f64> {
+    let text = std::fs::read_to_string(path).unwrap_or_else(|e| {
+        eprintln!("cannot read {path}: {e}");
+        std::process::exit(1);
+    });
+    text.lines()
+        .map(str::trim)
+        .filter(|l| !l.is_empty())
+        .enumerate()
+        .map(|(i, l)| {
+            l.parse::<f64>().unwrap_or_else(|e| {
+                eprintln!("line {}: cannot parse {l:?}: {e}", i + 1);
+                std::process::exit(1);
+            })
+        })
+        .collect()
+}
+
+/// JSON number, or null for non-finite values (JSON has no inf/NaN). `{:?}` prints the shortest string that
+/// round-trips, so Python reads back the same double.
+fn num(x: f64) -> String {
+    if x.is_finite() {
+        format!("{x:?}")
+    } else {
+        "null".to_string()
+    }
+}
+
+fn ms(d: std::time::Duration) -> f64 {
+    d.as_secs_f64() * 1e3
+}
+
+fn median(v: &mut [f64]) -> f64 {
+    v.sort_by(|a, b| a.partial_cmp(b).unwrap());
+    let m = v.len() / 2;
+    if v.len() % 2 == 1 {
+        v[m]
+    } else {
+        0.5 * (v[m - 1] + v[m])
+    }
+}
+
+/// The threshold of the benchmark: ceil(mean + 5 sd).
+fn threshold(mom: &Moments) -> u64 {
+    (mom.mean + 5.0 * mom.sd()).ceil() as u64
+}
+
+fn main() {
+    let args: Vec<String> = std::env::args().collect();
+    if args.len() < 3 {
+        usage();
+    }
+    let probs = read_probs(&args[1]);
+    let mode = args[2].as_str();
+    let repeats: usize = match args.get(3) {
+        Some(s) => s.parse().unwrap_or_else(|_| usage()),
+        None => 7,
+    };
+    let repeats = repeats.max(1);
+    let n = probs.len();
+    let k = threshold(&Moments::of(&Model::from_parts(&probs, &[], 0.0)));
+
+    match mode {
+        "tail" => {
+            let mut times = Vec::with_capacity(repeats);
+            let mut last: Option<(ExactValue, exact::Work)> = None;
+            for _ in 0..repeats {
+                let start = Instant::now();
+                let model = Model::from_parts(&probs, &[], 0.0);
+                let mom = Moments::of(&model);
+                let (vals, work) = exact::evaluate(&model, &mom, &[(k, Side::Upper)]);
+                times.push(ms(start.elapsed()));
+                last = Some((std::hint::black_box(vals[0]), work));
+            }
+            let (v, work) = last.unwrap();
+            let min = times.iter().copied().fold(f64::INFINITY, f64::min);
+            let med = median(&mut times);
+            println!(
+                "{{\"mode\":\"tail\",\"n\":{n},\"k\":{k},\"median_ms\":{},\"min_ms\":{},\"ln_p\":{},\"p\":{},\
+                 \"rel_err_bound\":{},\"abs_err_bound\":{},\"max_window\":{},\"tilts\":{},\"repeats\":{repeats}}}",
+                num(med),
+                num(min),
+                num(v.ln_p),
+                num(v.p),
+                num(v.rel_err),
+                num(v.abs_err),
+                work.max_window,
+                work.tilts,
+            );
+        }
+        "full" => {
+            let mut times = Vec::with_capacity(repeats);
+            let mut last = None;
+            for _ in 0..repeats {
+                let start = Instant::now();
+                let model = Model::from_parts(&probs, &[], 0.0);
+                let law = exact::tilted(&model, 0.0);
+                times.push(ms(start.elapsed()));
+                last = Some(std::hint::black_box(law));
+            }
+            let law = last.unwrap();
+            let w = &law.window;
+            let min = times.iter().copied().fold(f64::INFINITY, f64::min);
+            let med = median(&mut times);
+            // Cross-check: the same tail summed from the untilted pmf (accurate only to ~1e-16 absolute, i.e.
+            // relative 1e-16 / p, and with no tilt it cannot reach far tails; the `tail` mode is the real answer).
+            let tail: f64 =
+                w.w.iter()
+                    .enumerate()
+                    .filter(|(i, _)| w.lo + *i as u64 >= k)
+                    .map(|(_, x)| x)
+                    .sum();
+            let total: f64 = w.w.iter().sum();
+            println!(
+                "{{\"mode\":\"full\",\"n\":{n},\"k\":{k},\"median_ms\":{},\"min_ms\":{},\"ln_p\":{},\"p\":{},\
+                 \"rel_err_bound\":null,\"window_rel\":{},\"window_abs\":{},\"max_window\":{},\"pmf_lo\":{},\
+                 \"pmf_len\":{},\"pmf_sum\":{},\"repeats\":{repeats}}}",
+                num(med),
+                num(min),
+                num(tail.ln()),
+                num(tail),
+                num(w.rel),
+                num(w.abs),
+                w.w.len(),
+                w.lo,
+                w.w.len(),
+                num(total),
+            );
+        }
+        "phases" => {
+            // The stages of one `tail` evaluation, redone with the public pieces: the moments, the saddlepoint
+            // solve for the tilt (as `evaluate` does it: tolerance 0.05 sd capped at 0.5), the tilted variance,
+            // the tilted law (leaves + products), the scale K(t) - t k; then the whole `evaluate` for reference.
+            let model = Model::from_parts(&probs, &[], 0.0);
+            let mut best = [f64::INFINITY; 7];
+            let mut t_used = 0.0;
+            let mut window = 0;
+            for _ in 0..repeats {
+                let s = Instant::now();
+                let mom = Moments::of(&model);
+                let t0 = ms(s.elapsed());
+
+                let s = Instant::now();
+                let sd = cgf::eval_var(&model, 0.0).sqrt().max(1.0);
+                let t = cgf::solve(&model, k as f64, 0.05 * sd.min(10.0)).max(0.0);
+                let t1 = ms(s.elapsed());
+
+                let s = Instant::now();
+                let v = std::hint::black_box(cgf::eval_var(&model, t));
+                let t2 = ms(s.elapsed());
+
+                let s = Instant::now();
+                let law = exact::tilted(&model, t);
+                let t3 = ms(s.elapsed());
+
+                // `tilted` computes the scale itself; time it alone to split the leaves/products from it.
+                let s = Instant::now();
+                let sc = std::hint::black_box(cgf::scale(&model, t));
+                let t4 = ms(s.elapsed());
+
+                let s = Instant::now();
+                let cv = std::hint::black_box(cgf::eval(&model, t));
+                let t5 = ms(s.elapsed());
+
+                let s = Instant::now();
+                let (vals, _) = exact::evaluate(&model, &mom, &[(k, Side::Upper)]);
+                let t6 = ms(s.elapsed());
+                std::hint::black_box((vals, v, sc.phi, cv.k0));
+
+                for (b, x) in best.iter_mut().zip([t0, t1, t2, t3, t4, t5, t6]) {
+                    *b = b.min(x);
+                }
+                t_used = t;
+                window = law.window.w.len();
+            }
+            println!(
+                "{{\"mode\":\"phases\",\"n\":{n},\"k\":{k},\"t\":{},\"window\":{window},\"min_ms\":{{\"moments\":{},\
+                 \"solve_tilt\":{},\"eval_var\":{},\"tilted_total\":{},\"of_which_scale\":{},\"cgf_eval\":{},\
+                 \"evaluate_total\":{}}},\"repeats\":{repeats}}}",
+                num(t_used),
+                num(best[0]),
+                num(best[1]),
+                num(best[2]),
+                num(best[3]),
+                num(best[4]),
+                num(best[5]),
+                num(best[6]),
+            );
+        }
+        _ => usage(),
+    }
+}

@@ -1,0 +1,103 @@
+//! `Body<T>`: the JSON extractor of the service. It replaces axum's `Json` so that every rejection is a
+//! problem-details document: 415 for a wrong content type, 413 beyond the size limit, 400 for malformed JSON
+//! and 422, with the JSON pointer of the field, for JSON of the wrong shape (a string where a number belongs,
+//! a negative count, an unknown field).
+
+use super::problem::{escape_token, Problem};
+use crate::portfolio::Violation;
+use axum::body::Bytes;
+use axum::extract::{FromRequest, Request};
+use axum::http::header;
+use serde::de::DeserializeOwned;
+
+pub struct Body<T>(pub T);
+
+impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for Body<T> {
+    type Rejection = Problem;
+
+    async fn from_request(req: Request, state: &S) -> Result<Self, Problem> {
+        let ctype = req
+            .headers()
+            .get(header::CONTENT_TYPE)
+            .and_then(|v| v.to_str().ok())
+            .unwrap_or("");
+        let mime = ctype
+            .split(';')
+            .next()
+            .unwrap_or("")
+            .trim()
+            .to_ascii_lowercase();
+        if mime != "application/json"
+            && !(mime.starts_with("application/") && mime.ends_with("+json"))
+        {
+            return Err(Problem::unsupported_media(format!(
+                "expected Content-Type: application/json, got {:?}",
+                ctype
+            )));
+        }
+        let bytes = Bytes::from_request(req, state).await.map_err(|e| {
+            if e.status() == axum::http::StatusCode::PAYLOAD_TOO_LARGE {
+                Problem::too_large(
+                    "the request body exceeds the configured limit (see --max-body-bytes)",
+                )
+            } else {
+                Problem::malformed(format!("could not read the request body: {e}"))
+            }
+        })?;
+        parse(&bytes).map(Body)
+    }
+}
+
+/// Parse JSON, mapping serde's errors to problems with a JSON pointer.
+pub fn parse<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, Problem> {
+    let mut de = serde_json::Deserializer::from_slice(bytes);
+    match serde_path_to_error::deserialize::<_, T>(&mut de) {
+        Ok(v) => {
+            // Trailing garbage after the document is malformed JSON too.
+            if let Err(e) = de.end() {
+                return Err(Problem::malformed(e.to_string()));
+            }
+            Ok(v)
+        }
+        Err(err) => {
+            let pointer = pointer_of(err.path());
+            let inner = err.into_inner();
+            use serde_json::error::Category;
+            match inner.classify() {
+                Category::Data => Err(Problem::invalid(vec![Violation::new(
+                    pointer,
+                    strip_position(&inner.to_string()),
+                )])),
+                // A number too large for f64 (e.g. 1e400) is a syntax error to serde_json but a bad value to a client.
+                Category::Syntax if inner.to_string().starts_with("number out of range") => {
+                    Err(Problem::invalid(vec![Violation::new(
+                        pointer,
+                        "number out of range for a 64-bit float",
+                    )]))
+                }
+                _ => Err(Problem::malformed(inner.to_string())),
+            }
+        }
+    }
+}
+
+fn strip_position(s: &str) -> String {
+    match s.rfind(" at line ") {
+        Some(i) => s[..i].to_string(),
+        None => s.to_string(),
+    }
+}
+
+fn pointer_of(path: &serde_path_to_error::Path) -> String {
+    use serde_path_to_error::Segment;
+    let mut out = String::new();
+    for seg in path.iter() {
+        match seg {
+            Segment::Seq { index } => out.push_str(&format!("/{index}")),
+            Segment::Map { key } => out.push_str(&format!("/{}", escape_token(key))),
+            Segment::Enum { variant } => out.push_str(&format!("/{}", escape_token(variant))),
+            Segment::Unknown => {}
+        }
+    }
+    out
+}

@@ -1,0 +1,35 @@
+//! The OpenAPI document, generated from the handlers and types. The committed copy is openapi/openapi.json;
+//! a test fails when the two differ (regenerate with `cargo run -- openapi > openapi/openapi.json`).
+
+use utoipa::OpenApi;
+
+#[derive(OpenApi)]
+#[openapi(
+    info(
+        title = "tailtally",
+        description = "Tail probabilities, quantiles and the law of a count of independent events (Poisson-binomial, binomial and Poisson parts), each estimate with its error bound.\n\nAssumption: exposures are independent. Results support, and do not replace, the judgement of a qualified actuary or engineer and local regulation.",
+        license(name = "MIT")
+    ),
+    paths(
+        crate::api::routes::tail::tail,
+        crate::api::routes::health::healthz,
+        crate::api::routes::health::readyz,
+    ),
+    components(schemas(crate::api::problem::Problem, crate::api::problem::FieldError)),
+    tags(
+        (name = "probabilities", description = "Tail and point probabilities"),
+        (name = "operations", description = "Probes and service documents"),
+    )
+)]
+pub struct ApiDoc;
+
+pub fn document() -> utoipa::openapi::OpenApi {
+    ApiDoc::openapi()
+}
+
+pub fn pretty_json() -> String {
+    document()
+        .to_pretty_json()
+        .expect("the document serialises")
+        + "\n"
+}

@@ -1,0 +1,4 @@
+//! One file per route.
+
+pub mod health;
+pub mod tail;

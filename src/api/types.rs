@@ -1,0 +1,118 @@
+//! Request and response types of the HTTP API (serde + OpenAPI schemas). No computation here beyond copying
+//! engine results into wire form.
+
+use crate::engine::moments::Moments;
+use crate::engine::{BoundKind, Estimate, MethodId, Side};
+use crate::portfolio::{Model, PortfolioSpec};
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
+
+/// The model's assumptions, returned with every answer.
+pub const ASSUMPTIONS: &[&str] = &[
+    "Exposures and sources are mutually independent (no dependence option was used).",
+    "Each listed probability is the exposure's event probability over the same period.",
+    "Results support, and do not replace, the judgement of a qualified actuary or engineer and the rules of local regulation.",
+];
+
+/// POST /v1/tail request.
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct TailRequest {
+    pub portfolio: PortfolioSpec,
+    /// Counts k at which to evaluate the probability.
+    #[schema(example = json!([10, 25, 40]))]
+    pub thresholds: Vec<u64>,
+    /// Which probability: `upper` P(S >= k) (default), `lower` P(S <= k) or `point` P(S = k).
+    #[serde(default)]
+    pub side: Side,
+    /// Methods to run; each threshold gets one estimate per method.
+    #[serde(default = "default_methods")]
+    pub methods: Vec<MethodId>,
+}
+
+fn default_methods() -> Vec<MethodId> {
+    vec![MethodId::Exact]
+}
+
+/// Summary of the portfolio's law.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct Summary {
+    /// Exposures as counted by the client (p = 0 and p = 1 included; group sizes counted).
+    pub exposures: u64,
+    pub mean: f64,
+    pub variance: f64,
+    pub standard_deviation: f64,
+    pub skewness: f64,
+    /// Lyapunov ratio sum E|X - EX|^3 / sd^3: the Berry-Esseen bound is a constant times this.
+    pub lyapunov_ratio: Option<f64>,
+    pub support_min: u64,
+    /// Largest possible count; null when a Poisson part makes it unbounded.
+    pub support_max: Option<u64>,
+}
+
+impl Summary {
+    pub fn of(model: &Model, m: &Moments) -> Summary {
+        let lr = m.lyapunov_ratio();
+        Summary {
+            exposures: model.exposures,
+            mean: m.mean,
+            variance: m.variance,
+            standard_deviation: m.sd(),
+            skewness: m.skewness(),
+            lyapunov_ratio: lr.is_finite().then_some(lr),
+            support_min: model.support_min(),
+            support_max: model.support_max(),
+        }
+    }
+}
+
+/// One method's estimate for one threshold.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct EstimateOut {
+    pub method: MethodId,
+    pub probability: f64,
+    /// Natural logarithm of the probability; exact even where `probability` underflows to 0
+    /// (null only when the probability is exactly 0).
+    pub ln_probability: Option<f64>,
+    /// Bound on |probability - truth|.
+    pub error_bound: f64,
+    /// Bound on |probability - truth| / truth, where the method gives one.
+    pub relative_error_bound: Option<f64>,
+    pub bound_kind: BoundKind,
+    /// [lo, hi], clipped to [0, 1]: where the truth lies given the bound.
+    pub interval: [f64; 2],
+    /// Compute time attributed to this estimate, in microseconds.
+    pub elapsed_us: f64,
+}
+
+impl From<&Estimate> for EstimateOut {
+    fn from(e: &Estimate) -> Self {
+        let (lo, hi) = e.interval();
+        EstimateOut {
+            method: e.method,
+            probability: e.probability,
+            ln_probability: e.ln_probability.is_finite().then_some(e.ln_probability),
+            error_bound: e.error_bound,
+            relative_error_bound: e.relative_error_bound.filter(|r| r.is_finite()),
+            bound_kind: e.bound_kind,
+            interval: [lo, hi],
+            elapsed_us: (e.elapsed_us * 1000.0).round() / 1000.0,
+        }
+    }
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct ThresholdResult {
+    pub threshold: u64,
+    pub side: Side,
+    pub estimates: Vec<EstimateOut>,
+}
+
+/// POST /v1/tail response.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct TailResponse {
+    pub summary: Summary,
+    pub results: Vec<ThresholdResult>,
+    /// The model's assumptions and the usual caution.
+    pub assumptions: Vec<String>,
+}

@@ -1,0 +1,190 @@
+//! The application: router, middleware, limits and graceful shutdown. `App::bind` can take port 0, so tests
+//! start the real service on a free port.
+
+use crate::api::problem::Problem;
+use crate::api::{openapi, routes, AppState};
+use crate::config::{Options, ServiceLimits};
+use axum::extract::{DefaultBodyLimit, Request};
+use axum::http::{header, HeaderName, HeaderValue, StatusCode};
+use axum::middleware::{self, Next};
+use axum::response::{IntoResponse, Response};
+use axum::routing::{get, post};
+use axum::Router;
+use std::future::Future;
+use std::net::SocketAddr;
+use std::sync::Arc;
+use std::time::Duration;
+use tokio::net::TcpListener;
+use tower::ServiceBuilder;
+use tower_http::catch_panic::CatchPanicLayer;
+use tower_http::compression::CompressionLayer;
+use tower_http::cors::{AllowOrigin, CorsLayer};
+use tower_http::decompression::RequestDecompressionLayer;
+use tower_http::limit::RequestBodyLimitLayer;
+use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
+use tower_http::timeout::TimeoutLayer;
+use tower_http::trace::TraceLayer;
+
+pub fn router(opts: &Options) -> Router {
+    let state = AppState {
+        limits: Arc::new(ServiceLimits::from_options(opts)),
+    };
+    let request_id = HeaderName::from_static("x-request-id");
+    let api = Router::new()
+        .route("/v1/tail", post(routes::tail::tail))
+        .route("/healthz", get(routes::health::healthz))
+        .route("/readyz", get(routes::health::readyz))
+        .route("/openapi.json", get(openapi_json))
+        .fallback(not_found)
+        .with_state(state);
+    api.layer(
+        ServiceBuilder::new()
+            .layer(SetRequestIdLayer::new(request_id.clone(), MakeRequestUuid))
+            .layer(PropagateRequestIdLayer::new(request_id))
+            .layer(TraceLayer::new_for_http())
+            .layer(CatchPanicLayer::custom(|_| {
+                Problem::internal("the computation failed unexpectedly").into_response()
+            }))
+            .layer(middleware::from_fn(problem_bodies))
+            .layer(TimeoutLayer::with_status_code(
+                StatusCode::REQUEST_TIMEOUT,
+                Duration::from_secs(opts.request_timeout_secs),
+            ))
+            .layer(cors(&opts.cors_origins))
+            .layer(CompressionLayer::new())
+            .layer(RequestDecompressionLayer::new())
+            .layer(RequestBodyLimitLayer::new(opts.max_body_bytes))
+            .layer(DefaultBodyLimit::max(opts.max_body_bytes))
+            .layer(tower::limit::ConcurrencyLimitLayer::new(
+                opts.max_concurrency,
+            )),
+    )
+}
+
+fn cors(origins: &str) -> CorsLayer {
+    let base = CorsLayer::new()
+        .allow_methods([axum::http::Method::GET, axum::http::Method::POST])
+        .allow_headers([header::CONTENT_TYPE]);
+    match origins.trim() {
+        "" => base,
+        "*" => base.allow_origin(AllowOrigin::any()),
+        list => base.allow_origin(
+            list.split(',')
+                .filter_map(|o| HeaderValue::from_str(o.trim()).ok())
+                .collect::<Vec<_>>(),
+        ),
+    }
+}
+
+async fn openapi_json() -> Response {
+    let mut res = openapi::pretty_json().into_response();
+    res.headers_mut().insert(
+        header::CONTENT_TYPE,
+        HeaderValue::from_static("application/json"),
+    );
+    res
+}
+
+async fn not_found(uri: axum::http::Uri) -> Problem {
+    Problem::not_found(uri.path())
+}
+
+/// Error answers produced by middleware (405, 408, 413 from the body limit, ...) come without a body or as
+/// text; give every one the problem-details form the API promises.
+async fn problem_bodies(req: Request, next: Next) -> Response {
+    let res = next.run(req).await;
+    let status = res.status();
+    if !(status.is_client_error() || status.is_server_error()) {
+        return res;
+    }
+    let is_problem = res
+        .headers()
+        .get(header::CONTENT_TYPE)
+        .is_some_and(|v| v.as_bytes().starts_with(b"application/problem+json"));
+    if is_problem {
+        return res;
+    }
+    let p = match status {
+        StatusCode::METHOD_NOT_ALLOWED => Problem::new(
+            status,
+            "method-not-allowed",
+            "Method not allowed",
+            "this path does not accept that method",
+        ),
+        StatusCode::REQUEST_TIMEOUT => Problem::new(
+            status,
+            "timeout",
+            "Request timeout",
+            "the request took longer than the configured timeout (see --request-timeout-secs)",
+        ),
+        StatusCode::PAYLOAD_TOO_LARGE => Problem::too_large(
+            "the request body exceeds the configured limit (see --max-body-bytes)",
+        ),
+        StatusCode::UNSUPPORTED_MEDIA_TYPE => {
+            Problem::unsupported_media("unsupported content encoding or type")
+        }
+        s if s.is_server_error() => Problem::internal("internal error"),
+        s => Problem::new(
+            s,
+            "client-error",
+            s.canonical_reason().unwrap_or("Client error"),
+            "the request was refused",
+        ),
+    };
+    let mut out = p.into_response();
+    for (k, v) in res.headers() {
+        if k == header::CONTENT_TYPE || k == header::CONTENT_LENGTH {
+            continue;
+        }
+        out.headers_mut().insert(k.clone(), v.clone());
+    }
+    out
+}
+
+/// A bound listener with its application, ready to serve.
+pub struct App {
+    listener: TcpListener,
+    router: Router,
+}
+
+impl App {
+    pub async fn bind(opts: &Options) -> std::io::Result<App> {
+        let listener = TcpListener::bind(&opts.listen).await?;
+        Ok(App {
+            listener,
+            router: router(opts),
+        })
+    }
+
+    pub fn local_addr(&self) -> SocketAddr {
+        self.listener.local_addr().expect("bound")
+    }
+
+    /// Serve until `shutdown` resolves; then stop accepting and finish the requests in flight.
+    pub async fn serve(
+        self,
+        shutdown: impl Future<Output = ()> + Send + 'static,
+    ) -> std::io::Result<()> {
+        axum::serve(self.listener, self.router)
+            .with_graceful_shutdown(shutdown)
+            .await
+    }
+}
+
+/// Resolves on SIGINT or SIGTERM.
+pub async fn shutdown_signal() {
+    let ctrl_c = async {
+        let _ = tokio::signal::ctrl_c().await;
+    };
+    #[cfg(unix)]
+    let term = async {
+        if let Ok(mut s) = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate())
+        {
+            s.recv().await;
+        }
+    };
+    #[cfg(not(unix))]
+    let term = std::future::pending::<()>();
+    tokio::select! { _ = ctrl_c => {}, _ = term => {} }
+    tracing::info!("shutdown signal received: finishing requests in flight");
+}
