@@ -26,9 +26,7 @@ use tower_http::timeout::TimeoutLayer;
 use tower_http::trace::TraceLayer;
 
 pub fn router(opts: &Options) -> Router {
-    let state = AppState {
-        limits: Arc::new(ServiceLimits::from_options(opts)),
-    };
+    let state = AppState { limits: Arc::new(ServiceLimits::from_options(opts)) };
     let request_id = HeaderName::from_static("x-request-id");
     let api = Router::new()
         .route("/v1/tail", post(routes::tail::tail))
@@ -55,9 +53,7 @@ pub fn router(opts: &Options) -> Router {
             .layer(RequestDecompressionLayer::new())
             .layer(RequestBodyLimitLayer::new(opts.max_body_bytes))
             .layer(DefaultBodyLimit::max(opts.max_body_bytes))
-            .layer(tower::limit::ConcurrencyLimitLayer::new(
-                opts.max_concurrency,
-            )),
+            .layer(tower::limit::ConcurrencyLimitLayer::new(opts.max_concurrency)),
     )
 }
 
@@ -68,20 +64,15 @@ fn cors(origins: &str) -> CorsLayer {
     match origins.trim() {
         "" => base,
         "*" => base.allow_origin(AllowOrigin::any()),
-        list => base.allow_origin(
-            list.split(',')
-                .filter_map(|o| HeaderValue::from_str(o.trim()).ok())
-                .collect::<Vec<_>>(),
-        ),
+        list => {
+            base.allow_origin(list.split(',').filter_map(|o| HeaderValue::from_str(o.trim()).ok()).collect::<Vec<_>>())
+        }
     }
 }
 
 async fn openapi_json() -> Response {
     let mut res = openapi::pretty_json().into_response();
-    res.headers_mut().insert(
-        header::CONTENT_TYPE,
-        HeaderValue::from_static("application/json"),
-    );
+    res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static("application/json"));
     res
 }
 
@@ -97,39 +88,27 @@ async fn problem_bodies(req: Request, next: Next) -> Response {
     if !(status.is_client_error() || status.is_server_error()) {
         return res;
     }
-    let is_problem = res
-        .headers()
-        .get(header::CONTENT_TYPE)
-        .is_some_and(|v| v.as_bytes().starts_with(b"application/problem+json"));
+    let is_problem =
+        res.headers().get(header::CONTENT_TYPE).is_some_and(|v| v.as_bytes().starts_with(b"application/problem+json"));
     if is_problem {
         return res;
     }
     let p = match status {
-        StatusCode::METHOD_NOT_ALLOWED => Problem::new(
-            status,
-            "method-not-allowed",
-            "Method not allowed",
-            "this path does not accept that method",
-        ),
+        StatusCode::METHOD_NOT_ALLOWED => {
+            Problem::new(status, "method-not-allowed", "Method not allowed", "this path does not accept that method")
+        }
         StatusCode::REQUEST_TIMEOUT => Problem::new(
             status,
             "timeout",
             "Request timeout",
             "the request took longer than the configured timeout (see --request-timeout-secs)",
         ),
-        StatusCode::PAYLOAD_TOO_LARGE => Problem::too_large(
-            "the request body exceeds the configured limit (see --max-body-bytes)",
-        ),
-        StatusCode::UNSUPPORTED_MEDIA_TYPE => {
-            Problem::unsupported_media("unsupported content encoding or type")
+        StatusCode::PAYLOAD_TOO_LARGE => {
+            Problem::too_large("the request body exceeds the configured limit (see --max-body-bytes)")
         }
+        StatusCode::UNSUPPORTED_MEDIA_TYPE => Problem::unsupported_media("unsupported content encoding or type"),
         s if s.is_server_error() => Problem::internal("internal error"),
-        s => Problem::new(
-            s,
-            "client-error",
-            s.canonical_reason().unwrap_or("Client error"),
-            "the request was refused",
-        ),
+        s => Problem::new(s, "client-error", s.canonical_reason().unwrap_or("Client error"), "the request was refused"),
     };
     let mut out = p.into_response();
     for (k, v) in res.headers() {
@@ -150,10 +129,7 @@ pub struct App {
 impl App {
     pub async fn bind(opts: &Options) -> std::io::Result<App> {
         let listener = TcpListener::bind(&opts.listen).await?;
-        Ok(App {
-            listener,
-            router: router(opts),
-        })
+        Ok(App { listener, router: router(opts) })
     }
 
     pub fn local_addr(&self) -> SocketAddr {
@@ -161,13 +137,8 @@ impl App {
     }
 
     /// Serve until `shutdown` resolves; then stop accepting and finish the requests in flight.
-    pub async fn serve(
-        self,
-        shutdown: impl Future<Output = ()> + Send + 'static,
-    ) -> std::io::Result<()> {
-        axum::serve(self.listener, self.router)
-            .with_graceful_shutdown(shutdown)
-            .await
+    pub async fn serve(self, shutdown: impl Future<Output = ()> + Send + 'static) -> std::io::Result<()> {
+        axum::serve(self.listener, self.router).with_graceful_shutdown(shutdown).await
     }
 }
 
@@ -178,8 +149,7 @@ pub async fn shutdown_signal() {
     };
     #[cfg(unix)]
     let term = async {
-        if let Ok(mut s) = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate())
-        {
+        if let Ok(mut s) = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
             s.recv().await;
         }
     };

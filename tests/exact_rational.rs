@@ -116,10 +116,7 @@ fn random_portfolios_agree_with_rational_arithmetic() {
             cdf.push(acc.clone());
         }
         let total = acc;
-        assert!(
-            total == BigRational::one(),
-            "case {case}: the reference pmf must sum to 1"
-        );
+        assert!(total == BigRational::one(), "case {case}: the reference pmf must sum to 1");
         for (&(k, side), v) in queries.iter().zip(&vals) {
             let ki = k as usize;
             let truth = match side {
@@ -151,12 +148,7 @@ fn random_portfolios_agree_with_rational_arithmetic() {
             } else {
                 // Below f64's range only the logarithm is returned; its own ulp limits the comparison.
                 let tol = 1e-13 + 4.0 * f64::EPSILON * ln_truth.abs();
-                assert!(
-                    (v.ln_p - ln_truth).abs() <= tol,
-                    "case {case} k={k} {side:?}: ln {} vs {}",
-                    v.ln_p,
-                    ln_truth
-                );
+                assert!((v.ln_p - ln_truth).abs() <= tol, "case {case} k={k} {side:?}: ln {} vs {}", v.ln_p, ln_truth);
                 (v.ln_p - ln_truth).abs().exp_m1()
             };
             assert!(
@@ -164,11 +156,7 @@ fn random_portfolios_agree_with_rational_arithmetic() {
                 "case {case} k={k} {side:?}: relative error {rel:e} (p = {}, truth ~ e^{ln_truth})",
                 v.p
             );
-            assert!(
-                rel <= v.rel_err,
-                "case {case} k={k} {side:?}: relative bound {} < observed {rel:e}",
-                v.rel_err
-            );
+            assert!(rel <= v.rel_err, "case {case} k={k} {side:?}: relative bound {} < observed {rel:e}", v.rel_err);
             worst_rel = worst_rel.max(rel);
         }
     }

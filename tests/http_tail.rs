@@ -7,8 +7,7 @@ use serde_json::{json, Value};
 #[tokio::test]
 async fn demo_request_answers_with_bounds_and_summary() {
     let s = start(&[]).await;
-    let body: Value =
-        serde_json::from_str(&std::fs::read_to_string("fixtures/demo-tail.json").unwrap()).unwrap();
+    let body: Value = serde_json::from_str(&std::fs::read_to_string("fixtures/demo-tail.json").unwrap()).unwrap();
     let (status, ct, v) = s.post_json("/v1/tail", &body).await;
     assert_eq!(status, 200, "{v}");
     assert!(ct.starts_with("application/json"));
@@ -27,10 +26,7 @@ async fn demo_request_answers_with_bounds_and_summary() {
         let iv = e["interval"].as_array().unwrap();
         assert!(iv[0].as_f64().unwrap() <= p && p <= iv[1].as_f64().unwrap());
     }
-    assert!(v["assumptions"][0]
-        .as_str()
-        .unwrap()
-        .contains("independent"));
+    assert!(v["assumptions"][0].as_str().unwrap().contains("independent"));
 }
 
 #[tokio::test]
@@ -53,23 +49,13 @@ async fn thresholds_outside_the_support_are_exact() {
     let body = json!({"portfolio": {"probabilities": [0.5, 1.0, 0.0, 0.25]}, "thresholds": [0, 1, 3, 4, 9]});
     let (status, _, v) = s.post_json("/v1/tail", &body).await;
     assert_eq!(status, 200, "{v}");
-    let p: Vec<f64> = v["results"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|r| r["estimates"][0]["probability"].as_f64().unwrap())
-        .collect();
+    let p: Vec<f64> =
+        v["results"].as_array().unwrap().iter().map(|r| r["estimates"][0]["probability"].as_f64().unwrap()).collect();
     // S = 1 + B(0.5) + B(0.25): support {1, 2, 3}. Outside it (and at its lower end) the answers are exact.
     assert_eq!([p[0], p[1], p[3], p[4]], [1.0, 1.0, 0.0, 0.0]);
     // Inside, P(S >= 3) = 0.5 * 0.25 = 0.125 within the stated bound.
-    let bound = v["results"][2]["estimates"][0]["error_bound"]
-        .as_f64()
-        .unwrap();
-    assert!(
-        (p[2] - 0.125).abs() <= bound && bound < 1e-14,
-        "{} +- {bound}",
-        p[2]
-    );
+    let bound = v["results"][2]["estimates"][0]["error_bound"].as_f64().unwrap();
+    assert!((p[2] - 0.125).abs() <= bound && bound < 1e-14, "{} +- {bound}", p[2]);
     assert_eq!(v["summary"]["support_min"], 1);
     assert_eq!(v["summary"]["support_max"], 3);
 }
@@ -78,21 +64,9 @@ async fn thresholds_outside_the_support_are_exact() {
 async fn bad_inputs_get_problem_details_pointing_at_the_field() {
     let s = start(&["--max-thresholds", "5", "--max-listed-exposures", "1000"]).await;
     let cases: Vec<(Value, u16, &str)> = vec![
-        (
-            json!({"portfolio": {"probabilities": [0.1, 1.5]}, "thresholds": [1]}),
-            422,
-            "/portfolio/probabilities/1",
-        ),
-        (
-            json!({"portfolio": {"probabilities": [0.1, -0.2]}, "thresholds": [1]}),
-            422,
-            "/portfolio/probabilities/1",
-        ),
-        (
-            json!({"portfolio": {"probabilities": [0.1, "x"]}, "thresholds": [1]}),
-            422,
-            "/portfolio/probabilities/1",
-        ),
+        (json!({"portfolio": {"probabilities": [0.1, 1.5]}, "thresholds": [1]}), 422, "/portfolio/probabilities/1"),
+        (json!({"portfolio": {"probabilities": [0.1, -0.2]}, "thresholds": [1]}), 422, "/portfolio/probabilities/1"),
+        (json!({"portfolio": {"probabilities": [0.1, "x"]}, "thresholds": [1]}), 422, "/portfolio/probabilities/1"),
         (
             json!({"portfolio": {"groups": [{"size": -3, "probability": 0.1}]}, "thresholds": [1]}),
             422,
@@ -103,36 +77,12 @@ async fn bad_inputs_get_problem_details_pointing_at_the_field() {
             422,
             "/portfolio/groups/0/probability",
         ),
-        (
-            json!({"portfolio": {"poisson_rates": [-1]}, "thresholds": [1]}),
-            422,
-            "/portfolio/poisson_rates/0",
-        ),
-        (
-            json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [-1]}),
-            422,
-            "/thresholds/0",
-        ),
-        (
-            json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1, 2, 3, 4, 5, 6]}),
-            422,
-            "/thresholds",
-        ),
-        (
-            json!({"portfolio": {"probabilities": [0.1]}, "thresholds": []}),
-            422,
-            "/thresholds",
-        ),
-        (
-            json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1], "side": "sideways"}),
-            422,
-            "/side",
-        ),
-        (
-            json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1], "methods": ["magic"]}),
-            422,
-            "/methods/0",
-        ),
+        (json!({"portfolio": {"poisson_rates": [-1]}, "thresholds": [1]}), 422, "/portfolio/poisson_rates/0"),
+        (json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [-1]}), 422, "/thresholds/0"),
+        (json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1, 2, 3, 4, 5, 6]}), 422, "/thresholds"),
+        (json!({"portfolio": {"probabilities": [0.1]}, "thresholds": []}), 422, "/thresholds"),
+        (json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1], "side": "sideways"}), 422, "/side"),
+        (json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1], "methods": ["magic"]}), 422, "/methods/0"),
         (
             json!({"portfolio": {"families": [{"kind": "constant", "n": 5000, "probability": 0.1}]}, "thresholds": [1]}),
             422,
@@ -153,11 +103,7 @@ async fn bad_inputs_get_problem_details_pointing_at_the_field() {
             422,
             "/portfolio/families/0/kind",
         ),
-        (
-            json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1], "extra": true}),
-            422,
-            "",
-        ),
+        (json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1], "extra": true}), 422, ""),
     ];
     for (body, want, ptr) in cases {
         let (status, ct, v) = s.post_json("/v1/tail", &body).await;
@@ -171,9 +117,7 @@ async fn bad_inputs_get_problem_details_pointing_at_the_field() {
         "{\"portfolio\": {}, \"thresholds\": [1]} x",
         "",
     ] {
-        let (status, ct, v) = s
-            .post_raw("/v1/tail", "application/json", raw.as_bytes().to_vec())
-            .await;
+        let (status, ct, v) = s.post_raw("/v1/tail", "application/json", raw.as_bytes().to_vec()).await;
         assert_problem(status, &ct, &v, 400, None);
     }
     // A number beyond f64 is a bad value, pointed at.
@@ -188,21 +132,9 @@ async fn bad_inputs_get_problem_details_pointing_at_the_field() {
     let (status, ct, v) = s.post_raw("/v1/tail", "text/plain", b"{}".to_vec()).await;
     assert_problem(status, &ct, &v, 415, None);
     let (status, ct, body) = s.get("/v1/tail").await;
-    assert_problem(
-        status,
-        &ct,
-        &serde_json::from_str(&body).unwrap(),
-        405,
-        None,
-    );
+    assert_problem(status, &ct, &serde_json::from_str(&body).unwrap(), 405, None);
     let (status, ct, body) = s.get("/nowhere").await;
-    assert_problem(
-        status,
-        &ct,
-        &serde_json::from_str(&body).unwrap(),
-        404,
-        None,
-    );
+    assert_problem(status, &ct, &serde_json::from_str(&body).unwrap(), 404, None);
 }
 
 #[tokio::test]

@@ -28,11 +28,8 @@ fn reference_model(name: &str, n: usize) -> Model {
 /// every value there is good to 1e-30 relative. n = 2,000 to 100,000, tails down to 1e-319 and far below.
 #[test]
 fn large_portfolios_match_high_precision_references() {
-    let text = std::fs::read_to_string(concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/fixtures/reference/large_n.json"
-    ))
-    .unwrap();
+    let text =
+        std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/fixtures/reference/large_n.json")).unwrap();
     let doc: Value = serde_json::from_str(&text).unwrap();
     let mut worst: f64 = 0.0;
     let mut count = 0;
@@ -108,9 +105,7 @@ fn stirling_row(n: usize) -> Vec<num_bigint::BigUint> {
 /// confirmed by its row sum 10! = 3628800 and by the recurrence; larger n come from the recurrence.
 #[test]
 fn harmonic_family_matches_stirling_numbers() {
-    let recalled_row_10: [u64; 11] = [
-        0, 362880, 1026576, 1172700, 723680, 269325, 63273, 9450, 870, 45, 1,
-    ];
+    let recalled_row_10: [u64; 11] = [0, 362880, 1026576, 1172700, 723680, 269325, 63273, 9450, 870, 45, 1];
     assert_eq!(recalled_row_10.iter().sum::<u64>(), 3628800);
     let row = stirling_row(10);
     for (k, &c) in recalled_row_10.iter().enumerate() {
@@ -118,9 +113,7 @@ fn harmonic_family_matches_stirling_numbers() {
     }
     for n in [10usize, 60, 170] {
         let mut model = Model::default();
-        expand(&FamilySpec::Harmonic { n: n as u64 }, |p| {
-            model.push_bernoulli(p)
-        });
+        expand(&FamilySpec::Harmonic { n: n as u64 }, |p| model.push_bernoulli(p));
         let row = stirling_row(n);
         let fact: num_bigint::BigUint = row.iter().sum();
         let queries: Vec<(u64, Side)> = (0..=n as u64).map(|k| (k, Side::Point)).collect();
@@ -162,33 +155,20 @@ fn binomial_and_poisson_special_cases_match_statrs() {
     use statrs::distribution::{Binomial, Discrete, DiscreteCDF, Poisson};
     let model = Model::from_parts(&[], &[(1000, 0.03)], 0.0);
     let d = Binomial::new(0.03, 1000).unwrap();
-    let qs: Vec<(u64, Side)> = (0..=80)
-        .flat_map(|k| [(k, Side::Point), (k, Side::Lower)])
-        .collect();
+    let qs: Vec<(u64, Side)> = (0..=80).flat_map(|k| [(k, Side::Point), (k, Side::Lower)]).collect();
     for (&(k, side), v) in qs.iter().zip(eval(&model, &qs)) {
-        let r = if side == Side::Point {
-            d.pmf(k)
-        } else {
-            d.cdf(k)
-        };
+        let r = if side == Side::Point { d.pmf(k) } else { d.cdf(k) };
         // statrs' binomial cdf comes from the regularised incomplete beta function and is good to about 1e-11
         // here, and its pmf from log-gamma is no better (measured: at k = 21 it gives 0.05185449868013816, the exact rational sum is
         // 0.05185449868021742 and this engine 0.05185449868021737), hence the tolerance; the
         // exact rational check below is the sharp one.
         let tol = 1e-10;
-        assert!(
-            (v.p - r).abs() <= tol * r.max(1e-300) + 1e-15,
-            "binomial k={k} {side:?}: {} vs {r}",
-            v.p
-        );
+        assert!((v.p - r).abs() <= tol * r.max(1e-300) + 1e-15, "binomial k={k} {side:?}: {} vs {r}", v.p);
     }
     // The exact rational value above, computed with Python's fractions module (sum of comb(1000, j) p^j q^(1000-j)
     // for j <= 21 with p the double 0.03).
     let v = eval(&model, &[(21, Side::Lower)])[0];
-    assert!(
-        (v.p - 0.05185449868021742).abs() <= 2e-16
-            && (v.p - 0.05185449868021742).abs() <= v.abs_err + 1e-17
-    );
+    assert!((v.p - 0.05185449868021742).abs() <= 2e-16 && (v.p - 0.05185449868021742).abs() <= v.abs_err + 1e-17);
     // The same binomial as 1000 separate Bernoulli exposures.
     let flat = Model::from_parts(&vec![0.03; 1000], &[], 0.0);
     for (a, b) in eval(&model, &qs).iter().zip(eval(&flat, &qs)) {
@@ -196,20 +176,10 @@ fn binomial_and_poisson_special_cases_match_statrs() {
     }
     let model = Model::from_parts(&[], &[], 12.5);
     let d = Poisson::new(12.5).unwrap();
-    let qs: Vec<(u64, Side)> = (0..=60)
-        .flat_map(|k| [(k, Side::Point), (k, Side::Lower)])
-        .collect();
+    let qs: Vec<(u64, Side)> = (0..=60).flat_map(|k| [(k, Side::Point), (k, Side::Lower)]).collect();
     for (&(k, side), v) in qs.iter().zip(eval(&model, &qs)) {
-        let r = if side == Side::Point {
-            d.pmf(k)
-        } else {
-            d.cdf(k)
-        };
-        assert!(
-            (v.p - r).abs() <= 1e-10 * r + 1e-15,
-            "poisson k={k} {side:?}: {} vs {r}",
-            v.p
-        );
+        let r = if side == Side::Point { d.pmf(k) } else { d.cdf(k) };
+        assert!((v.p - r).abs() <= 1e-10 * r + 1e-15, "poisson k={k} {side:?}: {} vs {r}", v.p);
     }
     // Handbook value, recalled from memory of standard Poisson tables: P(X <= 2) for lambda = 1 is
     // e^-1 (1 + 1 + 1/2) = 0.9196986..., which is also the closed form.
@@ -224,8 +194,7 @@ fn binomial_and_poisson_special_cases_match_statrs() {
 fn poisson_far_tail_matches_closed_form_series() {
     let lam = 3.0f64;
     for k in [40u64, 120, 400] {
-        let mut ln_term =
-            -lam + k as f64 * lam.ln() - (1..=k).map(|j| (j as f64).ln()).sum::<f64>();
+        let mut ln_term = -lam + k as f64 * lam.ln() - (1..=k).map(|j| (j as f64).ln()).sum::<f64>();
         let mut ln_sum = ln_term;
         for j in k + 1..k + 200 {
             ln_term += lam.ln() - (j as f64).ln();
@@ -233,10 +202,6 @@ fn poisson_far_tail_matches_closed_form_series() {
         }
         let v = eval(&Model::from_parts(&[], &[], lam), &[(k, Side::Upper)])[0];
         // The reference's own rounding grows with k (a sum of k logarithms), hence the tolerance.
-        assert!(
-            (v.ln_p - ln_sum).abs() < 1e-13 * k as f64,
-            "k={k}: {} vs {ln_sum}",
-            v.ln_p
-        );
+        assert!((v.ln_p - ln_sum).abs() < 1e-13 * k as f64, "k={k}: {} vs {ln_sum}", v.ln_p);
     }
 }

@@ -16,20 +16,9 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for Body<T> {
     type Rejection = Problem;
 
     async fn from_request(req: Request, state: &S) -> Result<Self, Problem> {
-        let ctype = req
-            .headers()
-            .get(header::CONTENT_TYPE)
-            .and_then(|v| v.to_str().ok())
-            .unwrap_or("");
-        let mime = ctype
-            .split(';')
-            .next()
-            .unwrap_or("")
-            .trim()
-            .to_ascii_lowercase();
-        if mime != "application/json"
-            && !(mime.starts_with("application/") && mime.ends_with("+json"))
-        {
+        let ctype = req.headers().get(header::CONTENT_TYPE).and_then(|v| v.to_str().ok()).unwrap_or("");
+        let mime = ctype.split(';').next().unwrap_or("").trim().to_ascii_lowercase();
+        if mime != "application/json" && !(mime.starts_with("application/") && mime.ends_with("+json")) {
             return Err(Problem::unsupported_media(format!(
                 "expected Content-Type: application/json, got {:?}",
                 ctype
@@ -37,9 +26,7 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for Body<T> {
         }
         let bytes = Bytes::from_request(req, state).await.map_err(|e| {
             if e.status() == axum::http::StatusCode::PAYLOAD_TOO_LARGE {
-                Problem::too_large(
-                    "the request body exceeds the configured limit (see --max-body-bytes)",
-                )
+                Problem::too_large("the request body exceeds the configured limit (see --max-body-bytes)")
             } else {
                 Problem::malformed(format!("could not read the request body: {e}"))
             }
@@ -64,16 +51,12 @@ pub fn parse<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, Problem> {
             let inner = err.into_inner();
             use serde_json::error::Category;
             match inner.classify() {
-                Category::Data => Err(Problem::invalid(vec![Violation::new(
-                    pointer,
-                    strip_position(&inner.to_string()),
-                )])),
+                Category::Data => {
+                    Err(Problem::invalid(vec![Violation::new(pointer, strip_position(&inner.to_string()))]))
+                }
                 // A number too large for f64 (e.g. 1e400) is a syntax error to serde_json but a bad value to a client.
                 Category::Syntax if inner.to_string().starts_with("number out of range") => {
-                    Err(Problem::invalid(vec![Violation::new(
-                        pointer,
-                        "number out of range for a 64-bit float",
-                    )]))
+                    Err(Problem::invalid(vec![Violation::new(pointer, "number out of range for a 64-bit float")]))
                 }
                 _ => Err(Problem::malformed(inner.to_string())),
             }

@@ -28,8 +28,5 @@ pub fn document() -> utoipa::openapi::OpenApi {
 }
 
 pub fn pretty_json() -> String {
-    document()
-        .to_pretty_json()
-        .expect("the document serialises")
-        + "\n"
+    document().to_pretty_json().expect("the document serialises") + "\n"
 }

@@ -40,76 +40,35 @@ impl Problem {
     }
 
     pub fn malformed(detail: impl Into<String>) -> Problem {
-        Problem::new(
-            StatusCode::BAD_REQUEST,
-            "malformed-json",
-            "Malformed JSON",
-            detail,
-        )
+        Problem::new(StatusCode::BAD_REQUEST, "malformed-json", "Malformed JSON", detail)
     }
 
     pub fn invalid(errors: Vec<Violation>) -> Problem {
         let detail = match errors.first() {
             Some(v) if errors.len() == 1 => format!("{}: {}", v.pointer, v.detail),
-            Some(v) => format!(
-                "{} problems; the first: {}: {}",
-                errors.len(),
-                v.pointer,
-                v.detail
-            ),
+            Some(v) => format!("{} problems; the first: {}: {}", errors.len(), v.pointer, v.detail),
             None => "the request is invalid".into(),
         };
         Problem {
-            errors: errors
-                .into_iter()
-                .map(|v| FieldError {
-                    pointer: v.pointer,
-                    detail: v.detail,
-                })
-                .collect(),
-            ..Problem::new(
-                StatusCode::UNPROCESSABLE_ENTITY,
-                "invalid-request",
-                "Invalid request",
-                detail,
-            )
+            errors: errors.into_iter().map(|v| FieldError { pointer: v.pointer, detail: v.detail }).collect(),
+            ..Problem::new(StatusCode::UNPROCESSABLE_ENTITY, "invalid-request", "Invalid request", detail)
         }
     }
 
     pub fn too_large(detail: impl Into<String>) -> Problem {
-        Problem::new(
-            StatusCode::PAYLOAD_TOO_LARGE,
-            "too-large",
-            "Request too large",
-            detail,
-        )
+        Problem::new(StatusCode::PAYLOAD_TOO_LARGE, "too-large", "Request too large", detail)
     }
 
     pub fn unsupported_media(detail: impl Into<String>) -> Problem {
-        Problem::new(
-            StatusCode::UNSUPPORTED_MEDIA_TYPE,
-            "unsupported-media-type",
-            "Unsupported media type",
-            detail,
-        )
+        Problem::new(StatusCode::UNSUPPORTED_MEDIA_TYPE, "unsupported-media-type", "Unsupported media type", detail)
     }
 
     pub fn internal(detail: impl Into<String>) -> Problem {
-        Problem::new(
-            StatusCode::INTERNAL_SERVER_ERROR,
-            "internal",
-            "Internal error",
-            detail,
-        )
+        Problem::new(StatusCode::INTERNAL_SERVER_ERROR, "internal", "Internal error", detail)
     }
 
     pub fn not_found(path: &str) -> Problem {
-        Problem::new(
-            StatusCode::NOT_FOUND,
-            "not-found",
-            "Not found",
-            format!("no route for {path}"),
-        )
+        Problem::new(StatusCode::NOT_FOUND, "not-found", "Not found", format!("no route for {path}"))
     }
 }
 
@@ -118,10 +77,7 @@ impl IntoResponse for Problem {
         let status = StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
         let body = serde_json::to_vec(&self).unwrap_or_else(|_| b"{}".to_vec());
         let mut res = (status, body).into_response();
-        res.headers_mut().insert(
-            header::CONTENT_TYPE,
-            HeaderValue::from_static("application/problem+json"),
-        );
+        res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static("application/problem+json"));
         res
     }
 }

@@ -2,6 +2,7 @@
 //! engine results into wire form.
 
 use crate::engine::moments::Moments;
+use crate::engine::select::{Selection, Tolerance};
 use crate::engine::{BoundKind, Estimate, MethodId, Side};
 use crate::portfolio::{Model, PortfolioSpec};
 use serde::{Deserialize, Serialize};
@@ -28,6 +29,9 @@ pub struct TailRequest {
     /// Methods to run; each threshold gets one estimate per method.
     #[serde(default = "default_methods")]
     pub methods: Vec<MethodId>,
+    /// For `auto`: `{"absolute": a}` or `{"relative": r}`; default `{"relative": 0.001}`.
+    #[serde(default)]
+    pub tolerance: Option<Tolerance>,
 }
 
 fn default_methods() -> Vec<MethodId> {
@@ -83,6 +87,12 @@ pub struct EstimateOut {
     pub interval: [f64; 2],
     /// Compute time attributed to this estimate, in microseconds.
     pub elapsed_us: f64,
+    /// Saddlepoint only: ln of the rigorous Chernoff upper bound exp(K(s) - s k) at the same saddlepoint.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub chernoff_ln_bound: Option<f64>,
+    /// `auto` only: the bounds checked, their cost, and the method chosen.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub selection: Option<Selection>,
 }
 
 impl From<&Estimate> for EstimateOut {
@@ -97,6 +107,8 @@ impl From<&Estimate> for EstimateOut {
             bound_kind: e.bound_kind,
             interval: [lo, hi],
             elapsed_us: (e.elapsed_us * 1000.0).round() / 1000.0,
+            chernoff_ln_bound: e.chernoff_ln_bound,
+            selection: e.selection.clone(),
         }
     }
 }

@@ -41,13 +41,7 @@ pub struct TiltConsts {
 
 impl TiltConsts {
     pub fn new(t: f64) -> Self {
-        TiltConsts {
-            t,
-            et: t.exp(),
-            emt: (-t).exp(),
-            em1: t.exp_m1(),
-            emm1: (-t).exp_m1(),
-        }
+        TiltConsts { t, et: t.exp(), emt: (-t).exp(), em1: t.exp_m1(), emm1: (-t).exp_m1() }
     }
 }
 
@@ -109,6 +103,8 @@ pub const TILT_REL: f64 = 8.0 * super::float::U;
 #[derive(Debug, Clone, Copy)]
 pub struct Scale {
     pub phi: f64,
+    /// Low part of phi as a double-double (phi + phi_lo is the compensated sum).
+    pub phi_lo: f64,
     /// Bound on |phi - exact|.
     pub phi_err: f64,
     /// B = shift + sum of b over exposures (an integer).
@@ -118,12 +114,19 @@ pub struct Scale {
 impl Scale {
     /// ln(exp(K(t) - t x)) = phi + t (B - x), with t (B - x) formed exactly; returns (value, error bound).
     pub fn ln_scale(&self, t: f64, x: f64) -> (f64, f64) {
-        let (hi, lo) = super::float::two_prod(t, self.b - x);
-        let v = self.phi + hi + lo;
-        (
-            v,
-            self.phi_err + 2.0 * super::float::U * (self.phi.abs() + hi.abs() + v.abs()),
-        )
+        let (v, lo, err) = self.ln_scale_dd(t, x);
+        (v + lo, err)
+    }
+
+    /// The same as a double-double (hi, lo) with its error bound, so that exp of it keeps full precision
+    /// even at ln values in the hundreds (where one ulp of the double is already 1e-13 relative).
+    pub fn ln_scale_dd(&self, t: f64, x: f64) -> (f64, f64, f64) {
+        use super::float::{two_prod, two_sum, U};
+        let (hi, lo) = two_prod(t, self.b - x);
+        let (a, e) = two_sum(self.phi, hi);
+        let rest = e + self.phi_lo + lo;
+        let (v, l) = two_sum(a, rest);
+        (v, l, self.phi_err + 2.0 * U * U * (self.phi.abs() + hi.abs()) + U * rest.abs())
     }
 }
 
@@ -150,11 +153,8 @@ pub fn scale(model: &Model, t: f64) -> Scale {
     }
     // Each phi is within ~6 ulps of itself (see `tilt`); the product by a group size adds one more.
     let phi_err = phi.error_bound() + 8.0 * super::float::U * abs;
-    Scale {
-        phi: phi.value(),
-        phi_err,
-        b,
-    }
+    let (hi, lo) = phi.parts();
+    Scale { phi: hi, phi_lo: lo, phi_err, b }
 }
 
 pub fn eval(model: &Model, t: f64) -> CgfValue {
@@ -179,15 +179,7 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
     let shift = model.shift as f64;
     let sc = scale(model, t);
     let (k0, k0_err) = sc.ln_scale(t, 0.0);
-    CgfValue {
-        t,
-        k0,
-        k1: k1 + extra + shift,
-        k2: k2 + extra,
-        k3: k3 + extra,
-        k4: k4 + extra,
-        k0_err,
-    }
+    CgfValue { t, k0, k1: k1 + extra + shift, k2: k2 + extra, k3: k3 + extra, k4: k4 + extra, k0_err }
 }
 
 /// Variance of the tilted law, K''(t).
@@ -226,14 +218,17 @@ pub fn solve(model: &Model, x: f64, tol: f64) -> f64 {
         return 0.0;
     }
     // Bracket [lo, hi] with K'(lo) < x < K'(hi); K' is increasing.
-    let (mut lo, mut hi) = if x > m0 {
-        (0.0, f64::NAN)
-    } else {
-        (f64::NAN, 0.0)
-    };
-    // First guess from a Newton step at 0, bounded to a sensible size.
-    let mut t = ((x - m0) / v0).clamp(-T_MAX, T_MAX);
-    for _ in 0..200 {
+    let (mut lo, mut hi) = if x > m0 { (0.0, f64::NAN) } else { (f64::NAN, 0.0) };
+    // First guess: the smaller of a Newton step at 0 and the Poisson-like ln(x/mean) (either can be far off;
+    // the bracket below makes any guess safe, a good one makes it fast).
+    let shift = model.shift as f64;
+    let newton0 = (x - m0) / v0;
+    let poisson0 = ((x - shift).max(1e-300) / (m0 - shift).max(1e-300)).ln();
+    let mut t =
+        if newton0.signum() == poisson0.signum() && poisson0.abs() < newton0.abs() { poisson0 } else { newton0 };
+    t = t.clamp(-T_MAX, T_MAX);
+    let mut last_step = f64::INFINITY;
+    for _ in 0..400 {
         let (k1, k2) = k1_k2(model, t);
         let f = k1 - x;
         if f.abs() <= tol {
@@ -249,7 +244,13 @@ pub fn solve(model: &Model, x: f64, tol: f64) -> f64 {
         }
         let newton = if k2 > 0.0 { t - f / k2 } else { f64::NAN };
         let inside = |z: f64| z.is_finite() && (lo.is_nan() || z > lo) && (hi.is_nan() || z < hi);
-        t = if inside(newton) {
+        // Newton while it at least halves its step each time (Press et al., "Numerical Recipes", rtsafe);
+        // otherwise bisect, so a far start such as exp-like growth of K' cannot crawl.
+        let bracketed = !lo.is_nan() && !hi.is_nan();
+        let step = (newton - t).abs();
+        let slow = bracketed && step > 0.5 * last_step;
+        last_step = if inside(newton) && !slow { step } else { f64::INFINITY };
+        t = if inside(newton) && !slow {
             newton
         } else if lo.is_nan() {
             // Still searching for the lower end of the bracket: step out geometrically.

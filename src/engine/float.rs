@@ -47,6 +47,10 @@ impl Sum {
     pub fn value(&self) -> f64 {
         self.s + self.c
     }
+    /// The sum as an unevaluated pair (hi, lo), hi + lo more accurate than `value`.
+    pub fn parts(&self) -> (f64, f64) {
+        two_sum(self.s, self.c)
+    }
     /// Rigorous bound on |value - exact sum of the added doubles| (Higham, section 4.3).
     pub fn error_bound(&self) -> f64 {
         2.0 * U * self.value().abs() + gamma(4.0 * self.n as f64 + 4.0) * U * self.abs * 2.0
@@ -57,6 +61,14 @@ impl Sum {
 pub fn two_prod(a: f64, b: f64) -> (f64, f64) {
     let hi = a * b;
     let lo = a.mul_add(b, -hi);
+    (hi, lo)
+}
+
+/// Exact sum as a double-double: a + b = hi + lo exactly (Knuth's TwoSum).
+pub fn two_sum(a: f64, b: f64) -> (f64, f64) {
+    let hi = a + b;
+    let bb = hi - a;
+    let lo = (a - (hi - bb)) + (b - bb);
     (hi, lo)
 }
 

@@ -6,9 +6,15 @@
 //! checked against.
 
 pub mod cgf;
+pub mod edgeworth;
 pub mod exact;
 pub mod float;
 pub mod moments;
+pub mod normal;
+pub mod normal_law;
+pub mod poisson;
+pub mod saddlepoint;
+pub mod select;
 
 use crate::portfolio::Model;
 use moments::Moments;
@@ -42,6 +48,12 @@ pub enum BoundKind {
 #[serde(rename_all = "snake_case")]
 pub enum MethodId {
     Exact,
+    Normal,
+    Edgeworth,
+    Poisson,
+    Saddlepoint,
+    /// The cheapest method whose rigorous bound meets the tolerance.
+    Auto,
 }
 
 /// One method's answer for one threshold.
@@ -57,15 +69,42 @@ pub struct Estimate {
     pub bound_kind: BoundKind,
     /// Compute time attributed to this estimate, in microseconds.
     pub elapsed_us: f64,
+    /// ln of a rigorous Chernoff upper bound on the probability (saddlepoint only).
+    pub chernoff_ln_bound: Option<f64>,
+    /// Why `auto` chose this method.
+    pub selection: Option<select::Selection>,
 }
 
 impl Estimate {
+    pub fn new(
+        method: MethodId,
+        probability: f64,
+        ln_probability: f64,
+        error_bound: f64,
+        bound_kind: BoundKind,
+        start: Instant,
+    ) -> Estimate {
+        Estimate {
+            method,
+            probability,
+            ln_probability,
+            error_bound: float::up(error_bound),
+            relative_error_bound: None,
+            bound_kind,
+            elapsed_us: start.elapsed().as_secs_f64() * 1e6,
+            chernoff_ln_bound: None,
+            selection: None,
+        }
+    }
+
+    pub fn renamed(mut self, m: MethodId) -> Estimate {
+        self.method = m;
+        self
+    }
+
     /// [lo, hi] clipped to [0, 1], where the truth lies given the bound.
     pub fn interval(&self) -> (f64, f64) {
-        (
-            (self.probability - self.error_bound).max(0.0),
-            (self.probability + self.error_bound).min(1.0),
-        )
+        ((self.probability - self.error_bound).max(0.0), (self.probability + self.error_bound).min(1.0))
     }
 }
 
@@ -77,10 +116,7 @@ pub struct Prepared<'a> {
 
 impl<'a> Prepared<'a> {
     pub fn new(model: &'a Model) -> Self {
-        Prepared {
-            model,
-            moments: Moments::of(model),
-        }
+        Prepared { model, moments: Moments::of(model) }
     }
 }
 
@@ -90,10 +126,7 @@ pub trait TailMethod {
     fn estimate(&self, prep: &Prepared, queries: &[(u64, Side)]) -> Vec<Estimate>;
 }
 
-/// The exact method as a [`TailMethod`].
-pub struct Exact;
-
-impl TailMethod for Exact {
+impl TailMethod for exact::Exact {
     fn id(&self) -> MethodId {
         MethodId::Exact
     }
@@ -111,14 +144,21 @@ impl TailMethod for Exact {
                 relative_error_bound: Some(v.rel_err),
                 bound_kind: BoundKind::Rigorous,
                 elapsed_us: per,
+                chernoff_ln_bound: None,
+                selection: None,
             })
             .collect()
     }
 }
 
-/// Look a method up by id.
-pub fn method(id: MethodId) -> &'static dyn TailMethod {
+/// Run one method (`auto` with the given tolerance, or the default one).
+pub fn run(id: MethodId, prep: &Prepared, queries: &[(u64, Side)], tol: Option<select::Tolerance>) -> Vec<Estimate> {
     match id {
-        MethodId::Exact => &Exact,
+        MethodId::Exact => exact::Exact.estimate(prep, queries),
+        MethodId::Normal => normal::Normal.estimate(prep, queries),
+        MethodId::Edgeworth => edgeworth::Edgeworth.estimate(prep, queries),
+        MethodId::Poisson => poisson::PoissonApprox.estimate(prep, queries),
+        MethodId::Saddlepoint => saddlepoint::Saddlepoint.estimate(prep, queries),
+        MethodId::Auto => select::auto(prep, queries, tol.unwrap_or(select::DEFAULT_TOLERANCE)),
     }
 }

@@ -20,13 +20,8 @@ pub struct Moments {
 
 impl Moments {
     pub fn of(model: &Model) -> Moments {
-        let (mut mean, mut var, mut m3, mut a3, mut p2) = (
-            Sum::default(),
-            Sum::default(),
-            Sum::default(),
-            Sum::default(),
-            Sum::default(),
-        );
+        let (mut mean, mut var, mut m3, mut a3, mut p2) =
+            (Sum::default(), Sum::default(), Sum::default(), Sum::default(), Sum::default());
         let mut add = |m: f64, p: f64| {
             let q = 1.0 - p;
             let v = p * q;

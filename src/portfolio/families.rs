@@ -24,9 +24,7 @@ pub fn expand(f: &FamilySpec, mut sink: impl FnMut(f64)) {
     match *f {
         FamilySpec::Constant { n, probability } => (0..n).for_each(|_| sink(probability)),
         FamilySpec::Harmonic { n } => (1..=n).for_each(|k| sink(1.0 / k as f64)),
-        FamilySpec::Ewens { n, theta } => {
-            (1..=n).for_each(|k| sink(clamp(theta / (theta + (k - 1) as f64))))
-        }
+        FamilySpec::Ewens { n, theta } => (1..=n).for_each(|k| sink(clamp(theta / (theta + (k - 1) as f64)))),
         FamilySpec::Geometric { n, first, ratio } => {
             // Powers by exp/ln rather than repeated multiplication: the error does not grow with k.
             let ln_ratio = ratio.ln();
@@ -49,19 +47,11 @@ pub fn expand(f: &FamilySpec, mut sink: impl FnMut(f64)) {
             let step = (last - first) / (n - 1) as f64;
             for k in 0..n {
                 // The last value is set exactly so that "first" and "last" are both honoured to the bit.
-                let p = if k == n - 1 {
-                    last
-                } else {
-                    first + step * k as f64
-                };
+                let p = if k == n - 1 { last } else { first + step * k as f64 };
                 sink(clamp(p));
             }
         }
-        FamilySpec::Logistic {
-            ref scores,
-            intercept,
-            slope,
-        } => {
+        FamilySpec::Logistic { ref scores, intercept, slope } => {
             for &s in scores {
                 let x = intercept + slope * s;
                 // Two branches so that exp never overflows and tiny probabilities keep their relative accuracy.

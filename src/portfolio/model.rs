@@ -26,10 +26,7 @@ pub struct Model {
 impl Model {
     /// Build from plain parts, normalising p = 0 and p = 1. Inputs are assumed validated.
     pub fn from_parts(probabilities: &[f64], groups: &[(u64, f64)], poisson: f64) -> Model {
-        let mut m = Model {
-            poisson,
-            ..Model::default()
-        };
+        let mut m = Model { poisson, ..Model::default() };
         for &p in probabilities {
             m.push_bernoulli(p);
         }

@@ -47,9 +47,5 @@ pub enum FamilySpec {
     /// n probabilities evenly spaced from `first` to `last` (inclusive).
     Linear { n: u64, first: f64, last: f64 },
     /// p = 1 / (1 + exp(-(intercept + slope * score))) for each score.
-    Logistic {
-        scores: Vec<f64>,
-        intercept: f64,
-        slope: f64,
-    },
+    Logistic { scores: Vec<f64>, intercept: f64, slope: f64 },
 }

@@ -20,11 +20,7 @@ pub struct Limits {
 
 impl Default for Limits {
     fn default() -> Self {
-        Limits {
-            max_listed_exposures: 10_000_000,
-            max_total_exposures: 1_000_000_000,
-            max_poisson_rate: 1e9,
-        }
+        Limits { max_listed_exposures: 10_000_000, max_total_exposures: 1_000_000_000, max_poisson_rate: 1e9 }
     }
 }
 
@@ -39,10 +35,7 @@ pub struct Violation {
 
 impl Violation {
     pub fn new(pointer: impl Into<String>, detail: impl Into<String>) -> Self {
-        Violation {
-            pointer: pointer.into(),
-            detail: detail.into(),
-        }
+        Violation { pointer: pointer.into(), detail: detail.into() }
     }
 }
 
@@ -54,11 +47,7 @@ fn probability_ok(p: f64) -> bool {
 }
 
 /// Check `spec` (found at `base`, e.g. "/portfolio") and build the model.
-pub fn build_model(
-    spec: &PortfolioSpec,
-    base: &str,
-    limits: &Limits,
-) -> Result<Model, Vec<Violation>> {
+pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<Model, Vec<Violation>> {
     let mut errs = Vec::new();
     let push = |errs: &mut Vec<Violation>, v: Violation| {
         if errs.len() < MAX_REPORTED {
@@ -95,10 +84,7 @@ pub fn build_model(
         if !(r.is_finite() && r >= 0.0) {
             push(
                 &mut errs,
-                Violation::new(
-                    format!("{base}/poisson_rates/{i}"),
-                    format!("must be a finite rate >= 0, got {r}"),
-                ),
+                Violation::new(format!("{base}/poisson_rates/{i}"), format!("must be a finite rate >= 0, got {r}")),
             );
         } else {
             rate += r;
@@ -109,10 +95,7 @@ pub fn build_model(
             &mut errs,
             Violation::new(
                 format!("{base}/poisson_rates"),
-                format!(
-                    "total rate {rate} exceeds the limit {}",
-                    limits.max_poisson_rate
-                ),
+                format!("total rate {rate} exceeds the limit {}", limits.max_poisson_rate),
             ),
         );
     }
@@ -130,10 +113,7 @@ pub fn build_model(
             &mut errs,
             Violation::new(
                 base.to_string(),
-                format!(
-                    "{listed} listed or generated exposures exceed the limit of {}",
-                    limits.max_listed_exposures
-                ),
+                format!("{listed} listed or generated exposures exceed the limit of {}", limits.max_listed_exposures),
             ),
         );
     }
@@ -142,20 +122,14 @@ pub fn build_model(
             &mut errs,
             Violation::new(
                 base.to_string(),
-                format!(
-                    "{total} exposures in total exceed the limit of {}",
-                    limits.max_total_exposures
-                ),
+                format!("{total} exposures in total exceed the limit of {}", limits.max_total_exposures),
             ),
         );
     }
     if !errs.is_empty() {
         return Err(errs);
     }
-    let mut model = Model {
-        poisson: rate,
-        ..Model::default()
-    };
+    let mut model = Model { poisson: rate, ..Model::default() };
     model.bernoulli.reserve(listed as usize);
     for &p in &spec.probabilities {
         model.push_bernoulli(p);
@@ -173,10 +147,7 @@ fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {
     let mut v = Vec::new();
     let mut prob = |name: &str, x: f64| {
         if !probability_ok(x) {
-            v.push(Violation::new(
-                format!("{at}/{name}"),
-                format!("must be a probability in [0, 1], got {x}"),
-            ));
+            v.push(Violation::new(format!("{at}/{name}"), format!("must be a probability in [0, 1], got {x}")));
         }
     };
     match *f {
@@ -184,10 +155,7 @@ fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {
         FamilySpec::Harmonic { .. } => {}
         FamilySpec::Ewens { theta, .. } => {
             if !(theta.is_finite() && theta > 0.0) {
-                v.push(Violation::new(
-                    format!("{at}/theta"),
-                    format!("must be finite and > 0, got {theta}"),
-                ));
+                v.push(Violation::new(format!("{at}/theta"), format!("must be finite and > 0, got {theta}")));
             }
         }
         FamilySpec::Geometric { first, ratio, .. } => {
@@ -203,11 +171,7 @@ fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {
             prob("first", first);
             prob("last", last);
         }
-        FamilySpec::Logistic {
-            ref scores,
-            intercept,
-            slope,
-        } => {
+        FamilySpec::Logistic { ref scores, intercept, slope } => {
             if !intercept.is_finite() {
                 v.push(Violation::new(format!("{at}/intercept"), "must be finite"));
             }

@@ -27,18 +27,12 @@ pub async fn start(flags: &[&str]) -> Server {
     let handle = tokio::spawn(app.serve(async move {
         let _ = rx.await;
     }));
-    Server {
-        base: format!("http://{addr}"),
-        client: reqwest::Client::new(),
-        stop: Some(tx),
-        handle: Some(handle),
-    }
+    Server { base: format!("http://{addr}"), client: reqwest::Client::new(), stop: Some(tx), handle: Some(handle) }
 }
 
 impl Server {
     pub async fn post_json(&self, path: &str, body: &Value) -> (u16, String, Value) {
-        self.post_raw(path, "application/json", serde_json::to_vec(body).unwrap())
-            .await
+        self.post_raw(path, "application/json", serde_json::to_vec(body).unwrap()).await
     }
 
     pub async fn post_raw(&self, path: &str, ctype: &str, body: Vec<u8>) -> (u16, String, Value) {
@@ -51,29 +45,16 @@ impl Server {
             .await
             .expect("request");
         let status = res.status().as_u16();
-        let ct = res
-            .headers()
-            .get("content-type")
-            .map(|v| v.to_str().unwrap().to_string())
-            .unwrap_or_default();
+        let ct = res.headers().get("content-type").map(|v| v.to_str().unwrap().to_string()).unwrap_or_default();
         let text = res.text().await.unwrap();
         let v = serde_json::from_str(&text).unwrap_or(Value::String(text));
         (status, ct, v)
     }
 
     pub async fn get(&self, path: &str) -> (u16, String, String) {
-        let res = self
-            .client
-            .get(format!("{}{path}", self.base))
-            .send()
-            .await
-            .expect("request");
+        let res = self.client.get(format!("{}{path}", self.base)).send().await.expect("request");
         let status = res.status().as_u16();
-        let ct = res
-            .headers()
-            .get("content-type")
-            .map(|v| v.to_str().unwrap().to_string())
-            .unwrap_or_default();
+        let ct = res.headers().get("content-type").map(|v| v.to_str().unwrap().to_string()).unwrap_or_default();
         (status, ct, res.text().await.unwrap())
     }
 
@@ -87,15 +68,9 @@ impl Server {
 /// Assert an RFC 9457 problem answer with this status that points at `pointer`.
 pub fn assert_problem(status: u16, ct: &str, body: &Value, want: u16, pointer: Option<&str>) {
     assert_eq!(status, want, "body: {body}");
-    assert!(
-        ct.starts_with("application/problem+json"),
-        "content type {ct}"
-    );
+    assert!(ct.starts_with("application/problem+json"), "content type {ct}");
     assert_eq!(body["status"], want);
-    assert!(
-        body["title"].is_string() && body["detail"].is_string() && body["type"].is_string(),
-        "{body}"
-    );
+    assert!(body["title"].is_string() && body["detail"].is_string() && body["type"].is_string(), "{body}");
     if let Some(p) = pointer {
         let ptrs: Vec<&str> = body["errors"]
             .as_array()

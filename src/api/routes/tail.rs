@@ -2,9 +2,7 @@
 
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
-use crate::api::types::{
-    EstimateOut, Summary, TailRequest, TailResponse, ThresholdResult, ASSUMPTIONS,
-};
+use crate::api::types::{EstimateOut, Summary, TailRequest, TailResponse, ThresholdResult, ASSUMPTIONS};
 use crate::api::AppState;
 use crate::config::ServiceLimits;
 use crate::engine::{self, Prepared};
@@ -24,10 +22,7 @@ use axum::Json;
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
     )
 )]
-pub async fn tail(
-    State(state): State<AppState>,
-    Body(req): Body<TailRequest>,
-) -> Result<Json<TailResponse>, Problem> {
+pub async fn tail(State(state): State<AppState>, Body(req): Body<TailRequest>) -> Result<Json<TailResponse>, Problem> {
     let limits = state.limits.clone();
     let out = tokio::task::spawn_blocking(move || compute(&req, &limits))
         .await
@@ -39,26 +34,25 @@ pub async fn tail(
 pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse, Problem> {
     let mut errs = Vec::new();
     if req.thresholds.is_empty() {
-        errs.push(Violation::new(
-            "/thresholds",
-            "at least one threshold is required",
-        ));
+        errs.push(Violation::new("/thresholds", "at least one threshold is required"));
     }
     if req.thresholds.len() > limits.max_thresholds {
         errs.push(Violation::new(
             "/thresholds",
-            format!(
-                "{} thresholds exceed the limit of {}",
-                req.thresholds.len(),
-                limits.max_thresholds
-            ),
+            format!("{} thresholds exceed the limit of {}", req.thresholds.len(), limits.max_thresholds),
         ));
     }
+    if let Some(t) = req.tolerance {
+        let (v, field) = match t {
+            engine::select::Tolerance::Absolute(a) => (a, "/tolerance/absolute"),
+            engine::select::Tolerance::Relative(r) => (r, "/tolerance/relative"),
+        };
+        if !(v.is_finite() && v > 0.0) {
+            errs.push(Violation::new(field, format!("must be a finite number > 0, got {v}")));
+        }
+    }
     if req.methods.is_empty() {
-        errs.push(Violation::new(
-            "/methods",
-            "at least one method is required",
-        ));
+        errs.push(Violation::new("/methods", "at least one method is required"));
     }
     let model = build_model(&req.portfolio, "/portfolio", &limits.portfolio);
     let model = match model {
@@ -69,8 +63,8 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
             return Err(Problem::invalid(errs));
         }
     };
-    let work = (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0)
-        * req.thresholds.len() as f64;
+    let work =
+        (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * req.thresholds.len() as f64;
     if work > limits.max_work {
         return Err(Problem::too_large(format!(
             "exposures x thresholds = {work:.0} exceeds the work budget {} (see --max-work); split the request",
@@ -81,7 +75,7 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
     let queries: Vec<(u64, engine::Side)> = req.thresholds.iter().map(|&k| (k, req.side)).collect();
     let mut per_method = Vec::new();
     for id in &req.methods {
-        per_method.push(engine::method(*id).estimate(&prep, &queries));
+        per_method.push(engine::run(*id, &prep, &queries, req.tolerance));
     }
     let results = req
         .thresholds
@@ -90,10 +84,7 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
         .map(|(i, &k)| ThresholdResult {
             threshold: k,
             side: req.side,
-            estimates: per_method
-                .iter()
-                .map(|m| EstimateOut::from(&m[i]))
-                .collect(),
+            estimates: per_method.iter().map(|m| EstimateOut::from(&m[i])).collect(),
         })
         .collect();
     Ok(TailResponse {

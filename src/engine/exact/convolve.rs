@@ -29,22 +29,9 @@ pub fn product(a: &Window, b: &Window) -> Window {
     let fft_cost = FFT_COST_FACTOR * n as f64 * (n as f64).log2().max(1.0);
     let (rel, abs) = Window::after_product(a, b);
     let mut out = if la.min(lb) <= 16 || direct_cost <= fft_cost {
-        let w = direct(
-            &a.w,
-            &b.w,
-            (klo - a.lo - b.lo) as usize,
-            (khi - a.lo - b.lo) as usize,
-        );
+        let w = direct(&a.w, &b.w, (klo - a.lo - b.lo) as usize, (khi - a.lo - b.lo) as usize);
         let g = gamma(la.min(lb) as f64 + 1.0);
-        let mut win = Window {
-            lo: klo,
-            w,
-            rel: compose(rel, g),
-            abs: abs * (1.0 + g),
-            mean,
-            var,
-            max,
-        };
+        let mut win = Window { lo: klo, w, rel: compose(rel, g), abs: abs * (1.0 + g), mean, var, max };
         win.add_underflow_slack(direct_cost);
         win
     } else {
@@ -52,25 +39,13 @@ pub fn product(a: &Window, b: &Window) -> Window {
         let start = (klo - a.lo - b.lo) as usize;
         let end = (khi - a.lo - b.lo) as usize + 1;
         let kept = end - start;
-        let w: Vec<f64> = full.values[start..end]
-            .iter()
-            .map(|&x| x.max(0.0))
-            .collect();
-        Window {
-            lo: klo,
-            w,
-            rel,
-            abs: abs + full.l2_error * (kept as f64).sqrt(),
-            mean,
-            var,
-            max,
-        }
+        let w: Vec<f64> = full.values[start..end].iter().map(|&x| x.max(0.0)).collect();
+        Window { lo: klo, w, rel, abs: abs + full.l2_error * (kept as f64).sqrt(), mean, var, max }
     };
     // Whatever `keep_range` cut away is bounded by Bernstein: account for it.
     let lo_cut = klo > a.lo + b.lo;
     let hi_cut = khi < a.hi() + b.hi();
-    out.abs +=
-        (1.0 + out.rel) * (lo_cut as u8 + hi_cut as u8) as f64 * (-super::window::TRUNC_LN).exp();
+    out.abs += (1.0 + out.rel) * (lo_cut as u8 + hi_cut as u8) as f64 * (-super::window::TRUNC_LN).exp();
     out
 }
 

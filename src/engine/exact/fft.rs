@@ -38,10 +38,8 @@ pub fn convolve(a: &[f64], b: &[f64]) -> FftResult {
     let mut fa = fwd.make_output_vec();
     let mut fb = fwd.make_output_vec();
     let mut scratch = fwd.make_scratch_vec();
-    fwd.process_with_scratch(&mut xa, &mut fa, &mut scratch)
-        .expect("lengths fixed above");
-    fwd.process_with_scratch(&mut xb, &mut fb, &mut scratch)
-        .expect("lengths fixed above");
+    fwd.process_with_scratch(&mut xa, &mut fa, &mut scratch).expect("lengths fixed above");
+    fwd.process_with_scratch(&mut xb, &mut fb, &mut scratch).expect("lengths fixed above");
     for (x, y) in fa.iter_mut().zip(&fb) {
         *x *= *y;
     }
@@ -51,29 +49,21 @@ pub fn convolve(a: &[f64], b: &[f64]) -> FftResult {
     fa[last].im = 0.0;
     let mut out = inv.make_output_vec();
     let mut scratch = inv.make_scratch_vec();
-    inv.process_with_scratch(&mut fa, &mut out, &mut scratch)
-        .expect("lengths fixed above");
+    inv.process_with_scratch(&mut fa, &mut out, &mut scratch).expect("lengths fixed above");
     let scale = 1.0 / n as f64;
     out.truncate(out_len);
     for x in &mut out {
         *x *= scale;
     }
-    let norms = |v: &[f64]| {
-        v.iter()
-            .fold((0.0, 0.0), |(s1, s2), x| (s1 + x.abs(), s2 + x * x))
-    };
+    let norms = |v: &[f64]| v.iter().fold((0.0, 0.0), |(s1, s2), x| (s1 + x.abs(), s2 + x * x));
     let (a1, a2) = norms(a);
     let (b1, b2) = norms(b);
     let (a2, b2) = (a2.sqrt() * (1.0 + 4.0 * U), b2.sqrt() * (1.0 + 4.0 * U));
     let m = (n as f64).log2();
     let eta = 20.0 * U;
     let eps = (m + 2.0) * eta / (1.0 - (m + 2.0) * eta);
-    let l2_error =
-        (eps * (a2 * b1 + a1 * b2) + eps * a1 * b2 + 4.0 * U * a1 * b2) * (1.0 + 2.0 * eps);
-    FftResult {
-        values: out,
-        l2_error,
-    }
+    let l2_error = (eps * (a2 * b1 + a1 * b2) + eps * a1 * b2 + 4.0 * U * a1 * b2) * (1.0 + 2.0 * eps);
+    FftResult { values: out, l2_error }
 }
 
 #[cfg(test)]
@@ -90,17 +80,8 @@ mod tests {
                 let b: Vec<f64> = (0..lb).map(|i| ((i * 104729) % 97) as f64 / 1e4).collect();
                 let d = direct(&a, &b, 0, la + lb - 2);
                 let f = convolve(&a, &b);
-                let err2: f64 = d
-                    .iter()
-                    .zip(&f.values)
-                    .map(|(x, y)| (x - y) * (x - y))
-                    .sum::<f64>()
-                    .sqrt();
-                assert!(
-                    err2 <= f.l2_error,
-                    "la={la} lb={lb} err={err2} bound={}",
-                    f.l2_error
-                );
+                let err2: f64 = d.iter().zip(&f.values).map(|(x, y)| (x - y) * (x - y)).sum::<f64>().sqrt();
+                assert!(err2 <= f.l2_error, "la={la} lb={lb} err={err2} bound={}", f.l2_error);
                 if err2 > 0.0 {
                     worst_ratio = worst_ratio.max(err2 / f.l2_error);
                 }

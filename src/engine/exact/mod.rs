@@ -44,12 +44,7 @@ pub struct ExactValue {
 
 impl ExactValue {
     pub fn certain(p: f64) -> ExactValue {
-        ExactValue {
-            p,
-            ln_p: p.ln(),
-            rel_err: 0.0,
-            abs_err: 0.0,
-        }
+        ExactValue { p, ln_p: p.ln(), rel_err: 0.0, abs_err: 0.0 }
     }
 }
 
@@ -90,11 +85,7 @@ pub struct Tilted {
 /// Build the tilted law at t over its Bernstein window (support shifted by the certain exposures).
 pub fn tilted(model: &Model, t: f64) -> Tilted {
     let c = TiltConsts::new(t);
-    let mut parts: Vec<Window> = model
-        .bernoulli
-        .chunks(leaf::BLOCK)
-        .map(|ch| leaf::bernoulli_block(ch, &c))
-        .collect();
+    let mut parts: Vec<Window> = model.bernoulli.chunks(leaf::BLOCK).map(|ch| leaf::bernoulli_block(ch, &c)).collect();
     for b in &model.binomials {
         parts.push(leaf::binomial(b.size, b.p, &c));
     }
@@ -105,70 +96,44 @@ pub fn tilted(model: &Model, t: f64) -> Tilted {
     window.lo += model.shift;
     window.mean += model.shift as f64;
     window.max = window.max.map(|m| m + model.shift);
-    Tilted {
-        t,
-        var: window.var,
-        window,
-        scale: cgf::scale(model, t),
+    Tilted { t, var: window.var, window, scale: cgf::scale(model, t) }
+}
+
+/// The exact method as a [`super::TailMethod`].
+pub struct Exact;
+
+/// The answer when the threshold is outside the support or the law is degenerate: exactly 0 or 1.
+pub fn trivial(model: &Model, k: u64, side: Side) -> Option<f64> {
+    let min = model.support_min();
+    let max = model.support_max();
+    let above_max = max.is_some_and(|m| k > m);
+    match side {
+        Side::Upper if k <= min => Some(1.0),
+        Side::Upper if above_max => Some(0.0),
+        Side::Lower if k < min => Some(0.0),
+        Side::Lower if max.is_some_and(|m| k >= m) => Some(1.0),
+        Side::Point if k < min || above_max => Some(0.0),
+        Side::Point if model.is_degenerate() => Some(1.0),
+        _ => None,
     }
 }
 
 /// Exact values for each (threshold, side), in the order given.
-pub fn evaluate(
-    model: &Model,
-    moments: &Moments,
-    queries: &[(u64, Side)],
-) -> (Vec<ExactValue>, Work) {
+pub fn evaluate(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (Vec<ExactValue>, Work) {
     let mut out = vec![ExactValue::certain(0.0); queries.len()];
     let mut jobs = Vec::new();
-    let min = model.support_min();
-    let max = model.support_max();
     let mean = moments.mean;
     for (idx, &(k, side)) in queries.iter().enumerate() {
-        let above_max = max.is_some_and(|m| k > m);
-        let trivial = match side {
-            Side::Upper if k <= min => Some(1.0),
-            Side::Upper if above_max => Some(0.0),
-            Side::Lower if k < min => Some(0.0),
-            Side::Lower if max.is_some_and(|m| k >= m) => Some(1.0),
-            Side::Point if k < min || above_max => Some(0.0),
-            Side::Point if model.is_degenerate() => Some(1.0),
-            _ => None,
-        };
-        if let Some(p) = trivial {
+        if let Some(p) = trivial(model, k, side) {
             out[idx] = ExactValue::certain(p);
             continue;
         }
         let kf = k as f64;
         let job = match side {
-            Side::Upper if kf > mean => Job {
-                idx,
-                target: k,
-                dir: Dir::Up,
-                point: false,
-                complement: false,
-            },
-            Side::Upper => Job {
-                idx,
-                target: k - 1,
-                dir: Dir::Down,
-                point: false,
-                complement: true,
-            },
-            Side::Lower if kf < mean => Job {
-                idx,
-                target: k,
-                dir: Dir::Down,
-                point: false,
-                complement: false,
-            },
-            Side::Lower => Job {
-                idx,
-                target: k + 1,
-                dir: Dir::Up,
-                point: false,
-                complement: true,
-            },
+            Side::Upper if kf > mean => Job { idx, target: k, dir: Dir::Up, point: false, complement: false },
+            Side::Upper => Job { idx, target: k - 1, dir: Dir::Down, point: false, complement: true },
+            Side::Lower if kf < mean => Job { idx, target: k, dir: Dir::Down, point: false, complement: false },
+            Side::Lower => Job { idx, target: k + 1, dir: Dir::Up, point: false, complement: true },
             Side::Point => Job {
                 idx,
                 target: k,
@@ -196,11 +161,7 @@ pub fn evaluate(
                 j += 1;
             }
             let last = js[j - 1].target;
-            let t = if last == first {
-                t0
-            } else {
-                solve_tilt(model, mean, 0.5 * (first + last) as f64, dir)
-            };
+            let t = if last == first { t0 } else { solve_tilt(model, mean, 0.5 * (first + last) as f64, dir) };
             let law = tilted(model, t);
             work.tilts += 1;
             work.max_window = work.max_window.max(law.window.w.len());
@@ -267,11 +228,7 @@ fn tail_from(law: &Tilted, job: &Job) -> ExactValue {
             Dir::Down => {
                 if x >= lo {
                     let end = x.min(hi);
-                    let mut wt = if end < x {
-                        rho.powf((x - end) as f64)
-                    } else {
-                        1.0
-                    };
+                    let mut wt = if end < x { rho.powf((x - end) as f64) } else { 1.0 };
                     let mut d = (x - end) as f64;
                     let mut j = end;
                     loop {
@@ -298,66 +255,35 @@ fn tail_from(law: &Tilted, job: &Job) -> ExactValue {
     let p = (1.0 - tail.p).max(0.0);
     let ln_p = log1m_exp(tail.ln_p);
     let abs_err = up(tail.abs_err + U * p);
-    ExactValue {
-        p,
-        ln_p,
-        rel_err: if p > 0.0 {
-            up(abs_err / p)
-        } else {
-            f64::INFINITY
-        },
-        abs_err,
-    }
+    ExactValue { p, ln_p, rel_err: if p > 0.0 { up(abs_err / p) } else { f64::INFINITY }, abs_err }
 }
 
 /// ln P = K(t) - t x + ln T, and its error bound.
-fn finish(
-    law: &Tilted,
-    x: u64,
-    sum: f64,
-    dsum: f64,
-    terms: usize,
-    rel: f64,
-    abs: f64,
-) -> ExactValue {
-    let (ln_scale, scale_err) = law.scale.ln_scale(law.t, x as f64);
+fn finish(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f64, abs: f64) -> ExactValue {
+    let (ln_scale, ln_scale_lo, scale_err) = law.scale.ln_scale_dd(law.t, x as f64);
     if sum <= 0.0 {
         // Nothing in the window: the truth is at most the window's absolute error, scaled back.
         let bound = abs.max(f64::MIN_POSITIVE);
         let ln_bound = ln_scale + bound.ln();
-        return ExactValue {
-            p: 0.0,
-            ln_p: f64::NEG_INFINITY,
-            rel_err: f64::INFINITY,
-            abs_err: up(ln_bound.exp()),
-        };
+        return ExactValue { p: 0.0, ln_p: f64::NEG_INFINITY, rel_err: f64::INFINITY, abs_err: up(ln_bound.exp()) };
     }
     let dbar = dsum / sum;
     let sum_rel = gamma(terms as f64 + 1.0) + gamma(2.0 * dbar + 2.0);
     // |T^ - T| <= rel T + abs + sum_rel T^, with T <= (T^ + abs) / (1 - rel).
     let t_upper = (sum + abs) / (1.0 - rel);
     let e_t = rel * t_upper + abs + sum_rel * sum;
-    let delta_t = if e_t < sum {
-        -(-e_t / sum).ln_1p()
-    } else {
-        f64::INFINITY
-    };
+    let delta_t = if e_t < sum { -(-e_t / sum).ln_1p() } else { f64::INFINITY };
     let ln_t = sum.ln();
-    let ln_p = ln_scale + ln_t;
-    // Rounding of ln_scale (its own bound) and of ln T and the final addition (1 ulp each).
-    let delta_ln = scale_err + 2.0 * U * ln_t.abs() + U * ln_p.abs();
+    let ln_p = ln_scale + (ln_scale_lo + ln_t);
+    // The probability from exp(hi) * (1 + lo) * T: no ulp of a large logarithm is lost in the exponential.
+    let direct = ln_scale.exp() * (1.0 + ln_scale_lo) * sum;
+    let use_direct = ln_scale > -700.0 && direct.is_normal();
+    // Rounding of ln_scale (its own bound), of ln T, of the exponential and products (a few ulps), and of the
+    // returned logarithm where the probability comes from it.
+    let delta_ln = scale_err + 2.0 * U * ln_t.abs() + if use_direct { 6.0 * U } else { 2.0 * U * ln_p.abs() + 2.0 * U };
     let rel_err = up(((delta_t + delta_ln) * (1.0 + 1e-6)).exp_m1() * 1.01);
-    let p = ln_p.min(0.0).exp();
+    let p = if use_direct { direct.min(1.0) } else { ln_p.min(0.0).exp() };
     let ln_p = ln_p.min(0.0);
-    let abs_err = if rel_err.is_finite() {
-        up(p * rel_err)
-    } else {
-        1.0
-    };
-    ExactValue {
-        p,
-        ln_p,
-        rel_err,
-        abs_err,
-    }
+    let abs_err = if rel_err.is_finite() { up(p * rel_err) } else { 1.0 };
+    ExactValue { p, ln_p, rel_err, abs_err }
 }

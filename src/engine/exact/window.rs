@@ -34,15 +34,7 @@ impl Window {
     }
 
     pub fn point() -> Window {
-        Window {
-            lo: 0,
-            w: vec![1.0],
-            rel: 0.0,
-            abs: 0.0,
-            mean: 0.0,
-            var: 0.0,
-            max: Some(0),
-        }
+        Window { lo: 0, w: vec![1.0], rel: 0.0, abs: 0.0, mean: 0.0, var: 0.0, max: Some(0) }
     }
 
     /// Errors of the product of two windows before the rounding of the product itself.
