@@ -15,7 +15,8 @@
 
 use std::time::Instant;
 
-use tailtally::engine::exact::{self, ExactValue};
+use tailtally::engine::exact::window::Window;
+use tailtally::engine::exact::{self, convolve, leaf, ExactValue};
 use tailtally::engine::moments::Moments;
 use tailtally::engine::{cgf, Side};
 use tailtally::portfolio::Model;
@@ -131,12 +132,7 @@ fn main() {
             let med = median(&mut times);
             // Cross-check: the same tail summed from the untilted pmf (accurate only to ~1e-16 absolute, i.e.
             // relative 1e-16 / p, and with no tilt it cannot reach far tails; the `tail` mode is the real answer).
-            let tail: f64 =
-                w.w.iter()
-                    .enumerate()
-                    .filter(|(i, _)| w.lo + *i as u64 >= k)
-                    .map(|(_, x)| x)
-                    .sum();
+            let tail: f64 = w.w.iter().enumerate().filter(|(i, _)| w.lo + *i as u64 >= k).map(|(_, x)| x).sum();
             let total: f64 = w.w.iter().sum();
             println!(
                 "{{\"mode\":\"full\",\"n\":{n},\"k\":{k},\"median_ms\":{},\"min_ms\":{},\"ln_p\":{},\"p\":{},\
@@ -200,10 +196,11 @@ fn main() {
                 t_used = t;
                 window = law.window.w.len();
             }
+            let tree = merge_breakdown(&model, t_used, repeats);
             println!(
                 "{{\"mode\":\"phases\",\"n\":{n},\"k\":{k},\"t\":{},\"window\":{window},\"min_ms\":{{\"moments\":{},\
                  \"solve_tilt\":{},\"eval_var\":{},\"tilted_total\":{},\"of_which_scale\":{},\"cgf_eval\":{},\
-                 \"evaluate_total\":{}}},\"repeats\":{repeats}}}",
+                 \"evaluate_total\":{}}},\"tree\":{tree},\"repeats\":{repeats}}}",
                 num(t_used),
                 num(best[0]),
                 num(best[1]),
@@ -216,4 +213,73 @@ fn main() {
         }
         _ => usage(),
     }
+}
+
+/// Inside `exact::tilted`: the leaves, then the products, redone with the public pieces in the same order as
+/// `convolve::product_all` (always merge the two shortest). Each product is attributed to direct convolution or
+/// FFT by the same cost rule `convolve::product` applies. Best of `repeats` for the totals; the per-method split
+/// and counts come from the last run. Returns a JSON object.
+fn merge_breakdown(model: &Model, t: f64, repeats: usize) -> String {
+    use std::cmp::Reverse;
+    use std::collections::BinaryHeap;
+    let c = tailtally::engine::cgf::TiltConsts::new(t);
+    let (mut best_leaves, mut best_products) = (f64::INFINITY, f64::INFINITY);
+    let mut split = (0.0, 0usize, 0.0, 0usize, 0.0f64); // direct ms, count, fft ms, count, largest direct cost
+    for _ in 0..repeats {
+        let s = Instant::now();
+        let parts: Vec<Window> = model.bernoulli.chunks(leaf::BLOCK).map(|ch| leaf::bernoulli_block(ch, &c)).collect();
+        best_leaves = best_leaves.min(ms(s.elapsed()));
+
+        let mut heap: BinaryHeap<Reverse<(usize, usize)>> = BinaryHeap::new();
+        let mut slots: Vec<Option<Window>> = Vec::with_capacity(parts.len() * 2);
+        for w in parts {
+            heap.push(Reverse((w.w.len(), slots.len())));
+            slots.push(Some(w));
+        }
+        let mut cur = (0.0, 0usize, 0.0, 0usize, 0.0f64);
+        let s_all = Instant::now();
+        while heap.len() > 1 {
+            let Reverse((_, i)) = heap.pop().unwrap();
+            let Reverse((_, j)) = heap.pop().unwrap();
+            let a = slots[i].take().unwrap();
+            let b = slots[j].take().unwrap();
+            let (la, lb) = (a.w.len(), b.w.len());
+            let max = match (a.max, b.max) {
+                (Some(x), Some(y)) => Some(x + y),
+                _ => None,
+            };
+            let (klo, khi) = Window::keep_range(a.mean + b.mean, a.var + b.var, a.lo + b.lo, max);
+            let klo = klo.max(a.lo + b.lo);
+            let khi = khi.min(a.hi() + b.hi()).max(klo);
+            let nfft = (la + lb - 1).next_power_of_two() as f64;
+            let direct_cost = la.min(lb) as f64 * (khi - klo + 1) as f64;
+            let is_direct = la.min(lb) <= 16 || direct_cost <= 3.0 * nfft * nfft.log2().max(1.0);
+            let s = Instant::now();
+            let prod = convolve::product(&a, &b);
+            let dt = ms(s.elapsed());
+            if is_direct {
+                cur.0 += dt;
+                cur.1 += 1;
+                cur.4 = cur.4.max(direct_cost);
+            } else {
+                cur.2 += dt;
+                cur.3 += 1;
+            }
+            heap.push(Reverse((prod.w.len(), slots.len())));
+            slots.push(Some(prod));
+        }
+        best_products = best_products.min(ms(s_all.elapsed()));
+        split = cur;
+    }
+    format!(
+        "{{\"leaves_ms\":{},\"products_ms\":{},\"direct_ms\":{},\"direct_count\":{},\"largest_direct_cost\":{},\
+         \"fft_ms\":{},\"fft_count\":{}}}",
+        num(best_leaves),
+        num(best_products),
+        num(split.0),
+        split.1,
+        num(split.4),
+        num(split.2),
+        split.3
+    )
 }

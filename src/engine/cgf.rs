@@ -68,13 +68,7 @@ pub struct Tilt {
 /// accurate relative to ln P itself, even when t k is in the thousands.
 #[inline]
 pub fn tilt(p: f64, c: &TiltConsts) -> Tilt {
-    let (q, r) = if c.t > 0.0 {
-        let d = p + (1.0 - p) * c.emt; // M e^-t
-        (p / d, (1.0 - p) * c.emt / d)
-    } else {
-        let d = (1.0 - p) + p * c.et; // M
-        (p * c.et / d, (1.0 - p) / d)
-    };
+    let (q, r) = tilt_qr(p, c);
     let b = q > r;
     let phi = if !b {
         // ln M, with M = (1 - p) + p e^t in [1 - p, 2].
@@ -94,6 +88,18 @@ pub fn tilt(p: f64, c: &TiltConsts) -> Tilt {
         }
     };
     Tilt { q, r, b, phi }
+}
+
+/// Only (q, 1 - q) of [`tilt`], for the hot loops that do not need phi.
+#[inline]
+pub fn tilt_qr(p: f64, c: &TiltConsts) -> (f64, f64) {
+    if c.t > 0.0 {
+        let d = p + (1.0 - p) * c.emt; // M e^-t
+        (p / d, (1.0 - p) * c.emt / d)
+    } else {
+        let d = (1.0 - p) + p * c.et; // M
+        (p * c.et / d, (1.0 - p) / d)
+    }
 }
 
 /// Relative error bound of each of q, 1 - q from `tilt` (libm at 1 ulp plus the roundings of the formula).
@@ -161,7 +167,7 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
     let c = TiltConsts::new(t);
     let (mut k1, mut k2, mut k3, mut k4) = (0.0, 0.0, 0.0, 0.0);
     let mut add = |m: f64, p: f64| {
-        let Tilt { q, r, .. } = tilt(p, &c);
+        let (q, r) = tilt_qr(p, &c);
         let v = q * r;
         k1 += m * q;
         k2 += m * v;
@@ -192,12 +198,12 @@ fn k1_k2(model: &Model, t: f64) -> (f64, f64) {
     let c = TiltConsts::new(t);
     let (mut k1, mut k2) = (model.shift as f64, 0.0);
     for &p in &model.bernoulli {
-        let Tilt { q, r, .. } = tilt(p, &c);
+        let (q, r) = tilt_qr(p, &c);
         k1 += q;
         k2 += q * r;
     }
     for b in &model.binomials {
-        let Tilt { q, r, .. } = tilt(b.p, &c);
+        let (q, r) = tilt_qr(b.p, &c);
         k1 += b.size as f64 * q;
         k2 += b.size as f64 * q * r;
     }

@@ -7,7 +7,7 @@
 //! distance from the mode.
 
 use super::window::Window;
-use crate::engine::cgf::{tilt, Tilt, TiltConsts, TILT_REL};
+use crate::engine::cgf::{tilt_qr, TiltConsts, TILT_REL};
 use crate::engine::float::{compose, gamma, U};
 
 /// Exposures per Bernoulli leaf block. Small enough that the recursion's quadratic cost is negligible, large
@@ -22,7 +22,7 @@ pub fn bernoulli_block(ps: &[f64], c: &TiltConsts) -> Window {
     w.push(1.0);
     let (mut mean, mut var) = (0.0, 0.0);
     for &p in ps {
-        let Tilt { q, r, .. } = tilt(p, c);
+        let (q, r) = tilt_qr(p, c);
         mean += q;
         var += q * r;
         w.push(0.0);
@@ -40,7 +40,7 @@ pub fn bernoulli_block(ps: &[f64], c: &TiltConsts) -> Window {
 
 /// Tilted Binomial(m, p) = Binomial(m, q) over its Bernstein window.
 pub fn binomial(m: u64, p: f64, c: &TiltConsts) -> Window {
-    let Tilt { q, r, .. } = tilt(p, c);
+    let (q, r) = tilt_qr(p, c);
     if q == 0.0 || r == 0.0 {
         // The tilt pushed the whole part to one end of its support in f64; what is left is below 2^-1074 each.
         return degenerate(if q == 0.0 { 0 } else { m }, Some(m), m as f64);
