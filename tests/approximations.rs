@@ -135,7 +135,7 @@ fn auto_meets_its_tolerance() {
                     Tolerance::Relative(r) => err <= r * x.probability + x.error_bound,
                 };
                 assert!(ok, "{tol:?}: {:?} err {err:e}", a.method);
-                assert!(a.selection.as_ref().unwrap().checked.len() >= 1);
+                assert!(!a.selection.as_ref().unwrap().checked.is_empty());
             }
         }
     }

@@ -60,7 +60,7 @@ fn ln_rat(x: &BigRational) -> f64 {
         return f64::NEG_INFINITY;
     }
     const LN2_HI: f64 = std::f64::consts::LN_2;
-    const LN2_LO: f64 = 2.319046813846299558e-17;
+    const LN2_LO: f64 = 2.319_046_813_846_299_6e-17;
     let (a, ea) = split(x.numer());
     let (b, eb) = split(x.denom());
     let e = (ea - eb) as f64;

@@ -145,7 +145,7 @@ fn ln_big(x: &num_bigint::BigUint) -> f64 {
     let top = (x >> shift).to_f64().unwrap();
     let e = shift as f64;
     let hi = e * std::f64::consts::LN_2;
-    let lo = e.mul_add(std::f64::consts::LN_2, -hi) + e * 2.319046813846299558e-17;
+    let lo = e.mul_add(std::f64::consts::LN_2, -hi) + e * 2.319_046_813_846_299_6e-17;
     hi + (lo + top.ln())
 }
 
