@@ -104,6 +104,11 @@ async fn bad_inputs_get_problem_details_pointing_at_the_field() {
             "/portfolio/families/0/kind",
         ),
         (json!({"portfolio": {"probabilities": [0.1]}, "thresholds": [1], "extra": true}), 422, ""),
+        (
+            json!({"portfolio": {"poisson_rates": [1e-9]}, "thresholds": [5, 18446744073709551615u64]}),
+            422,
+            "/thresholds/1",
+        ),
     ];
     for (body, want, ptr) in cases {
         let (status, ct, v) = s.post_json("/v1/tail", &body).await;

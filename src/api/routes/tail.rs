@@ -30,6 +30,9 @@ pub async fn tail(State(state): State<AppState>, Body(req): Body<TailRequest>) -
     Ok(Json(out))
 }
 
+/// Largest threshold for an unbounded (Poisson) portfolio: its tilted window then holds about 10^6 counts.
+pub const MAX_POISSON_THRESHOLD: u64 = 1_000_000_000;
+
 /// The whole computation, synchronous and free of HTTP (also used by the command line).
 pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse, Problem> {
     let mut errs = Vec::new();
@@ -63,6 +66,26 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
             return Err(Problem::invalid(errs));
         }
     };
+    // With a Poisson part the support is unbounded and the exact engine's window grows like sqrt(k): refuse
+    // thresholds whose windows would not fit in memory rather than exhaust it.
+    if model.poisson > 0.0 {
+        let bad: Vec<Violation> = req
+            .thresholds
+            .iter()
+            .enumerate()
+            .filter(|(_, &k)| k > MAX_POISSON_THRESHOLD)
+            .take(20)
+            .map(|(i, &k)| {
+                Violation::new(
+                    format!("/thresholds/{i}"),
+                    format!("{k} exceeds {MAX_POISSON_THRESHOLD}, the largest threshold served with a Poisson part"),
+                )
+            })
+            .collect();
+        if !bad.is_empty() {
+            return Err(Problem::invalid(bad));
+        }
+    }
     let work =
         (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * req.thresholds.len() as f64;
     if work > limits.max_work {
