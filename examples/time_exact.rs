@@ -164,8 +164,8 @@ fn main() {
                 let t0 = ms(s.elapsed());
 
                 let s = Instant::now();
-                let sd = cgf::eval_var(&model, 0.0).sqrt().max(1.0);
-                let t = cgf::solve(&model, k as f64, 0.05 * sd.min(10.0)).max(0.0);
+                let sd = mom.sd().max(1.0);
+                let t = cgf::solve(&model, &mom, k as f64, 0.05 * sd.min(10.0)).max(0.0);
                 let t1 = ms(s.elapsed());
 
                 let s = Instant::now();
@@ -188,7 +188,7 @@ fn main() {
                 let s = Instant::now();
                 let (vals, _) = exact::evaluate(&model, &mom, &[(k, Side::Upper)]);
                 let t6 = ms(s.elapsed());
-                std::hint::black_box((vals, v, sc.phi, cv.k0));
+                std::hint::black_box((vals, v, sc.phi, cv.k4));
 
                 for (b, x) in best.iter_mut().zip([t0, t1, t2, t3, t4, t5, t6]) {
                     *b = b.min(x);

@@ -6,23 +6,22 @@
 //! for any t in [-T_MAX, T_MAX] and probabilities near 0 or 1 keep their relative accuracy.
 
 use super::float::Sum;
+use super::moments::Moments;
 use crate::portfolio::Model;
 
 /// Largest |t| the solver uses. exp(-745) is the smallest double: beyond this the tilted law of any exposure is
 /// already degenerate in f64.
 pub const T_MAX: f64 = 740.0;
 
-/// K and its first four derivatives at one t.
+/// The first four derivatives of K at one t. K itself comes from [`scale`], which is a pass of its own because
+/// it needs a logarithm per exposure.
 #[derive(Debug, Clone, Copy, Default)]
 pub struct CgfValue {
     pub t: f64,
-    pub k0: f64,
     pub k1: f64,
     pub k2: f64,
     pub k3: f64,
     pub k4: f64,
-    /// Bound on |k0 - K(t)| from rounding.
-    pub k0_err: f64,
 }
 
 /// Quantities of t computed once per tilt and shared by every exposure.
@@ -183,9 +182,7 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
     let lam = model.poisson;
     let extra = if lam > 0.0 { lam * c.et } else { 0.0 };
     let shift = model.shift as f64;
-    let sc = scale(model, t);
-    let (k0, k0_err) = sc.ln_scale(t, 0.0);
-    CgfValue { t, k0, k1: k1 + extra + shift, k2: k2 + extra, k3: k3 + extra, k4: k4 + extra, k0_err }
+    CgfValue { t, k1: k1 + extra + shift, k2: k2 + extra, k3: k3 + extra, k4: k4 + extra }
 }
 
 /// Variance of the tilted law, K''(t).
@@ -217,9 +214,10 @@ fn k1_k2(model: &Model, t: f64) -> (f64, f64) {
 
 /// Solve K'(t) = x by Newton's method safeguarded with bisection, so it converges for every x strictly inside
 /// the support's range: p near 0 or 1, x at the edge of the support, huge n. `tol` is the accepted
-/// |K'(t) - x|. Returns t clamped to [-T_MAX, T_MAX] when x is beyond what f64 can tilt to.
-pub fn solve(model: &Model, x: f64, tol: f64) -> f64 {
-    let (m0, v0) = k1_k2(model, 0.0);
+/// |K'(t) - x|. Returns t clamped to [-T_MAX, T_MAX] when x is beyond what f64 can tilt to. K'(0) and K''(0)
+/// are the mean and variance, taken from `moments` rather than from another pass over the exposures.
+pub fn solve(model: &Model, moments: &Moments, x: f64, tol: f64) -> f64 {
+    let (m0, v0) = (moments.mean, moments.variance);
     if (m0 - x).abs() <= tol || v0 <= 0.0 {
         return 0.0;
     }
@@ -287,16 +285,17 @@ mod tests {
         let t = 0.7f64;
         let q = 0.3 * t.exp() / (0.7 + 0.3 * t.exp());
         let c = eval(&m, t);
+        let (k0, _) = scale(&m, t).ln_scale(t, 0.0);
         assert!((c.k1 - 40.0 * q).abs() < 1e-12);
         assert!((c.k2 - 40.0 * q * (1.0 - q)).abs() < 1e-12);
-        assert!((c.k0 - 40.0 * (0.7 + 0.3 * t.exp()).ln()).abs() < 1e-12);
+        assert!((k0 - 40.0 * (0.7 + 0.3 * t.exp()).ln()).abs() < 1e-12);
     }
 
     #[test]
     fn solver_reaches_edges() {
         let m = Model::from_parts(&[1e-12, 0.5, 0.999999], &[], 0.0);
         for x in [0.001, 1.0, 2.5, 2.9999] {
-            let t = solve(&m, x, 1e-10);
+            let t = solve(&m, &Moments::of(&m), x, 1e-10);
             assert!((eval(&m, t).k1 - x).abs() < 1e-8, "x = {x}");
         }
     }

@@ -151,7 +151,7 @@ pub fn evaluate(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (V
         let mut i = 0;
         while i < js.len() {
             let first = js[i].target;
-            let t0 = solve_tilt(model, mean, first as f64, dir);
+            let t0 = solve_tilt(model, moments, first as f64, dir);
             let sd0 = cgf::eval_var(model, t0).sqrt();
             // Thresholds within 1.5 tilted sd share one tilted law: the tail sum there is still >= 5% of the
             // tilted mass, so the absolute errors of the FFT stay relative errors of the same order.
@@ -161,7 +161,7 @@ pub fn evaluate(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (V
                 j += 1;
             }
             let last = js[j - 1].target;
-            let t = if last == first { t0 } else { solve_tilt(model, mean, 0.5 * (first + last) as f64, dir) };
+            let t = if last == first { t0 } else { solve_tilt(model, moments, 0.5 * (first + last) as f64, dir) };
             let law = tilted(model, t);
             work.tilts += 1;
             work.max_window = work.max_window.max(law.window.w.len());
@@ -174,15 +174,16 @@ pub fn evaluate(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (V
     (out, work)
 }
 
-fn solve_tilt(model: &Model, mean: f64, x: f64, dir: Dir) -> f64 {
+fn solve_tilt(model: &Model, moments: &Moments, x: f64, dir: Dir) -> f64 {
+    let mean = moments.mean;
     let lo = model.support_min() as f64 + 0.5;
     let x = match model.support_max() {
         Some(m) if (m as f64) - 0.5 > lo => x.clamp(lo, m as f64 - 0.5),
         _ => x.max(lo.min(mean)),
     };
     // Any t gives exact results; t only steers accuracy, so a coarse solution is enough.
-    let sd = cgf::eval_var(model, 0.0).sqrt().max(1.0);
-    let t = cgf::solve(model, x, 0.05 * sd.min(10.0));
+    let sd = moments.sd().max(1.0);
+    let t = cgf::solve(model, moments, x, 0.05 * sd.min(10.0));
     match dir {
         Dir::Up => t.max(0.0),
         Dir::Down => t.min(0.0),
