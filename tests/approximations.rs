@@ -140,3 +140,17 @@ fn auto_meets_its_tolerance() {
         }
     }
 }
+
+/// Beyond the support every method answers from the support itself: exactly 0 or 1, with no error. (The Poisson
+/// approximation once computed a Poisson tail at k = 2^64 - 1 here and tried to allocate its window.)
+#[test]
+fn thresholds_beyond_a_bounded_support_are_exact_for_every_method() {
+    let model = Model::from_parts(&[0.1, 0.2, 0.3], &[], 0.0);
+    let prep = Prepared::new(&model);
+    let qs = [(u64::MAX, Side::Upper), (u64::MAX, Side::Point), (u64::MAX, Side::Lower), (4, Side::Upper)];
+    for id in [MethodId::Poisson, MethodId::Saddlepoint, MethodId::Auto] {
+        let got: Vec<(f64, f64)> =
+            engine::run(id, &prep, &qs, None).iter().map(|e| (e.probability, e.error_bound)).collect();
+        assert_eq!(got, vec![(0.0, 0.0), (0.0, 0.0), (1.0, 0.0), (0.0, 0.0)], "{id:?}");
+    }
+}

@@ -34,19 +34,25 @@ impl TailMethod for PoissonApprox {
         let lam = if lam < 1e-200 { 0.0 } else { lam };
         let approx =
             Model { shift: prep.model.shift, poisson: lam, exposures: prep.model.exposures, ..Model::default() };
-        let (vals, _) = exact::evaluate(&approx, &Moments::of(&approx), queries);
+        // Where the portfolio's own support already decides the answer (exactly 0 or 1) the approximation has
+        // nothing to add; elsewhere the Poisson law is evaluated by the exact engine.
+        let known: Vec<Option<f64>> = queries.iter().map(|&(k, side)| exact::trivial(prep.model, k, side)).collect();
+        let open: Vec<(u64, Side)> = queries.iter().zip(&known).filter(|(_, t)| t.is_none()).map(|(q, _)| *q).collect();
+        let (vals, _) = exact::evaluate(&approx, &Moments::of(&approx), &open);
+        let mut vals = vals.into_iter();
         let bound = PoissonApprox::bound(prep);
         let per = start.elapsed().as_secs_f64() * 1e6 / queries.len().max(1) as f64;
-        vals.iter()
-            .map(|v| {
-                let mut e = Estimate::new(
-                    MethodId::Poisson,
-                    v.p,
-                    v.ln_p,
-                    (bound + v.abs_err).min(1.0),
-                    BoundKind::Rigorous,
-                    start,
-                );
+        known
+            .iter()
+            .map(|t| {
+                let (p, ln_p, err) = match t {
+                    Some(p) => (*p, p.ln(), 0.0),
+                    None => {
+                        let v = vals.next().expect("one value per open query");
+                        (v.p, v.ln_p, (bound + v.abs_err).min(1.0))
+                    }
+                };
+                let mut e = Estimate::new(MethodId::Poisson, p, ln_p, err, BoundKind::Rigorous, start);
                 e.elapsed_us = per;
                 e
             })
