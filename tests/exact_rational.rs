@@ -2,6 +2,9 @@
 //! arithmetic (num-rational's BigRational, a general-purpose library) from the same f64 inputs, which are
 //! dyadic rationals and so convert without loss.
 
+#[path = "common/bignum.rs"]
+mod bignum;
+
 use num_bigint::BigInt;
 use num_rational::BigRational;
 use num_traits::{One, Signed, ToPrimitive, Zero};
@@ -48,25 +51,12 @@ fn exact_pmf(model: &Model) -> Vec<BigRational> {
     out
 }
 
-/// (top 60 bits as f64, binary exponent) of a positive integer.
-fn split(x: &BigInt) -> (f64, i64) {
-    let shift = x.bits().saturating_sub(60);
-    ((x >> shift).to_f64().unwrap(), shift as i64)
-}
-
-/// ln of a positive rational, with ln 2 in double-double so that values like e^-5000 keep full accuracy.
+/// ln of a positive rational (-inf for 0).
 fn ln_rat(x: &BigRational) -> f64 {
     if x.is_zero() {
         return f64::NEG_INFINITY;
     }
-    const LN2_HI: f64 = std::f64::consts::LN_2;
-    const LN2_LO: f64 = 2.319_046_813_846_299_6e-17;
-    let (a, ea) = split(x.numer());
-    let (b, eb) = split(x.denom());
-    let e = (ea - eb) as f64;
-    let hi = e * LN2_HI;
-    let lo = e.mul_add(LN2_HI, -hi) + e * LN2_LO;
-    hi + (lo + (a / b).ln())
+    bignum::ln_ratio(x.numer().magnitude(), x.denom().magnitude())
 }
 
 fn random_model(rng: &mut ChaCha8Rng) -> Model {
