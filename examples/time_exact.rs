@@ -165,7 +165,7 @@ fn main() {
 
                 let s = Instant::now();
                 let sd = mom.sd().max(1.0);
-                let t = cgf::solve(&model, &mom, k as f64, 0.05 * sd.min(10.0)).max(0.0);
+                let t = cgf::solve(&model, &mom, k as f64, 0.05 * sd.min(10.0)).t.max(0.0);
                 let t1 = ms(s.elapsed());
 
                 let s = Instant::now();

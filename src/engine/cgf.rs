@@ -144,8 +144,60 @@ pub fn scale(model: &Model, t: f64) -> Scale {
         abs += x.phi.abs();
         b += x.b as u8 as f64;
     }
+    // Each phi is within ~6 ulps of itself (see `tilt`).
+    let err = 8.0 * super::float::U * abs;
+    finish_scale(model, &c, phi, err, b)
+}
+
+/// Factors per block of [`scale_by_products`], in lanes of 4 independent products.
+const PRODUCT_BLOCK: usize = 16;
+
+/// [`scale`] with one logarithm per 16 exposures instead of one per exposure: the logarithm of a product of
+/// the factors M_i e^(-b_i t) in (0, 2]. It is the hot loop of the saddlepoint method, where it is ~5 times
+/// faster, and it is accurate to O(n U) absolutely instead of O(U sum |phi_i|): the bound reported covers it.
+/// Each factor carries at most 4 roundings relative to itself (e^t's 1 ulp included: both of its terms are
+/// non-negative) and each product one more, so ln of a block's product is within 5 PRODUCT_BLOCK U of the
+/// exact sum of the logarithms, plus the logarithm's own ulp; the bound takes 6 PRODUCT_BLOCK U + 2 U |ln|. A block whose product
+/// leaves the normal range (tiny factors, or e^t overflowing on a factor that is not selected) is redone with
+/// a logarithm per exposure.
+pub fn scale_by_products(model: &Model, t: f64) -> Scale {
+    use super::float::U;
+    let c = TiltConsts::new(t);
+    let (mut phi, mut err, mut b) = (Sum::default(), 0.0, model.shift as f64);
+    let pos = t > 0.0;
+    for block in model.bernoulli.chunks(PRODUCT_BLOCK) {
+        let mut prod = [1.0f64; 4];
+        let mut ones = 0.0;
+        for (i, &p) in block.iter().enumerate() {
+            // b (the tilted exposure more likely 1 than 0) compares p e^t with 1 - p, written without overflow.
+            let big = if pos { p > (1.0 - p) * c.emt } else { p * c.et > 1.0 - p };
+            let f = if big { p + (1.0 - p) * c.emt } else { (1.0 - p) + p * c.et };
+            prod[i % 4] *= f;
+            ones += big as u8 as f64;
+        }
+        let v = (prod[0] * prod[1]) * (prod[2] * prod[3]);
+        if v.is_finite() && v > 1e-280 {
+            let l = v.ln();
+            phi.add(l);
+            err += 6.0 * PRODUCT_BLOCK as f64 * U + 2.0 * U * l.abs();
+            b += ones;
+        } else {
+            for &p in block {
+                let x = tilt(p, &c);
+                phi.add(x.phi);
+                err += 8.0 * U * x.phi.abs();
+                b += x.b as u8 as f64;
+            }
+        }
+    }
+    finish_scale(model, &c, phi, err, b)
+}
+
+/// The binomial and Poisson parts of [`scale`], shared by both ways of summing the Bernoulli part.
+fn finish_scale(model: &Model, c: &TiltConsts, mut phi: Sum, mut err: f64, mut b: f64) -> Scale {
+    let mut abs = 0.0;
     for g in &model.binomials {
-        let x = tilt(g.p, &c);
+        let x = tilt(g.p, c);
         let m = g.size as f64;
         phi.add(m * x.phi);
         abs += m * x.phi.abs();
@@ -156,24 +208,47 @@ pub fn scale(model: &Model, t: f64) -> Scale {
         phi.add(v);
         abs += v.abs();
     }
-    // Each phi is within ~6 ulps of itself (see `tilt`); the product by a group size adds one more.
-    let phi_err = phi.error_bound() + 8.0 * super::float::U * abs;
+    // The product by a group size adds one rounding to the ~6 of each phi.
+    err += 8.0 * super::float::U * abs;
+    let phi_err = phi.error_bound() + err;
     let (hi, lo) = phi.parts();
     Scale { phi: hi, phi_lo: lo, phi_err, b }
 }
 
+/// K'(t) to K''''(t) in one pass. One reciprocal per exposure instead of the two divisions of [`tilt_qr`]: this
+/// feeds the solver and the approximations, where one more rounding per exposure is immaterial, and it is the
+/// hot loop of the saddlepoint method.
 pub fn eval(model: &Model, t: f64) -> CgfValue {
     let c = TiltConsts::new(t);
-    let (mut k1, mut k2, mut k3, mut k4) = (0.0, 0.0, 0.0, 0.0);
+    // Same forms as `tilt_qr`: M e^-t for t > 0, M otherwise, so neither overflows.
+    let (ca, cb) = if t > 0.0 { (1.0, c.emt) } else { (c.et, 1.0) };
+    // Four lanes of plain sums: independent accumulators let the compiler use vector registers.
+    let mut acc = [[0.0f64; 4]; 4];
+    let mut quads = model.bernoulli.chunks_exact(4);
+    for quad in &mut quads {
+        for (j, &p) in quad.iter().enumerate() {
+            let (a, b) = (p * ca, (1.0 - p) * cb);
+            let inv = 1.0 / (a + b);
+            let (q, r) = (a * inv, b * inv);
+            let v = q * r;
+            acc[0][j] += q;
+            acc[1][j] += v;
+            acc[2][j] += v * (r - q);
+            acc[3][j] += v * (1.0 - 6.0 * v);
+        }
+    }
+    let mut k = acc.map(|l| (l[0] + l[1]) + (l[2] + l[3]));
     let mut add = |m: f64, p: f64| {
-        let (q, r) = tilt_qr(p, &c);
+        let (a, b) = (p * ca, (1.0 - p) * cb);
+        let inv = 1.0 / (a + b);
+        let (q, r) = (a * inv, b * inv);
         let v = q * r;
-        k1 += m * q;
-        k2 += m * v;
-        k3 += m * v * (r - q);
-        k4 += m * v * (1.0 - 6.0 * v);
+        k[0] += m * q;
+        k[1] += m * v;
+        k[2] += m * v * (r - q);
+        k[3] += m * v * (1.0 - 6.0 * v);
     };
-    for &p in &model.bernoulli {
+    for &p in quads.remainder() {
         add(1.0, p);
     }
     for b in &model.binomials {
@@ -182,61 +257,49 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
     let lam = model.poisson;
     let extra = if lam > 0.0 { lam * c.et } else { 0.0 };
     let shift = model.shift as f64;
-    CgfValue { t, k1: k1 + extra + shift, k2: k2 + extra, k3: k3 + extra, k4: k4 + extra }
+    CgfValue { t, k1: k[0] + extra + shift, k2: k[1] + extra, k3: k[2] + extra, k4: k[3] + extra }
 }
 
 /// Variance of the tilted law, K''(t).
 pub fn eval_var(model: &Model, t: f64) -> f64 {
-    k1_k2(model, t).1
+    eval(model, t).k2
 }
 
-/// Mean of the tilted law, K'(t), and its variance K''(t), in one pass.
-fn k1_k2(model: &Model, t: f64) -> (f64, f64) {
-    let c = TiltConsts::new(t);
-    let (mut k1, mut k2) = (model.shift as f64, 0.0);
-    for &p in &model.bernoulli {
-        let (q, r) = tilt_qr(p, &c);
-        k1 += q;
-        k2 += q * r;
-    }
-    for b in &model.binomials {
-        let (q, r) = tilt_qr(b.p, &c);
-        k1 += b.size as f64 * q;
-        k2 += b.size as f64 * q * r;
-    }
-    if model.poisson > 0.0 {
-        let le = model.poisson * c.et;
-        k1 += le;
-        k2 += le;
-    }
-    (k1, k2)
-}
-
-/// Solve K'(t) = x by Newton's method safeguarded with bisection, so it converges for every x strictly inside
+/// Solve K'(t) = x by Halley's method safeguarded with bisection, so it converges for every x strictly inside
 /// the support's range: p near 0 or 1, x at the edge of the support, huge n. `tol` is the accepted
-/// |K'(t) - x|. Returns t clamped to [-T_MAX, T_MAX] when x is beyond what f64 can tilt to. K'(0) and K''(0)
-/// are the mean and variance, taken from `moments` rather than from another pass over the exposures.
-pub fn solve(model: &Model, moments: &Moments, x: f64, tol: f64) -> f64 {
+/// |K'(t) - x|. Returns the derivatives at the solution t (so callers need no further pass), with t clamped to
+/// [-T_MAX, T_MAX] when x is beyond what f64 can tilt to. K'(0) and K''(0) are the mean and variance, taken
+/// from `moments` rather than from another pass over the exposures.
+///
+/// Why Halley: every pass over the exposures yields K''' at little extra cost, and cubic convergence saves
+/// one or two of the passes that Newton needs from the same first guess.
+pub fn solve(model: &Model, moments: &Moments, x: f64, tol: f64) -> CgfValue {
     let (m0, v0) = (moments.mean, moments.variance);
     if (m0 - x).abs() <= tol || v0 <= 0.0 {
-        return 0.0;
+        return eval(model, 0.0);
     }
     // Bracket [lo, hi] with K'(lo) < x < K'(hi); K' is increasing.
     let (mut lo, mut hi) = if x > m0 { (0.0, f64::NAN) } else { (f64::NAN, 0.0) };
-    // First guess: the smaller of a Newton step at 0 and the Poisson-like ln(x/mean) (either can be far off;
-    // the bracket below makes any guess safe, a good one makes it fast).
+    // First guess: where the skewness term is small, the root of the quadratic Taylor expansion of K' at 0,
+    // mean + var t + k3 t^2 / 2 = x; otherwise the smaller of a Newton step at 0 and the Poisson-like
+    // ln(x / mean). Any of them can be far off: the bracket below makes any guess safe, a good one makes it fast.
     let shift = model.shift as f64;
     let newton0 = (x - m0) / v0;
     let poisson0 = ((x - shift).max(1e-300) / (m0 - shift).max(1e-300)).ln();
     let mut t =
         if newton0.signum() == poisson0.signum() && poisson0.abs() < newton0.abs() { poisson0 } else { newton0 };
+    let skew_term = moments.third_central * newton0 / (2.0 * v0);
+    if skew_term.abs() < 0.25 {
+        // The root nearest 0, written without cancellation.
+        t = 2.0 * newton0 / (1.0 + (1.0 + 4.0 * skew_term).sqrt());
+    }
     t = t.clamp(-T_MAX, T_MAX);
     let mut last_step = f64::INFINITY;
+    let mut c = eval(model, t);
     for _ in 0..400 {
-        let (k1, k2) = k1_k2(model, t);
-        let f = k1 - x;
+        let f = c.k1 - x;
         if f.abs() <= tol {
-            return t;
+            return c;
         }
         if f < 0.0 {
             lo = t;
@@ -244,34 +307,44 @@ pub fn solve(model: &Model, moments: &Moments, x: f64, tol: f64) -> f64 {
             hi = t;
         }
         if !lo.is_nan() && !hi.is_nan() && (hi - lo) <= 1e-15 * (1.0 + t.abs()) {
-            return t;
+            return c;
         }
-        let newton = if k2 > 0.0 { t - f / k2 } else { f64::NAN };
+        let den = 2.0 * c.k2 * c.k2 - f * c.k3;
+        let halley = t - 2.0 * f * c.k2 / den;
+        // Far from the root the Halley denominator can vanish or change sign: Newton is the fallback there.
+        let next = if den > 0.0 && halley.is_finite() {
+            halley
+        } else if c.k2 > 0.0 {
+            t - f / c.k2
+        } else {
+            f64::NAN
+        };
         let inside = |z: f64| z.is_finite() && (lo.is_nan() || z > lo) && (hi.is_nan() || z < hi);
-        // Newton while it at least halves its step each time (Press et al., "Numerical Recipes", rtsafe);
+        // The iteration while it at least halves its step each time (Press et al., "Numerical Recipes", rtsafe);
         // otherwise bisect, so a far start such as exp-like growth of K' cannot crawl.
         let bracketed = !lo.is_nan() && !hi.is_nan();
-        let step = (newton - t).abs();
+        let step = (next - t).abs();
         let slow = bracketed && step > 0.5 * last_step;
-        last_step = if inside(newton) && !slow { step } else { f64::INFINITY };
-        t = if inside(newton) && !slow {
-            newton
+        last_step = if inside(next) && !slow { step } else { f64::INFINITY };
+        t = if inside(next) && !slow {
+            next
         } else if lo.is_nan() {
             // Still searching for the lower end of the bracket: step out geometrically.
             if t <= -T_MAX {
-                return -T_MAX;
+                return c;
             }
             (2.0 * t.min(-1.0)).max(-T_MAX)
         } else if hi.is_nan() {
             if t >= T_MAX {
-                return T_MAX;
+                return c;
             }
             (2.0 * t.max(1.0)).min(T_MAX)
         } else {
             0.5 * (lo + hi)
         };
+        c = eval(model, t);
     }
-    t
+    c
 }
 
 #[cfg(test)]
@@ -292,11 +365,27 @@ mod tests {
     }
 
     #[test]
+    fn products_agree_with_logarithms_within_their_bounds() {
+        let ps: Vec<f64> =
+            (0..5000).map(|i| (((i * 7919) % 1000) as f64 + 0.5) / 1000.0).chain([1e-300, 1e-20]).collect();
+        // Without a Poisson part for t beyond 709, where lambda (e^t - 1) itself overflows.
+        let (with, without) = (Model::from_parts(&ps, &[(30, 0.4)], 1.5), Model::from_parts(&ps, &[(30, 0.4)], 0.0));
+        for t in [-745.0, -30.0, -1.0, -1e-3, 0.0, 1e-6, 0.5, 3.0, 50.0, 709.0, 740.0] {
+            let m = if t < 709.0 { &with } else { &without };
+            let (a, b) = (scale(m, t), scale_by_products(m, t));
+            assert_eq!(a.b, b.b, "t = {t}");
+            let d = ((a.phi - b.phi) + (a.phi_lo - b.phi_lo)).abs();
+            assert!(d <= a.phi_err + b.phi_err, "t = {t}: {d} vs {} + {}", a.phi_err, b.phi_err);
+            assert!(b.phi_err <= 1e-9 * (1.0 + a.phi.abs()), "t = {t}: {}", b.phi_err);
+        }
+    }
+
+    #[test]
     fn solver_reaches_edges() {
         let m = Model::from_parts(&[1e-12, 0.5, 0.999999], &[], 0.0);
         for x in [0.001, 1.0, 2.5, 2.9999] {
-            let t = solve(&m, &Moments::of(&m), x, 1e-10);
-            assert!((eval(&m, t).k1 - x).abs() < 1e-8, "x = {x}");
+            let c = solve(&m, &Moments::of(&m), x, 1e-10);
+            assert!((eval(&m, c.t).k1 - x).abs() < 1e-8, "x = {x}");
         }
     }
 }

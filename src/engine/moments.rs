@@ -18,25 +18,54 @@ pub struct Moments {
     pub sum_p_squared: f64,
 }
 
+/// Terms per block of plain summation, and the number of independent lanes within a block.
+const BLOCK: usize = 1024;
+const LANES: usize = 4;
+
 impl Moments {
     pub fn of(model: &Model) -> Moments {
-        let (mut mean, mut var, mut m3, mut a3, mut p2) =
-            (Sum::default(), Sum::default(), Sum::default(), Sum::default(), Sum::default());
-        let mut add = |m: f64, p: f64| {
-            let q = 1.0 - p;
-            let v = p * q;
-            mean.add(m * p);
-            var.add(m * v);
-            m3.add(m * v * (q - p));
-            a3.add(m * v * (p * p + q * q));
-            p2.add(m * p * p);
-        };
-        for &p in &model.bernoulli {
-            add(1.0, p);
+        let mut acc = [Sum::default(), Sum::default(), Sum::default(), Sum::default(), Sum::default()];
+        // Plain sums in LANES independent lanes over blocks of BLOCK terms, compensated across blocks: the plain
+        // inner loop is what lets the compiler keep it in vector registers (five compensated sums per term cost
+        // five times as much), and a block of BLOCK / LANES terms per lane loses at most (BLOCK / LANES) ulps of
+        // the block's absolute sum. The blocks are then added with Neumaier's compensation, so n = 10^7 loses no
+        // more than that. Measured against a fully compensated sum in the tests below.
+        for block in model.bernoulli.chunks(BLOCK) {
+            let mut lanes = [[0.0f64; LANES]; 5];
+            let mut quads = block.chunks_exact(LANES);
+            for quad in &mut quads {
+                for (j, &p) in quad.iter().enumerate() {
+                    let q = 1.0 - p;
+                    let v = p * q;
+                    lanes[0][j] += p;
+                    lanes[1][j] += v;
+                    lanes[2][j] += v * (q - p);
+                    lanes[3][j] += v * (p * p + q * q);
+                    lanes[4][j] += p * p;
+                }
+            }
+            for &p in quads.remainder() {
+                let q = 1.0 - p;
+                let v = p * q;
+                lanes[0][0] += p;
+                lanes[1][0] += v;
+                lanes[2][0] += v * (q - p);
+                lanes[3][0] += v * (p * p + q * q);
+                lanes[4][0] += p * p;
+            }
+            for (a, l) in acc.iter_mut().zip(lanes.iter()) {
+                a.add((l[0] + l[1]) + (l[2] + l[3]));
+            }
         }
         for b in &model.binomials {
-            add(b.size as f64, b.p);
+            let (m, p) = (b.size as f64, b.p);
+            let q = 1.0 - p;
+            let v = p * q;
+            for (a, x) in acc.iter_mut().zip([m * p, m * v, m * v * (q - p), m * v * (p * p + q * q), m * p * p]) {
+                a.add(x);
+            }
         }
+        let [mean, var, m3, a3, p2] = acc;
         let lam = model.poisson;
         Moments {
             mean: mean.value() + model.shift as f64 + lam,
@@ -67,5 +96,43 @@ impl Moments {
         } else {
             f64::INFINITY
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The blocked sums against one compensated sum per term (the layout this replaced).
+    #[test]
+    fn blocked_sums_match_compensated_sums() {
+        let mut x = 0x2545_f491_4f6c_dd1du64;
+        let ps: Vec<f64> = (0..200_003)
+            .map(|_| {
+                x ^= x << 13;
+                x ^= x >> 7;
+                x ^= x << 17;
+                let u = (x >> 11) as f64 / (1u64 << 53) as f64;
+                u.powi(3).max(1e-300)
+            })
+            .collect();
+        let m = Moments::of(&Model::from_parts(&ps, &[(7, 0.3)], 2.5));
+        let (mut s0, mut s1, mut s2, mut s3, mut s4) =
+            (Sum::default(), Sum::default(), Sum::default(), Sum::default(), Sum::default());
+        for p in ps.iter().copied().chain(std::iter::repeat_n(0.3, 7)) {
+            let q = 1.0 - p;
+            let v = p * q;
+            s0.add(p);
+            s1.add(v);
+            s2.add(v * (q - p));
+            s3.add(v * (p * p + q * q));
+            s4.add(p * p);
+        }
+        let close = |a: f64, b: f64, scale: f64| (a - b).abs() <= 1e-14 * scale;
+        assert!(close(m.mean, s0.value() + 2.5, s0.value()));
+        assert!(close(m.variance, s1.value() + 2.5, s1.value()));
+        assert!(close(m.third_central, s2.value() + 2.5, s1.value()));
+        assert!(close(m.third_abs_sum, s3.value() + 2.5, s3.value()));
+        assert!(close(m.sum_p_squared, s4.value(), s4.value()));
     }
 }

@@ -24,15 +24,16 @@ pub struct Saddlepoint;
 fn tail(prep: &Prepared, x: f64, up: bool) -> Option<(f64, f64, f64)> {
     let model = prep.model;
     let sd = prep.moments.sd();
-    let s = cgf::solve(model, &prep.moments, x, 1e-12 * sd.max(1.0));
+    let c: CgfValue = cgf::solve(model, &prep.moments, x, 1e-12 * sd.max(1.0));
+    let s = c.t;
     if s.abs() < 1e-7 {
         return None;
     }
-    let c: CgfValue = cgf::eval(model, s);
-    let sc = cgf::scale(model, s);
-    // With the first correction the saddlepoint is at the threshold itself, so -w^2/2 is also the Chernoff bound.
-    let (ln_half_w2, _) = sc.ln_scale(s, x);
-    let ln_chernoff = ln_half_w2;
+    let sc = cgf::scale_by_products(model, s);
+    // With the first correction the saddlepoint is at the threshold itself, so -w^2/2 is also the Chernoff
+    // bound, once the rounding error of K is added.
+    let (ln_half_w2, k_err) = sc.ln_scale(s, x);
+    let ln_chernoff = ln_half_w2 + k_err + 4.0 * super::float::U * ln_half_w2.abs();
     let w = (-2.0 * ln_half_w2).max(0.0).sqrt();
     let u = -(-s.abs()).exp_m1() * c.k2.sqrt();
     if !(w > 1e-6 && u > 0.0 && u.is_finite()) {
@@ -47,7 +48,8 @@ fn tail(prep: &Prepared, x: f64, up: bool) -> Option<(f64, f64, f64)> {
     let l3 = c.k3 / c.k2.powf(1.5) * if up { 1.0 } else { -1.0 };
     let l4 = c.k4 / (c.k2 * c.k2);
     let next = (l4 / 8.0 - 5.0 * l3 * l3 / 24.0) / u - l3 / (2.0 * u * u) - 1.0 / u.powi(3) + 1.0 / w.powi(3);
-    let rel = (next / inner).abs();
+    // The rounding error of K moves ln p by at most k_err.
+    let rel = (next / inner).abs() + k_err.exp_m1();
     Some((ln_p, ln_chernoff.min(0.0), rel))
 }
 
@@ -59,14 +61,14 @@ fn point(prep: &Prepared, k: u64) -> (f64, f64) {
         Some(m) => (k as f64).clamp(lo, m as f64 - 0.25),
         None => (k as f64).max(lo),
     };
-    let s = cgf::solve(model, &prep.moments, x, 1e-12 * prep.moments.sd().max(1.0));
-    let c = cgf::eval(model, s);
-    let (ln_scale, _) = cgf::scale(model, s).ln_scale(s, k as f64);
+    let c = cgf::solve(model, &prep.moments, x, 1e-12 * prep.moments.sd().max(1.0));
+    let s = c.t;
+    let (ln_scale, k_err) = cgf::scale_by_products(model, s).ln_scale(s, k as f64);
     let l3 = c.k3 / c.k2.powf(1.5);
     let l4 = c.k4 / (c.k2 * c.k2);
     let corr = l4 / 8.0 - 5.0 * l3 * l3 / 24.0;
     let ln_p = ln_scale - LN_SQRT_2PI - 0.5 * c.k2.ln() + corr.max(-0.5).ln_1p();
-    (ln_p.min(0.0), corr * corr + 1e-15)
+    (ln_p.min(0.0), corr * corr + 1e-15 + k_err.exp_m1())
 }
 
 impl TailMethod for Saddlepoint {

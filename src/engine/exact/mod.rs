@@ -183,7 +183,7 @@ fn solve_tilt(model: &Model, moments: &Moments, x: f64, dir: Dir) -> f64 {
     };
     // Any t gives exact results; t only steers accuracy, so a coarse solution is enough.
     let sd = moments.sd().max(1.0);
-    let t = cgf::solve(model, moments, x, 0.05 * sd.min(10.0));
+    let t = cgf::solve(model, moments, x, 0.05 * sd.min(10.0)).t;
     match dir {
         Dir::Up => t.max(0.0),
         Dir::Down => t.min(0.0),
