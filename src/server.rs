@@ -30,6 +30,9 @@ pub fn router(opts: &Options) -> Router {
     let request_id = HeaderName::from_static("x-request-id");
     let api = Router::new()
         .route("/v1/tail", post(routes::tail::tail))
+        .route("/v1/quantiles", post(routes::quantiles::quantiles))
+        .route("/v1/distribution", post(routes::distribution::distribution))
+        .route("/v1/layers", post(routes::layers::layers))
         .route("/healthz", get(routes::health::healthz))
         .route("/readyz", get(routes::health::readyz))
         .route("/openapi.json", get(openapi_json))

@@ -5,6 +5,7 @@ pub mod extract;
 pub mod openapi;
 pub mod problem;
 pub mod routes;
+pub mod scenario;
 pub mod types;
 
 use crate::config::ServiceLimits;

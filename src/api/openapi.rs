@@ -7,17 +7,21 @@ use utoipa::OpenApi;
 #[openapi(
     info(
         title = "tailtally",
-        description = "Tail probabilities, quantiles and the law of a count of independent events (Poisson-binomial, binomial and Poisson parts), each estimate with its error bound.\n\nAssumption: exposures are independent. Results support, and do not replace, the judgement of a qualified actuary or engineer and local regulation.",
+        description = "Tail probabilities, quantiles and the law of a count of independent events (Poisson-binomial, binomial and Poisson parts), each estimate with its error bound.\n\nAssumption: exposures are independent unless the one-factor Gaussian dependence model is requested. Results support, and do not replace, the judgement of a qualified actuary or engineer and local regulation.",
         license(name = "MIT")
     ),
     paths(
         crate::api::routes::tail::tail,
+        crate::api::routes::quantiles::quantiles,
+        crate::api::routes::distribution::distribution,
+        crate::api::routes::layers::layers,
         crate::api::routes::health::healthz,
         crate::api::routes::health::readyz,
     ),
     components(schemas(crate::api::problem::Problem, crate::api::problem::FieldError)),
     tags(
         (name = "probabilities", description = "Tail and point probabilities"),
+        (name = "analytics", description = "Quantiles, the distribution, layers, stress and dependence"),
         (name = "operations", description = "Probes and service documents"),
     )
 )]

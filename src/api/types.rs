@@ -1,16 +1,18 @@
 //! Request and response types of the HTTP API (serde + OpenAPI schemas). No computation here beyond copying
 //! engine results into wire form.
 
+use crate::engine::dependence::Dependence;
 use crate::engine::moments::Moments;
 use crate::engine::select::{Selection, Tolerance};
 use crate::engine::{BoundKind, Estimate, MethodId, Side};
+use crate::portfolio::stress::Stress;
 use crate::portfolio::{Model, PortfolioSpec};
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
 
 /// The model's assumptions, returned with every answer.
 pub const ASSUMPTIONS: &[&str] = &[
-    "Exposures and sources are mutually independent (no dependence option was used).",
+    "Exposures and sources are mutually independent unless a dependence model is named in `model`; under the one-factor Gaussian model they are independent given the common factor, and Poisson sources are independent of it.",
     "Each listed probability is the exposure's event probability over the same period.",
     "Results support, and do not replace, the judgement of a qualified actuary or engineer and the rules of local regulation.",
 ];
@@ -32,6 +34,12 @@ pub struct TailRequest {
     /// For `auto`: `{"absolute": a}` or `{"relative": r}`; default `{"relative": 0.001}`.
     #[serde(default)]
     pub tolerance: Option<Tolerance>,
+    /// Stress every probability by a factor; the answer then also carries the unstressed figures in `base`.
+    #[serde(default)]
+    pub stress: Option<Stress>,
+    /// Dependence between exposures; independent by default.
+    #[serde(default)]
+    pub dependence: Option<Dependence>,
 }
 
 fn default_methods() -> Vec<MethodId> {
@@ -55,6 +63,24 @@ pub struct Summary {
 }
 
 impl Summary {
+    /// The summary of a law: its own moments, which under dependence are those of the mixture.
+    pub fn of_law(law: &crate::engine::law::Law) -> Summary {
+        let m = law.moments();
+        let (min, max) = law.support();
+        let lr = m.lyapunov_ratio();
+        Summary {
+            exposures: law.exposures(),
+            mean: m.mean,
+            variance: m.variance,
+            standard_deviation: m.sd(),
+            skewness: m.skewness(),
+            // The Berry-Esseen diagnostic belongs to independent sums only.
+            lyapunov_ratio: (lr.is_finite() && !law.is_mixture()).then_some(lr),
+            support_min: min,
+            support_max: max,
+        }
+    }
+
     pub fn of(model: &Model, m: &Moments) -> Summary {
         let lr = m.lyapunov_ratio();
         Summary {
@@ -124,7 +150,13 @@ pub struct ThresholdResult {
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
 pub struct TailResponse {
     pub summary: Summary,
+    /// The dependence model and stress behind these figures.
+    pub model: crate::api::scenario::ModelOut,
     pub results: Vec<ThresholdResult>,
+    /// Under `stress`: the same figures for the unstressed portfolio.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schema(no_recursion)]
+    pub base: Option<Box<TailResponse>>,
     /// The model's assumptions and the usual caution.
     pub assumptions: Vec<String>,
 }

@@ -6,13 +6,19 @@
 //! checked against.
 
 pub mod cgf;
+pub mod dependence;
+pub mod distribution;
 pub mod edgeworth;
 pub mod exact;
 pub mod float;
+pub mod law;
+pub mod layers;
 pub mod moments;
 pub mod normal;
 pub mod normal_law;
 pub mod poisson;
+pub mod quadrature;
+pub mod quantiles;
 pub mod saddlepoint;
 pub mod select;
 

@@ -7,6 +7,7 @@
 pub mod families;
 pub mod model;
 pub mod spec;
+pub mod stress;
 pub mod validate;
 
 pub use model::{Binomial, Model};

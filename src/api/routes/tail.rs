@@ -2,11 +2,12 @@
 
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
+use crate::api::scenario;
 use crate::api::types::{EstimateOut, Summary, TailRequest, TailResponse, ThresholdResult, ASSUMPTIONS};
 use crate::api::AppState;
 use crate::config::ServiceLimits;
-use crate::engine::{self, Prepared};
-use crate::portfolio::{validate::build_model, Violation};
+use crate::engine::{self, law::Law};
+use crate::portfolio::Violation;
 use axum::extract::State;
 use axum::Json;
 
@@ -57,15 +58,8 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
     if req.methods.is_empty() {
         errs.push(Violation::new("/methods", "at least one method is required"));
     }
-    let model = build_model(&req.portfolio, "/portfolio", &limits.portfolio);
-    let model = match model {
-        Ok(m) if errs.is_empty() => m,
-        Ok(_) => return Err(Problem::invalid(errs)),
-        Err(mut v) => {
-            errs.append(&mut v);
-            return Err(Problem::invalid(errs));
-        }
-    };
+    scenario::check(&req.stress, &req.dependence, &mut errs);
+    let model = scenario::model(&req.portfolio, limits, errs)?;
     // With a Poisson part the support is unbounded and the exact engine's window grows like sqrt(k): refuse
     // thresholds whose windows would not fit in memory rather than exhaust it.
     if model.poisson > 0.0 {
@@ -86,20 +80,19 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
             return Err(Problem::invalid(bad));
         }
     }
-    let work =
-        (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * req.thresholds.len() as f64;
-    if work > limits.max_work {
-        return Err(Problem::too_large(format!(
-            "exposures x thresholds = {work:.0} exceeds the work budget {} (see --max-work); split the request",
-            limits.max_work
-        )));
+    let factor = scenario::Scenario::work_factor(&req.stress, &req.dependence);
+    scenario::check_work(&model, req.thresholds.len() as f64, factor, limits)?;
+    let sc = scenario::build(model, req.stress, req.dependence);
+    let mut out = answer(req, &sc.law, sc.stress);
+    if let Some(base) = &sc.base {
+        out.base = Some(Box::new(answer(req, base, None)));
     }
-    let prep = Prepared::new(&model);
+    Ok(out)
+}
+
+fn answer(req: &TailRequest, law: &Law, stress: Option<crate::portfolio::stress::Stress>) -> TailResponse {
     let queries: Vec<(u64, engine::Side)> = req.thresholds.iter().map(|&k| (k, req.side)).collect();
-    let mut per_method = Vec::new();
-    for id in &req.methods {
-        per_method.push(engine::run(*id, &prep, &queries, req.tolerance));
-    }
+    let per_method: Vec<_> = req.methods.iter().map(|id| law.estimates(*id, &queries, req.tolerance)).collect();
     let results = req
         .thresholds
         .iter()
@@ -110,9 +103,11 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
             estimates: per_method.iter().map(|m| EstimateOut::from(&m[i])).collect(),
         })
         .collect();
-    Ok(TailResponse {
-        summary: Summary::of(&model, &prep.moments),
+    TailResponse {
+        summary: Summary::of_law(law),
+        model: scenario::Scenario::model_out(law, stress),
         results,
+        base: None,
         assumptions: ASSUMPTIONS.iter().map(|s| s.to_string()).collect(),
-    })
+    }
 }

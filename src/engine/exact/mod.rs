@@ -261,6 +261,12 @@ fn tail_from(law: &Tilted, job: &Job) -> ExactValue {
 
 /// ln P = K(t) - t x + ln T, and its error bound.
 fn finish(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f64, abs: f64) -> ExactValue {
+    finish_capped(law, x, sum, dsum, terms, rel, abs, 1.0)
+}
+
+/// [`finish`] for a value that may exceed 1 (an expectation): `cap` is the largest value the truth can take.
+#[allow(clippy::too_many_arguments)]
+fn finish_capped(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f64, abs: f64, cap: f64) -> ExactValue {
     let (ln_scale, ln_scale_lo, scale_err) = law.scale.ln_scale_dd(law.t, x as f64);
     if sum <= 0.0 {
         // Nothing in the window: the truth is at most the window's absolute error, scaled back.
@@ -283,8 +289,113 @@ fn finish(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f64, abs
     // returned logarithm where the probability comes from it.
     let delta_ln = scale_err + 2.0 * U * ln_t.abs() + if use_direct { 6.0 * U } else { 2.0 * U * ln_p.abs() + 2.0 * U };
     let rel_err = up(((delta_t + delta_ln) * (1.0 + 1e-6)).exp_m1() * 1.01);
-    let p = if use_direct { direct.min(1.0) } else { ln_p.min(0.0).exp() };
-    let ln_p = ln_p.min(0.0);
+    let p = if use_direct { direct.min(cap) } else { ln_p.min(cap.ln()).exp() };
+    let ln_p = ln_p.min(cap.ln());
     let abs_err = if rel_err.is_finite() { up(p * rel_err) } else { 1.0 };
     ExactValue { p, ln_p, rel_err, abs_err }
+}
+
+/// E[min((S - a)+, l)], the expected number of events in the count layer (a, a + l], exactly and with a
+/// rigorous bound; `limit` None means no cap, E[(S - a)+].
+///
+/// How. The layer's expectation is sum_{j > a} min(j - a, l) P(S = j). Above the mean it is a far-tail sum
+/// like any other: tilt to x = a + 1 and weight the tilted law by min(j - a, l) exp(-t (j - x)), which is at
+/// most min(l, max(1, e^(t - 1) / t)) for every j >= x, so the window's absolute L1 error (truncated counts
+/// included) enters multiplied by that. Below the mean with a cap, the untilted law with weights <= l does.
+/// Below the mean without a cap, E[(S - a)+] = E[S] - a + E[(a - S)+], the last term a lower-tail sum of the
+/// same kind; E[S] is the compensated mean, exact to a few ulps (counted in the bound).
+pub fn layer_expectation(model: &Model, moments: &Moments, a: u64, limit: Option<u64>) -> ExactValue {
+    let l = limit.map(|l| l as f64).unwrap_or(f64::INFINITY);
+    if l == 0.0 || model.support_max().is_some_and(|m| m <= a) {
+        return ExactValue::certain(0.0);
+    }
+    if model.is_degenerate() {
+        let s = model.shift as f64;
+        return ExactValue::certain((s - a as f64).max(0.0).min(l));
+    }
+    let x = a + 1;
+    if (x as f64) > moments.mean || l.is_finite() {
+        let t = if (x as f64) > moments.mean { solve_tilt(model, moments, x as f64, Dir::Up) } else { 0.0 };
+        let law = tilted(model, t);
+        let sup = if t > 0.0 { (if t >= 1.0 { 1.0 } else { (t - 1.0).exp() / t }).min(l) } else { l };
+        let rho = (-t).exp();
+        let w = &law.window;
+        let (mut sum, mut dsum, mut terms) = (0.0f64, 0.0f64, 0usize);
+        let start = x.max(w.lo);
+        let mut wt = if start > x { rho.powf((start - x) as f64) } else { 1.0 };
+        let mut d = (start - x) as f64;
+        let mut j = start;
+        while j <= w.hi() && wt > 0.0 {
+            let h = ((j - a) as f64).min(l);
+            let v = w.w[(j - w.lo) as usize] * wt * h;
+            sum += v;
+            dsum += v * d;
+            terms += 1;
+            wt *= rho;
+            d += 1.0;
+            j += 1;
+        }
+        // One more rounding per term for the product by h.
+        return finish_capped(&law, x, sum, dsum, terms, compose_rel(w.rel), w.abs * sup, f64::INFINITY);
+    }
+    // Below the mean, uncapped: E[S] - a + E[(a - S)+].
+    let below = lower_deficit(model, moments, a);
+    let mean_err = 4.0 * U * moments.mean.abs() + gamma(model.bernoulli.len() as f64 + 8.0) * moments.mean.abs();
+    let base = moments.mean - a as f64;
+    let p = base + below.p;
+    let abs_err = up(below.abs_err + mean_err + 2.0 * U * p.abs());
+    ExactValue { p, ln_p: p.ln(), rel_err: up(abs_err / p), abs_err }
+}
+
+/// E[(a - S)+] = sum_{j < a} (a - j) P(S = j), by a downward tilt to a - 1 (0 when a is at or below the
+/// support's minimum).
+fn lower_deficit(model: &Model, moments: &Moments, a: u64) -> ExactValue {
+    if a <= model.support_min() {
+        return ExactValue::certain(0.0);
+    }
+    let x = a - 1;
+    let t = if (x as f64) < moments.mean { solve_tilt(model, moments, x as f64, Dir::Down) } else { 0.0 };
+    let law = tilted(model, t);
+    let w = &law.window;
+    let rho = t.exp();
+    // Weights (a - j) e^(t (x - j)) for j <= x, t <= 0: at most max(1, e^(-t - 1) / -t) (as above), or the
+    // largest deficit a - support_min when t = 0.
+    let s = -t;
+    let sup = if s > 0.0 {
+        if s >= 1.0 {
+            1.0
+        } else {
+            (s - 1.0).exp() / s
+        }
+    } else {
+        (a - model.support_min()) as f64
+    };
+    let (mut sum, mut dsum, mut terms) = (0.0f64, 0.0f64, 0usize);
+    if x >= w.lo {
+        let end = x.min(w.hi());
+        let mut wt = if end < x { rho.powf((x - end) as f64) } else { 1.0 };
+        let mut d = (x - end) as f64;
+        let mut j = end;
+        loop {
+            if wt == 0.0 {
+                break;
+            }
+            let v = w.w[(j - w.lo) as usize] * wt * (a - j) as f64;
+            sum += v;
+            dsum += v * d;
+            terms += 1;
+            if j == w.lo {
+                break;
+            }
+            wt *= rho;
+            d += 1.0;
+            j -= 1;
+        }
+    }
+    finish_capped(&law, x, sum, dsum, terms, compose_rel(w.rel), w.abs * sup, f64::INFINITY)
+}
+
+/// The window's relative error with one more rounding (a product by an exactly represented weight).
+fn compose_rel(rel: f64) -> f64 {
+    super::float::compose(rel, U)
 }

@@ -1,0 +1,117 @@
+//! POST /v1/quantiles, /v1/distribution and /v1/layers end to end, with stress and dependence, and their
+//! problem answers for bad input.
+
+mod common;
+use common::{assert_problem, start};
+use serde_json::json;
+
+fn portfolio() -> serde_json::Value {
+    json!({"probabilities": [0.1, 0.2, 0.3, 0.05, 0.5, 0.01], "groups": [{"size": 40, "probability": 0.02}]})
+}
+
+#[tokio::test]
+async fn analytics_answer_their_documented_shapes() {
+    let s = start(&[]).await;
+    let (st, _, v) =
+        s.post_json("/v1/quantiles", &json!({"portfolio": portfolio(), "levels": [0.95, 0.99, 0.995]})).await;
+    assert_eq!(st, 200, "{v}");
+    for q in v["quantiles"].as_array().unwrap() {
+        let (at, below) = (q["cdf_at_count"].as_f64().unwrap(), q["cdf_below"].as_f64().unwrap());
+        assert!(below < q["level"].as_f64().unwrap() && q["level"].as_f64().unwrap() <= at, "{q}");
+    }
+    let (st, _, v) = s.post_json("/v1/distribution", &json!({"portfolio": portfolio(), "from": 0, "to": 10})).await;
+    assert_eq!(st, 200, "{v}");
+    let pmf: f64 = v["pmf"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).sum();
+    let cdf10 = v["cdf"][10].as_f64().unwrap();
+    assert!((pmf - cdf10).abs() < 1e-13 && (cdf10 + v["sf"][10].as_f64().unwrap() - 1.0).abs() < 1e-13);
+    let (st, _, v) = s
+        .post_json(
+            "/v1/layers",
+            &json!({"portfolio": portfolio(), "layers": [{"attachment": 3, "limit": 2}], "tail_levels": [0.99],
+            "stress": {"probability_factor": 1.5}}),
+        )
+        .await;
+    assert_eq!(st, 200, "{v}");
+    let (stressed, base) = (
+        v["layers"][0]["expected_count"].as_f64().unwrap(),
+        v["base"]["layers"][0]["expected_count"].as_f64().unwrap(),
+    );
+    assert!(stressed > base, "a stress that raises every probability raises the layer: {stressed} vs {base}");
+    assert_eq!(v["model"]["stress"]["probability_factor"], 1.5);
+    let (st, _, v) = s
+        .post_json("/v1/tail", &json!({"portfolio": portfolio(), "thresholds": [8], "dependence": {"model": "one_factor_gaussian", "rho": 0.3, "nodes": 16}}))
+        .await;
+    assert_eq!(st, 200, "{v}");
+    assert_eq!(v["model"]["dependence"]["model"], "one_factor_gaussian");
+    assert_eq!(v["results"][0]["estimates"][0]["bound_kind"], "estimated");
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn distribution_speaks_csv_when_asked() {
+    let s = start(&[]).await;
+    let c = reqwest::Client::new();
+    let r = c
+        .post(format!("{}/v1/distribution", s.base))
+        .header("accept", "text/csv")
+        .json(&json!({"portfolio": portfolio(), "mass": 1e-9}))
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(r.status(), 200);
+    assert!(r.headers()["content-type"].to_str().unwrap().starts_with("text/csv"));
+    let text = r.text().await.unwrap();
+    let mut lines = text.lines();
+    assert_eq!(lines.next().unwrap(), "count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound");
+    let rows: Vec<Vec<&str>> = lines.map(|l| l.split(',').collect()).collect();
+    assert!(rows.len() > 5 && rows.iter().all(|r| r.len() == 8));
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn bad_analytics_input_points_at_the_field() {
+    let s = start(&["--max-thresholds", "50"]).await;
+    let cases = [
+        ("/v1/quantiles", json!({"portfolio": portfolio(), "levels": [0.5, 1.0]}), 422, "/levels/1"),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": portfolio(), "levels": [0.5], "stress": {"odds_factor": -1.0}}),
+            422,
+            "/stress/odds_factor",
+        ),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": portfolio(), "levels": [0.5], "dependence": {"model": "one_factor_gaussian", "rho": 1.0}}),
+            422,
+            "/dependence/rho",
+        ),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": portfolio(), "levels": [0.5], "dependence": {"model": "one_factor_gaussian", "rho": 0.1, "nodes": 100000}}),
+            422,
+            "/dependence/nodes",
+        ),
+        ("/v1/distribution", json!({"portfolio": portfolio(), "from": 5, "to": 2}), 422, "/to"),
+        ("/v1/distribution", json!({"portfolio": portfolio(), "from": 0, "to": 1000}), 422, "/to"),
+        ("/v1/distribution", json!({"portfolio": portfolio(), "mass": 0.0}), 422, "/mass"),
+        ("/v1/distribution", json!({"portfolio": portfolio(), "from": 3}), 422, "/to"),
+        (
+            "/v1/layers",
+            json!({"portfolio": portfolio(), "layers": [{"attachment": 1, "limit": 2}], "tail_levels": [-0.5]}),
+            422,
+            "/tail_levels/0",
+        ),
+        (
+            "/v1/layers",
+            json!({"portfolio": {"probabilities": [0.5, 2.0]}, "layers": [{"attachment": 1}]}),
+            422,
+            "/portfolio/probabilities/1",
+        ),
+        ("/v1/layers", json!({"portfolio": portfolio()}), 422, "/layers"),
+    ];
+    for (path, body, want, pointer) in cases {
+        let (st, ct, v) = s.post_json(path, &body).await;
+        assert_problem(st, &ct, &v, want, Some(pointer));
+    }
+    s.shutdown().await.unwrap();
+}
