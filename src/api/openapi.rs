@@ -12,6 +12,8 @@ use utoipa::OpenApi;
     ),
     paths(
         crate::api::routes::tail::tail,
+        crate::api::routes::chart::chart,
+        crate::api::routes::page::explorer,
         crate::api::routes::health::healthz,
         crate::api::routes::health::readyz,
     ),

@@ -33,6 +33,11 @@ pub async fn tail(State(state): State<AppState>, Body(req): Body<TailRequest>) -
 /// Largest threshold for an unbounded (Poisson) portfolio: its tilted window then holds about 10^6 counts.
 pub const MAX_POISSON_THRESHOLD: u64 = 1_000_000_000;
 
+/// The work a request costs, in exposure-threshold units, to compare with `--max-work`.
+pub fn work_of(model: &crate::portfolio::Model, thresholds: usize) -> f64 {
+    (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * thresholds as f64
+}
+
 /// The whole computation, synchronous and free of HTTP (also used by the command line).
 pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse, Problem> {
     let mut errs = Vec::new();
@@ -86,8 +91,7 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
             return Err(Problem::invalid(bad));
         }
     }
-    let work =
-        (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * req.thresholds.len() as f64;
+    let work = work_of(&model, req.thresholds.len());
     if work > limits.max_work {
         return Err(Problem::too_large(format!(
             "exposures x thresholds = {work:.0} exceeds the work budget {} (see --max-work); split the request",
