@@ -191,6 +191,7 @@ try {
     assert.ok(msg.includes(`entry 2 (line 2): ${byPtr["/portfolio/probabilities/1"]}`), msg);
     if (byPtr["/portfolio/probabilities/2"]) assert.ok(msg.includes(`entry 3 (line 3): ${byPtr["/portfolio/probabilities/2"]}`), msg);
     assert.equal(await page.evaluate(() => document.activeElement.id), "probs", "focus moves to the field at fault");
+    assert.equal(await page.locator(".results.stale").count(), 1, "earlier results are marked as stale");
     await page.locator(".group .g-prob").fill("2");
     await page.getByLabel("Event probabilities, one per line or comma-separated").fill("0.2");
     await page.getByRole("button", { name: "Compute" }).click();
