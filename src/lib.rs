@@ -11,6 +11,7 @@
 //! actuary or engineer and the rules of local regulation.
 
 pub mod api;
+pub mod chart;
 pub mod config;
 pub mod engine;
 pub mod portfolio;

@@ -29,10 +29,12 @@ pub fn router(opts: &Options) -> Router {
     let state = AppState { limits: Arc::new(ServiceLimits::from_options(opts)) };
     let request_id = HeaderName::from_static("x-request-id");
     let api = Router::new()
+        .route("/", get(routes::page::explorer))
         .route("/v1/tail", post(routes::tail::tail))
         .route("/v1/quantiles", post(routes::quantiles::quantiles))
         .route("/v1/distribution", post(routes::distribution::distribution))
         .route("/v1/layers", post(routes::layers::layers))
+        .route("/v1/chart", post(routes::chart::chart))
         .route("/healthz", get(routes::health::healthz))
         .route("/readyz", get(routes::health::readyz))
         .route("/openapi.json", get(openapi_json))

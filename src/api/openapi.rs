@@ -15,6 +15,8 @@ use utoipa::OpenApi;
         crate::api::routes::quantiles::quantiles,
         crate::api::routes::distribution::distribution,
         crate::api::routes::layers::layers,
+        crate::api::routes::chart::chart,
+        crate::api::routes::page::explorer,
         crate::api::routes::health::healthz,
         crate::api::routes::health::readyz,
     ),

@@ -112,7 +112,7 @@ pub fn model(spec: &PortfolioSpec, limits: &ServiceLimits, mut errs: Vec<Violati
 
 /// Refuse work over the budget (exposures x evaluations x scenario factor).
 pub fn check_work(model: &Model, evaluations: f64, factor: f64, limits: &ServiceLimits) -> Result<(), Problem> {
-    let work = (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * evaluations * factor;
+    let work = crate::api::routes::tail::work_of(model, 1) * evaluations * factor;
     if work > limits.max_work {
         return Err(Problem::too_large(format!(
             "estimated work {work:.0} (exposures x evaluations x nodes) exceeds the work budget {} (see --max-work); split the request",

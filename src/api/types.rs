@@ -160,3 +160,30 @@ pub struct TailResponse {
     /// The model's assumptions and the usual caution.
     pub assumptions: Vec<String>,
 }
+
+/// POST /v1/chart request: the picture of the law around one threshold.
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct ChartRequest {
+    pub portfolio: PortfolioSpec,
+    /// The count k whose tail is shaded and marked.
+    #[schema(example = 110)]
+    pub threshold: u64,
+    /// Which region is shaded: `upper` S >= k (default), `lower` S <= k or `point` S = k.
+    #[serde(default)]
+    pub side: Side,
+    /// Approximations drawn as lines over the exact bars: any of `normal`, `edgeworth`, `poisson`,
+    /// `saddlepoint` (none by default).
+    #[serde(default)]
+    #[schema(example = json!(["normal", "saddlepoint"]))]
+    pub methods: Vec<MethodId>,
+    /// Logarithmic probability axis, for far tails (values below 1e-308 plot too).
+    #[serde(default)]
+    pub log_scale: bool,
+    /// Width in pixels, 240 to 4000 (default 760).
+    #[serde(default)]
+    pub width: Option<u32>,
+    /// Height in pixels, 160 to 3000 (default 420).
+    #[serde(default)]
+    pub height: Option<u32>,
+}

@@ -34,6 +34,11 @@ pub async fn tail(State(state): State<AppState>, Body(req): Body<TailRequest>) -
 /// Largest threshold for an unbounded (Poisson) portfolio: its tilted window then holds about 10^6 counts.
 pub const MAX_POISSON_THRESHOLD: u64 = 1_000_000_000;
 
+/// The work a request costs, in exposure-threshold units, to compare with `--max-work`.
+pub fn work_of(model: &crate::portfolio::Model, thresholds: usize) -> f64 {
+    (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * thresholds as f64
+}
+
 /// The whole computation, synchronous and free of HTTP (also used by the command line).
 pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse, Problem> {
     let mut errs = Vec::new();
