@@ -14,6 +14,8 @@ use utoipa::OpenApi;
         crate::api::routes::tail::tail,
         crate::api::routes::health::healthz,
         crate::api::routes::health::readyz,
+        crate::api::routes::metrics::metrics,
+        crate::api::routes::docs::docs,
     ),
     components(schemas(crate::api::problem::Problem, crate::api::problem::FieldError)),
     tags(

@@ -1,4 +1,6 @@
 //! One file per route.
 
+pub mod docs;
 pub mod health;
+pub mod metrics;
 pub mod tail;

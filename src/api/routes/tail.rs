@@ -94,6 +94,7 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
             limits.max_work
         )));
     }
+    crate::api::metrics::exposures_processed(model.exposures);
     let prep = Prepared::new(&model);
     let queries: Vec<(u64, engine::Side)> = req.thresholds.iter().map(|&k| (k, req.side)).collect();
     let mut per_method = Vec::new();
