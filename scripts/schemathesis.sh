@@ -9,6 +9,10 @@
 #
 # Needs `pip install schemathesis` (4.x). The server runs with small limits so that generated portfolios
 # (n up to the limit) stay cheap: the point is the contract, not the engine's speed.
+#
+# The check `positive_data_acceptance` (ST202, "schema-valid request rejected") is left out unless STRICT=1:
+# the service refuses schema-valid requests by rule (work and size limits set at start-up: 413; values that
+# depend on each other: 422), which a schema cannot state.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -49,10 +53,12 @@ echo "tailtally at $ADDR; $MAX_EXAMPLES examples per operation, seed $SEED"
 status=0
 schemathesis run "http://$ADDR/openapi.json" \
     --checks all \
+    $( [ "${STRICT:-0}" = 1 ] || echo --exclude-checks positive_data_acceptance ) \
     --max-examples "$MAX_EXAMPLES" \
     --seed "$SEED" \
     --request-timeout 60 \
     --workers 2 \
+    --continue-on-failure \
     --suppress-health-check too_slow,filter_too_much \
     --report junit --report-dir "${REPORT_DIR:-target/schemathesis}" || status=$?
 if grep -q '"level":"ERROR"' "$WORK/server.log"; then
