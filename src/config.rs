@@ -47,18 +47,35 @@ pub struct Options {
     /// Work budget per request: exposures x thresholds (the exact method's cost scale).
     #[arg(long, env = "TAILTALLY_MAX_WORK", default_value_t = 2e9, global = true)]
     pub max_work: f64,
-    /// Seconds before a request is answered with 408.
+    /// Seconds before a computing request (POST /v1/...) is answered with 408.
     #[arg(long, env = "TAILTALLY_REQUEST_TIMEOUT_SECS", default_value_t = 60, global = true)]
     pub request_timeout_secs: u64,
-    /// Requests computed at once; others wait their turn.
-    #[arg(long, env = "TAILTALLY_MAX_CONCURRENCY", default_value_t = 64, global = true)]
+    /// The same timeout in milliseconds; when set it replaces --request-timeout-secs.
+    #[arg(long, env = "TAILTALLY_REQUEST_TIMEOUT_MS", global = true)]
+    pub request_timeout_ms: Option<u64>,
+    /// Computing requests served at once; others wait their turn in the queue. Probes, /metrics and the
+    /// documents are not counted.
+    #[arg(long, env = "TAILTALLY_MAX_CONCURRENCY", default_value_t = 64, global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<usize>::new().range(1..))]
     pub max_concurrency: usize,
+    /// Computing requests that may wait for a turn; beyond them requests are refused at once with 503.
+    #[arg(long, env = "TAILTALLY_MAX_QUEUED", default_value_t = 1024, global = true)]
+    pub max_queued: usize,
     /// Log format.
     #[arg(long, env = "TAILTALLY_LOG_FORMAT", value_enum, default_value_t = LogFormat::Text, global = true)]
     pub log_format: LogFormat,
     /// Origins allowed by CORS (comma separated; "*" for any). None by default.
     #[arg(long, env = "TAILTALLY_CORS_ORIGINS", default_value = "", global = true)]
     pub cors_origins: String,
+}
+
+impl Options {
+    pub fn request_timeout(&self) -> std::time::Duration {
+        match self.request_timeout_ms {
+            Some(ms) => std::time::Duration::from_millis(ms),
+            None => std::time::Duration::from_secs(self.request_timeout_secs),
+        }
+    }
 }
 
 impl Default for Options {

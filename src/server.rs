@@ -1,10 +1,15 @@
 //! The application: router, middleware, limits and graceful shutdown. `App::bind` can take port 0, so tests
 //! start the real service on a free port.
+//!
+//! The request timeout and the admission limit (at most `max_concurrency` running, `max_queued` waiting,
+//! 503 beyond) apply to the computing routes only: probes, /metrics and the documents must answer while the
+//! service is saturated.
 
-use crate::api::problem::Problem;
+use crate::api::metrics::{self, InFlight};
+use crate::api::problem::{Problem, ProblemType};
 use crate::api::{openapi, routes, AppState};
 use crate::config::{Options, ServiceLimits};
-use axum::extract::{DefaultBodyLimit, Request};
+use axum::extract::{DefaultBodyLimit, MatchedPath, Request, State};
 use axum::http::{header, HeaderName, HeaderValue, StatusCode};
 use axum::middleware::{self, Next};
 use axum::response::{IntoResponse, Response};
@@ -13,8 +18,8 @@ use axum::Router;
 use std::future::Future;
 use std::net::SocketAddr;
 use std::sync::Arc;
-use std::time::Duration;
 use tokio::net::TcpListener;
+use tokio::sync::Semaphore;
 use tower::ServiceBuilder;
 use tower_http::catch_panic::CatchPanicLayer;
 use tower_http::compression::CompressionLayer;
@@ -28,15 +33,25 @@ use tower_http::trace::TraceLayer;
 pub fn router(opts: &Options) -> Router {
     let state = AppState { limits: Arc::new(ServiceLimits::from_options(opts)) };
     let request_id = HeaderName::from_static("x-request-id");
+    let admission = Admission::new(opts.max_concurrency, opts.max_queued);
+    // `route_layer` covers only the routes added before it: the computing ones. Queued time counts towards
+    // the timeout, so the timeout is the outer of the two.
     let api = Router::new()
-        .route("/", get(routes::page::explorer))
         .route("/v1/tail", post(routes::tail::tail))
         .route("/v1/quantiles", post(routes::quantiles::quantiles))
         .route("/v1/distribution", post(routes::distribution::distribution))
         .route("/v1/layers", post(routes::layers::layers))
         .route("/v1/chart", post(routes::chart::chart))
+        .route_layer(
+            ServiceBuilder::new()
+                .layer(TimeoutLayer::with_status_code(StatusCode::REQUEST_TIMEOUT, opts.request_timeout()))
+                .layer(middleware::from_fn_with_state(admission, admit)),
+        )
+        .route("/", get(routes::page::explorer))
         .route("/healthz", get(routes::health::healthz))
         .route("/readyz", get(routes::health::readyz))
+        .route("/metrics", get(routes::metrics::metrics))
+        .route("/docs", get(routes::docs::docs))
         .route("/openapi.json", get(openapi_json))
         .fallback(not_found)
         .with_state(state);
@@ -44,22 +59,69 @@ pub fn router(opts: &Options) -> Router {
         ServiceBuilder::new()
             .layer(SetRequestIdLayer::new(request_id.clone(), MakeRequestUuid))
             .layer(PropagateRequestIdLayer::new(request_id))
+            .layer(middleware::from_fn(record_metrics))
             .layer(TraceLayer::new_for_http())
             .layer(CatchPanicLayer::custom(|_| {
                 Problem::internal("the computation failed unexpectedly").into_response()
             }))
             .layer(middleware::from_fn(problem_bodies))
-            .layer(TimeoutLayer::with_status_code(
-                StatusCode::REQUEST_TIMEOUT,
-                Duration::from_secs(opts.request_timeout_secs),
-            ))
             .layer(cors(&opts.cors_origins))
             .layer(CompressionLayer::new())
             .layer(RequestDecompressionLayer::new())
             .layer(RequestBodyLimitLayer::new(opts.max_body_bytes))
-            .layer(DefaultBodyLimit::max(opts.max_body_bytes))
-            .layer(tower::limit::ConcurrencyLimitLayer::new(opts.max_concurrency)),
+            .layer(DefaultBodyLimit::max(opts.max_body_bytes)),
     )
+}
+
+/// Counts each request once, with its final status and problem type: outside the panic catcher and the
+/// problem-body rewriting, so both are seen as answered. `Router::layer` wraps each route, so the matched
+/// template is known here.
+async fn record_metrics(req: Request, next: Next) -> Response {
+    let route = req.extensions().get::<MatchedPath>().map_or(metrics::UNMATCHED, |m| m.as_str());
+    let flight = InFlight::start(route, metrics::method_label(req.method()));
+    let res = next.run(req).await;
+    flight.finish(res.status().as_u16(), res.extensions().get::<ProblemType>().map(|p| p.0.as_str()));
+    res
+}
+
+/// Admission control of the computing routes: `running` turns, and `admitted` places (running plus
+/// waiting). A request that finds no place is refused at once rather than queued without bound.
+#[derive(Clone)]
+struct Admission {
+    running: Arc<Semaphore>,
+    admitted: Arc<Semaphore>,
+    max_queued: usize,
+}
+
+impl Admission {
+    fn new(max_concurrency: usize, max_queued: usize) -> Admission {
+        let cap = Semaphore::MAX_PERMITS;
+        let running = max_concurrency.clamp(1, cap);
+        Admission {
+            running: Arc::new(Semaphore::new(running)),
+            admitted: Arc::new(Semaphore::new(running.saturating_add(max_queued).min(cap))),
+            max_queued,
+        }
+    }
+}
+
+async fn admit(State(a): State<Admission>, req: Request, next: Next) -> Response {
+    let Ok(_place) = a.admitted.clone().try_acquire_owned() else {
+        let mut res = Problem::overloaded(format!(
+            "all computing slots are busy and {} requests are waiting (see --max-concurrency, --max-queued); retry later",
+            a.max_queued
+        ))
+        .into_response();
+        res.headers_mut().insert(header::RETRY_AFTER, HeaderValue::from_static("1"));
+        return res;
+    };
+    let waiting = metrics::queued();
+    let Ok(_turn) = a.running.clone().acquire_owned().await else {
+        return Problem::internal("admission control closed").into_response();
+    };
+    drop(waiting);
+    let _computing = metrics::computing();
+    next.run(req).await
 }
 
 fn cors(origins: &str) -> CorsLayer {
@@ -106,7 +168,7 @@ async fn problem_bodies(req: Request, next: Next) -> Response {
             status,
             "timeout",
             "Request timeout",
-            "the request took longer than the configured timeout (see --request-timeout-secs)",
+            "the request took longer than the configured timeout (see --request-timeout-secs, --request-timeout-ms)",
         ),
         StatusCode::PAYLOAD_TOO_LARGE => {
             Problem::too_large("the request body exceeds the configured limit (see --max-body-bytes)")

@@ -2,6 +2,7 @@
 //! Handlers validate, hand the work to the engine off the async threads, and copy the answer into wire form.
 
 pub mod extract;
+pub mod metrics;
 pub mod openapi;
 pub mod problem;
 pub mod routes;

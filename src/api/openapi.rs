@@ -19,6 +19,8 @@ use utoipa::OpenApi;
         crate::api::routes::page::explorer,
         crate::api::routes::health::healthz,
         crate::api::routes::health::readyz,
+        crate::api::routes::metrics::metrics,
+        crate::api::routes::docs::docs,
     ),
     components(schemas(crate::api::problem::Problem, crate::api::problem::FieldError)),
     tags(

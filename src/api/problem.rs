@@ -67,6 +67,10 @@ impl Problem {
         Problem::new(StatusCode::INTERNAL_SERVER_ERROR, "internal", "Internal error", detail)
     }
 
+    pub fn overloaded(detail: impl Into<String>) -> Problem {
+        Problem::new(StatusCode::SERVICE_UNAVAILABLE, "overloaded", "Service overloaded", detail)
+    }
+
     pub fn not_found(path: &str) -> Problem {
         Problem::new(StatusCode::NOT_FOUND, "not-found", "Not found", format!("no route for {path}"))
     }
@@ -78,9 +82,14 @@ impl IntoResponse for Problem {
         let body = serde_json::to_vec(&self).unwrap_or_else(|_| b"{}".to_vec());
         let mut res = (status, body).into_response();
         res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static("application/problem+json"));
+        res.extensions_mut().insert(ProblemType(self.kind));
         res
     }
 }
+
+/// The `type` of a problem answer, left in the response's extensions for the metrics middleware.
+#[derive(Debug, Clone)]
+pub struct ProblemType(pub String);
 
 /// RFC 6901 escaping of one reference token.
 pub fn escape_token(s: &str) -> String {

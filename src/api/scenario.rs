@@ -101,7 +101,10 @@ pub fn check(stress: &Option<Stress>, dep: &Option<Dependence>, errs: &mut Vec<V
 /// Validate the portfolio with the other fields' violations, and build the model.
 pub fn model(spec: &PortfolioSpec, limits: &ServiceLimits, mut errs: Vec<Violation>) -> Result<Model, Problem> {
     match build_model(spec, "/portfolio", &limits.portfolio) {
-        Ok(m) if errs.is_empty() => Ok(m),
+        Ok(m) if errs.is_empty() => {
+            crate::api::metrics::exposures_processed(m.exposures);
+            Ok(m)
+        }
         Ok(_) => Err(Problem::invalid(errs)),
         Err(mut v) => {
             errs.append(&mut v);

@@ -40,8 +40,11 @@ pub fn expand(f: &FamilySpec, mut sink: impl FnMut(f64)) {
             }
         }
         FamilySpec::Linear { n, first, last } => {
-            if n == 1 {
-                sink(first);
+            if n <= 1 {
+                // n = 0 is an empty family (and must not reach n - 1 below).
+                if n == 1 {
+                    sink(first);
+                }
                 return;
             }
             let step = (last - first) / (n - 1) as f64;

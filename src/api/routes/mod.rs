@@ -2,8 +2,10 @@
 
 pub mod chart;
 pub mod distribution;
+pub mod docs;
 pub mod health;
 pub mod layers;
+pub mod metrics;
 pub mod page;
 pub mod quantiles;
 pub mod tail;
