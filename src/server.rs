@@ -41,6 +41,7 @@ pub fn router(opts: &Options) -> Router {
         .route("/v1/quantiles", post(routes::quantiles::quantiles))
         .route("/v1/distribution", post(routes::distribution::distribution))
         .route("/v1/layers", post(routes::layers::layers))
+        .route("/v1/contributions", post(routes::contributions::contributions))
         .route("/v1/chart", post(routes::chart::chart))
         .route_layer(
             ServiceBuilder::new()

@@ -194,3 +194,60 @@ fn homogeneous_one_factor_law_approaches_the_vasicek_limit() {
         );
     }
 }
+
+/// Contributions against leaving each exposure out and recomputing by the plain recursion, and the
+/// sensitivity against a central finite difference of the brute-force tail in p_i (the tail is linear in
+/// each p_i, so the difference is exact up to rounding).
+#[test]
+fn contributions_match_leave_one_out_and_finite_differences() {
+    use tailtally::engine::contributions::contributions;
+    use tailtally::engine::moments::Moments;
+    for (n, seed, extra) in [(70usize, 11u64, false), (150, 12, true)] {
+        let ps = portfolio(n, seed);
+        let groups: Vec<(u64, f64)> = if extra { vec![(12, 0.05)] } else { vec![] };
+        let poisson = if extra { 0.4 } else { 0.0 };
+        let model = Model::from_parts(&ps, &groups, poisson);
+        let mean = Moments::of(&model).mean;
+        for k in [1u64, (mean * 0.5) as u64 + 1, mean as u64 + 2, (mean * 2.0) as u64 + 3, (mean * 4.0) as u64 + 5] {
+            let got = contributions(&model, &Moments::of(&model), k);
+            assert_eq!(got.len(), n);
+            for (i, c) in got.iter().enumerate() {
+                let mut rest = ps.clone();
+                rest.remove(i);
+                let rest_model = Model::from_parts(&rest, &groups, poisson);
+                let want_tail = Law::independent(rest_model.clone()).exact(&[(k, Side::Upper)])[0].value;
+                let want_point = Law::independent(rest_model).exact(&[(k - 1, Side::Point)])[0].value;
+                if !extra {
+                    // Outside reference for the Bernoulli-only case: the plain recursion.
+                    let f = brute_pmf(&rest);
+                    let bt: f64 = f.iter().skip(k as usize).sum();
+                    assert!((bt - want_tail).abs() <= 1e-12 * bt.max(1e-300) + 1e-15, "reference itself");
+                    let h = 0.5 * ps[i];
+                    let tail_at = |pi: f64| {
+                        let mut q = ps.clone();
+                        q[i] = pi;
+                        brute_pmf(&q).iter().skip(k as usize).sum::<f64>()
+                    };
+                    let fd = (tail_at(ps[i] + h) - tail_at(ps[i] - h)) / (2.0 * h);
+                    assert!(
+                        (fd - c.sensitivity.p).abs() <= 1e-9 * c.sensitivity.p + 1e-13 / h,
+                        "k = {k}, i = {i}: fd {fd} vs {}",
+                        c.sensitivity.p
+                    );
+                }
+                let rel = |a: f64, b: f64| if b == 0.0 { a.abs() } else { (a / b - 1.0).abs() };
+                assert!(
+                    rel(c.tail_without.p, want_tail) < 1e-10,
+                    "k = {k}, i = {i}: {} vs {want_tail}",
+                    c.tail_without.p
+                );
+                assert!(
+                    rel(c.sensitivity.p, want_point) < 1e-10,
+                    "k = {k}, i = {i}: {} vs {want_point}",
+                    c.sensitivity.p
+                );
+                assert!((c.tail_without.p - want_tail).abs() <= c.tail_without.abs_err + 1e-15 * want_tail);
+            }
+        }
+    }
+}

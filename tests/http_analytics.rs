@@ -115,3 +115,46 @@ async fn bad_analytics_input_points_at_the_field() {
     }
     s.shutdown().await.unwrap();
 }
+
+#[tokio::test]
+async fn contributions_rank_every_exposure_and_refuse_dependence() {
+    let s = start(&[]).await;
+    let body = json!({"portfolio": {"probabilities": [0.1, 0.0, 0.3, 1.0, 0.05], "families": [{"kind": "constant", "n": 3, "probability": 0.2}]},
+        "threshold": 3, "rank_by": "impact"});
+    let (st, _, v) = s.post_json("/v1/contributions", &body).await;
+    assert_eq!(st, 200, "{v}");
+    let rows = v["contributions"].as_array().unwrap();
+    assert_eq!(rows.len(), 8);
+    assert_eq!(v["exposures_ranked"], 8);
+    let tail = v["tail_probability"]["value"].as_f64().unwrap();
+    let mut last = f64::INFINITY;
+    let mut seen = [false; 8];
+    for r in rows {
+        let impact = r["impact"].as_f64().unwrap();
+        assert!(impact <= last, "ranked by impact");
+        last = impact;
+        seen[r["index"].as_u64().unwrap() as usize] = true;
+        // P(S >= k) = P(S_-i >= k) + p_i P(S_-i = k - 1), for every exposure, certain and impossible ones too.
+        let (p, sens, without) = (
+            r["probability"].as_f64().unwrap(),
+            r["sensitivity"].as_f64().unwrap(),
+            r["tail_without"].as_f64().unwrap(),
+        );
+        assert!((without + p * sens - tail).abs() < 1e-13, "{r}");
+    }
+    assert!(seen.iter().all(|&x| x), "every index appears once");
+    let (st, _, v) = s
+        .post_json("/v1/contributions", &json!({"portfolio": {"probabilities": [0.1, 0.2]}, "threshold": 1, "top": 1}))
+        .await;
+    assert_eq!(st, 200);
+    assert_eq!(v["contributions"].as_array().unwrap().len(), 1);
+    let (st, ct, v) = s
+        .post_json(
+            "/v1/contributions",
+            &json!({"portfolio": {"probabilities": [0.1]}, "threshold": 1,
+            "dependence": {"model": "one_factor_gaussian", "rho": 0.2}}),
+        )
+        .await;
+    assert_problem(st, &ct, &v, 422, Some("/dependence"));
+    s.shutdown().await.unwrap();
+}

@@ -15,6 +15,7 @@ use utoipa::OpenApi;
         crate::api::routes::quantiles::quantiles,
         crate::api::routes::distribution::distribution,
         crate::api::routes::layers::layers,
+        crate::api::routes::contributions::contributions,
         crate::api::routes::chart::chart,
         crate::api::routes::page::explorer,
         crate::api::routes::health::healthz,

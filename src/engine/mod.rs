@@ -6,6 +6,7 @@
 //! checked against.
 
 pub mod cgf;
+pub mod contributions;
 pub mod dependence;
 pub mod distribution;
 pub mod edgeworth;

@@ -1,6 +1,7 @@
 //! One file per route.
 
 pub mod chart;
+pub mod contributions;
 pub mod distribution;
 pub mod docs;
 pub mod health;

@@ -58,7 +58,7 @@ pub struct Work {
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-enum Dir {
+pub(crate) enum Dir {
     /// Sum over j >= target (tilt t >= 0).
     Up,
     /// Sum over j <= target (tilt t <= 0).
@@ -174,7 +174,7 @@ pub fn evaluate(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (V
     (out, work)
 }
 
-fn solve_tilt(model: &Model, moments: &Moments, x: f64, dir: Dir) -> f64 {
+pub(crate) fn solve_tilt(model: &Model, moments: &Moments, x: f64, dir: Dir) -> f64 {
     let mean = moments.mean;
     let lo = model.support_min() as f64 + 0.5;
     let x = match model.support_max() {
@@ -260,7 +260,7 @@ fn tail_from(law: &Tilted, job: &Job) -> ExactValue {
 }
 
 /// ln P = K(t) - t x + ln T, and its error bound.
-fn finish(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f64, abs: f64) -> ExactValue {
+pub(crate) fn finish(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f64, abs: f64) -> ExactValue {
     finish_capped(law, x, sum, dsum, terms, rel, abs, 1.0)
 }
 

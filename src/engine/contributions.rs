@@ -1,0 +1,218 @@
+//! Tail drivers: for a threshold k and every Bernoulli exposure i, the sensitivity dP(S >= k)/dp_i, which equals
+//! P(S_{-i} = k - 1) (S_{-i} is the count without exposure i), and the tail P(S_{-i} >= k) with i removed.
+//!
+//! How, in O(n log n) products and without deconvolution. Dividing the law of S by one exposure's factor
+//! (naive deconvolution) subtracts nearly equal numbers and blows up rounding errors; instead every law here
+//! is a product of non-negative factors. The exposures' tilted laws (tilted at the threshold, as in `exact`)
+//! sit in leaf blocks of 32; a binary tree over the blocks holds the product of each subtree. Going down,
+//! the law of everything outside a node (its complement) is the parent's complement times the sibling's
+//! subtree law; at a leaf block that is the law of all other blocks (and the binomial and Poisson parts).
+//! Within a block, the law of its other 31 exposures is a prefix product times a suffix product. Then
+//!   P_t(S_{-i} = k - 1) = sum_m h_i(m) C(k - 1 - m),    (h_i: the block without i; C: the complement)
+//! an O(32) sum, and the tail is the same sum against C's weighted suffix sums
+//!   U(x) = sum_{j >= x} C(j) e^{-t (j - x)}  (so P_t-weighted tail = sum_m h_i(m) U(k - m)),
+//! built once per block by the backward recursion U(x) = C(x) + e^{-t} U(x + 1). Below the mean (t < 0) the
+//! tail is one minus the lower sum, built the same way downwards. Scaling back uses K_{-i}(t) = K(t) - ln M_i(t).
+//! Errors follow the exact engine's model (`exact::window`): relative for the direct products, absolute (L1)
+//! for FFT products and truncation.
+
+use super::cgf::{self, tilt, TiltConsts};
+use super::exact::{self, convolve, leaf, window::Window, Dir, ExactValue, Tilted};
+use super::float::{compose, gamma, log1m_exp, up, U};
+use super::moments::Moments;
+use crate::portfolio::Model;
+
+/// One exposure's figures.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Contribution {
+    /// P(S_{-i} = k - 1) = dP(S >= k) / dp_i.
+    pub sensitivity: ExactValue,
+    /// P(S_{-i} >= k).
+    pub tail_without: ExactValue,
+}
+
+struct Node {
+    law: Window,
+    children: Option<(usize, usize)>,
+    /// First and one-past-last leaf block under this node.
+    blocks: (usize, usize),
+}
+
+fn build(leaves: &[Window], lo: usize, hi: usize, arena: &mut Vec<Node>) -> usize {
+    if hi - lo == 1 {
+        arena.push(Node { law: leaves[lo].clone(), children: None, blocks: (lo, hi) });
+        return arena.len() - 1;
+    }
+    let mid = lo + (hi - lo) / 2;
+    let (l, r) = (build(leaves, lo, mid, arena), build(leaves, mid, hi, arena));
+    let law = convolve::product(&arena[l].law, &arena[r].law);
+    arena.push(Node { law, children: Some((l, r)), blocks: (lo, hi) });
+    arena.len() - 1
+}
+
+fn complements(arena: &[Node], node: usize, comp: Window, out: &mut [Option<Window>]) {
+    match arena[node].children {
+        None => out[arena[node].blocks.0] = Some(comp),
+        Some((l, r)) => {
+            let cl = convolve::product(&comp, &arena[r].law);
+            let cr = convolve::product(&comp, &arena[l].law);
+            complements(arena, l, cl, out);
+            complements(arena, r, cr, out);
+        }
+    }
+}
+
+/// Tilted law (as a plain polynomial from count 0) of the exposures `ps`, by the Bernoulli recursion.
+fn block_law(ps: &[f64], c: &TiltConsts) -> Vec<f64> {
+    let mut w = vec![1.0];
+    for &p in ps {
+        let (q, r) = cgf::tilt_qr(p, c);
+        w.push(0.0);
+        for j in (1..w.len()).rev() {
+            w[j] = w[j] * r + w[j - 1] * q;
+        }
+        w[0] *= r;
+    }
+    w
+}
+
+/// Sensitivities and leave-one-out tails at threshold k, for every entry of `model.bernoulli` in order.
+pub fn contributions(model: &Model, moments: &Moments, k: u64) -> Vec<Contribution> {
+    let n = model.bernoulli.len();
+    if n == 0 {
+        return vec![];
+    }
+    let shift = model.shift;
+    let zero = ExactValue::certain(0.0);
+    let one = ExactValue::certain(1.0);
+    // Below the support of every S_{-i}: none of them reaches k - 1, and all of them reach k.
+    if k <= shift {
+        return vec![Contribution { sensitivity: zero, tail_without: one }; n];
+    }
+    if model.support_max().is_some_and(|m| k > m) {
+        return vec![Contribution { sensitivity: zero, tail_without: zero }; n];
+    }
+    let kf = k as f64 - 0.5;
+    let up_side = kf > moments.mean;
+    let t = exact::solve_tilt(model, moments, kf, if up_side { Dir::Up } else { Dir::Down });
+    let c = TiltConsts::new(t);
+    let sc = cgf::scale(model, t);
+    let blocks: Vec<&[f64]> = model.bernoulli.chunks(leaf::BLOCK).collect();
+    let leaves: Vec<Window> = blocks.iter().map(|b| leaf::bernoulli_block(b, &c)).collect();
+    let mut others = Vec::new();
+    for b in &model.binomials {
+        others.push(leaf::binomial(b.size, b.p, &c));
+    }
+    if model.poisson > 0.0 {
+        others.push(leaf::poisson(model.poisson, &c));
+    }
+    let mut arena = Vec::with_capacity(2 * leaves.len());
+    let root = build(&leaves, 0, leaves.len(), &mut arena);
+    let mut comps: Vec<Option<Window>> = vec![None; leaves.len()];
+    complements(&arena, root, convolve::product_all(others), &mut comps);
+    drop(arena);
+
+    // k' = k - shift in the unshifted coordinates of the windows.
+    let kk = k - shift;
+    let rho = (-t.abs()).exp();
+    // Relative error of a block's 31-exposure law (the recursion's per-exposure error, as in `leaf`) and of
+    // the product of prefix and suffix.
+    let per = compose(cgf::TILT_REL, gamma(2.0));
+    let h_rel = compose((1.0 + per).powi(leaf::BLOCK as i32) - 1.0, gamma(leaf::BLOCK as f64 + 1.0));
+    let mut out = Vec::with_capacity(n);
+    for (bi, ps) in blocks.iter().enumerate() {
+        let cw = comps[bi].take().expect("every block has a complement");
+        let (clo, chi) = (cw.lo, cw.hi());
+        let at = |x: u64| if x >= clo && x <= chi { cw.w[(x - clo) as usize] } else { 0.0 };
+        // Weighted partial sums of the complement: U (upwards, t >= 0) or L (downwards, t < 0).
+        let len = cw.w.len();
+        let mut acc = vec![0.0; len];
+        if up_side {
+            let mut s = 0.0;
+            for (a, &w) in acc.iter_mut().zip(&cw.w).rev() {
+                s = w + rho * s;
+                *a = s;
+            }
+        } else {
+            let mut s = 0.0;
+            for (a, &w) in acc.iter_mut().zip(&cw.w) {
+                s = w + rho * s;
+                *a = s;
+            }
+        }
+        let acc_at = |x: i64| -> f64 {
+            if up_side {
+                if x > chi as i64 {
+                    0.0
+                } else if x < clo as i64 {
+                    acc[0] * rho.powf((clo as i64 - x) as f64)
+                } else {
+                    acc[(x - clo as i64) as usize]
+                }
+            } else if x < clo as i64 {
+                0.0
+            } else if x > chi as i64 {
+                acc[len - 1] * rho.powf((x - chi as i64) as f64)
+            } else {
+                acc[(x - clo as i64) as usize]
+            }
+        };
+        let rel = compose(cw.rel, h_rel);
+        let dbar = len as f64 + leaf::BLOCK as f64;
+        // Prefix and suffix laws of the block.
+        let m = ps.len();
+        let mut prefix = Vec::with_capacity(m + 1);
+        for j in 0..=m {
+            prefix.push(block_law(&ps[..j], &c));
+        }
+        let mut suffix = Vec::with_capacity(m + 1);
+        for j in 0..=m {
+            suffix.push(block_law(&ps[j..], &c));
+        }
+        for (i, &p) in ps.iter().enumerate() {
+            let (a, b) = (&prefix[i], &suffix[i + 1]);
+            let mut h = vec![0.0; a.len() + b.len() - 1];
+            for (x, &va) in a.iter().enumerate() {
+                for (y, &vb) in b.iter().enumerate() {
+                    h[x + y] += va * vb;
+                }
+            }
+            // Scale of S_{-i}: K(t) - ln M_i(t), i.e. phi - phi_i and B - b_i.
+            let ti = tilt(p, &c);
+            let mut s = sc;
+            s.phi = sc.phi - ti.phi;
+            s.phi_err = sc.phi_err + 8.0 * U * ti.phi.abs() + U * s.phi.abs();
+            s.b = sc.b - ti.b as u8 as f64;
+            let tl = Tilted { t, window: Window::point(), scale: s, var: 0.0 };
+            let (mut point, mut tail) = (0.0f64, 0.0f64);
+            for (mm, &hv) in h.iter().enumerate() {
+                if hv == 0.0 {
+                    continue;
+                }
+                let mm = mm as u64;
+                if kk > mm {
+                    point += hv * at(kk - 1 - mm);
+                }
+                let x = if up_side { kk as i64 - mm as i64 } else { kk as i64 - 1 - mm as i64 };
+                tail += hv * acc_at(x);
+            }
+            let terms = h.len();
+            let sensitivity = exact::finish(&tl, k - 1, point, 0.0, terms, rel, cw.abs);
+            let tail_without = if up_side {
+                exact::finish(&tl, k, tail, tail * dbar, terms + len, rel, cw.abs)
+            } else {
+                let lower = exact::finish(&tl, k - 1, tail, tail * dbar, terms + len, rel, cw.abs);
+                let p = (1.0 - lower.p).max(0.0);
+                let abs_err = up(lower.abs_err + U * p);
+                ExactValue {
+                    p,
+                    ln_p: log1m_exp(lower.ln_p),
+                    rel_err: if p > 0.0 { up(abs_err / p) } else { f64::INFINITY },
+                    abs_err,
+                }
+            };
+            out.push(Contribution { sensitivity, tail_without });
+        }
+    }
+    out
+}
