@@ -15,7 +15,7 @@ use utoipa::ToSchema;
 
 /// Default and largest number of quadrature nodes.
 pub const DEFAULT_NODES: usize = 64;
-pub const MAX_NODES: usize = 64;
+pub const MAX_NODES: usize = 256;
 
 /// How exposures depend on each other.
 #[derive(Debug, Clone, Copy, PartialEq, Deserialize, Serialize, ToSchema)]

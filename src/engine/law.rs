@@ -10,7 +10,7 @@
 //! 1.5 times the nodes as the check was tried first and undershot the error against a 256-node reference by
 //! up to 10 times at 10^4 identical exposures.) For large portfolios the conditional law given the factor is nearly deterministic, the integrand
 //! in the factor is close to a step and Gauss-Hermite converges slowly: the estimate then grows (about 3e-2
-//! at 10^5 identical exposures with 64 nodes), which is the signal to ask for more nodes.
+//! at 10^5 identical exposures with 64 nodes, about 1e-2 with 256), which is the signal to ask for more nodes.
 //! Because that last term is an estimate, every answer under dependence has bound kind `estimated`.
 
 use super::dependence::{conditional, Dependence, Thresholds};

@@ -1,11 +1,13 @@
 //! Gauss-Hermite quadrature for expectations over a standard normal factor: E[g(Z)] ~ sum_j w_j g(z_j) with
 //! sum_j w_j = 1, exact for polynomials of degree up to 2n - 1.
 //!
-//! Nodes are the roots of the probabilists' Hermite polynomial He_n, found by Newton's method on the
-//! orthonormal recurrence (which stays in range for n in the hundreds, where He_n itself overflows), started
-//! from the asymptotic first root and from the previous roots (the classical scheme; Press et al., "Numerical
-//! Recipes", 3rd ed., section 4.6). Weights are w_j = 1 / sum_k h_k(z_j)^2 with h_k the orthonormal
-//! polynomials (Christoffel numbers), which needs no derivative and sums to 1 to rounding.
+//! Nodes are the roots of the probabilists' Hermite polynomial He_n: the eigenvalues of its Jacobi matrix
+//! (zero diagonal, off-diagonal sqrt(1), ..., sqrt(n - 1); Golub and Welsch, "Calculation of Gauss quadrature
+//! rules", Math. Comp. 23 (1969)), found by the implicit QL iteration for symmetric tridiagonal matrices, then
+//! polished by one Newton step on the orthonormal recurrence. Weights are the Christoffel numbers
+//! w_j = 1 / sum_{k<n} h_k(z_j)^2 with h_k the orthonormal polynomials; the recurrence is rescaled as it grows,
+//! so rules with hundreds of nodes (where h_k overflows at the outer nodes) come out right, their outermost
+//! weights underflowing to 0 as they should.
 
 /// Nodes and weights of the n-point rule for N(0, 1), nodes ascending.
 #[derive(Debug, Clone, PartialEq)]
@@ -14,62 +16,115 @@ pub struct Rule {
     pub weights: Vec<f64>,
 }
 
-/// Orthonormal Hermite values h_0..h_n at x (h_k = He_k / sqrt(k!)): (h_n, h_{n-1}, sum_{k<n} h_k^2).
-fn orthonormal(n: usize, x: f64) -> (f64, f64, f64) {
+/// Orthonormal Hermite values at x (h_k = He_k / sqrt(k!)), all divided by one factor F to stay in range:
+/// (h_n / F, h_{n-1} / F, sum_{k<n} h_k^2 / F^2, ln F).
+fn orthonormal(n: usize, x: f64) -> (f64, f64, f64, f64) {
     let (mut prev, mut cur) = (0.0, 1.0);
-    let mut sq = 0.0;
+    let (mut sq, mut ln_f) = (0.0, 0.0);
     for k in 0..n {
         sq += cur * cur;
         // sqrt(k+1) h_{k+1} = x h_k - sqrt(k) h_{k-1}.
         let next = (x * cur - (k as f64).sqrt() * prev) / ((k + 1) as f64).sqrt();
         prev = cur;
         cur = next;
+        if cur.abs() > 1e100 {
+            prev *= 1e-100;
+            cur *= 1e-100;
+            sq *= 1e-200;
+            ln_f += 100.0 * std::f64::consts::LN_10;
+        }
     }
-    (cur, prev, sq)
+    (cur, prev, sq, ln_f)
+}
+
+/// Eigenvalues of the symmetric tridiagonal matrix with diagonal d and off-diagonal e (e[i] couples i and
+/// i + 1), by the implicit QL iteration with Wilkinson shifts (the classical "tqli").
+fn tridiagonal_eigenvalues(mut d: Vec<f64>, mut e: Vec<f64>) -> Vec<f64> {
+    let n = d.len();
+    e.resize(n, 0.0);
+    for l in 0..n {
+        let mut iter = 0;
+        loop {
+            let mut m = l;
+            while m + 1 < n {
+                let dd = d[m].abs() + d[m + 1].abs();
+                if e[m].abs() <= f64::EPSILON * dd {
+                    break;
+                }
+                m += 1;
+            }
+            if m == l {
+                break;
+            }
+            iter += 1;
+            assert!(iter < 100, "QL iteration did not converge");
+            let mut g = (d[l + 1] - d[l]) / (2.0 * e[l]);
+            let mut r = g.hypot(1.0);
+            g = d[m] - d[l] + e[l] / (g + r.copysign(g));
+            let (mut s, mut c, mut p) = (1.0, 1.0, 0.0);
+            let mut i = m;
+            let mut deflated = false;
+            while i > l {
+                i -= 1;
+                let f = s * e[i];
+                let b = c * e[i];
+                r = f.hypot(g);
+                e[i + 1] = r;
+                if r == 0.0 {
+                    d[i + 1] -= p;
+                    e[m] = 0.0;
+                    deflated = true;
+                    break;
+                }
+                s = f / r;
+                c = g / r;
+                g = d[i + 1] - p;
+                r = (d[i] - g) * s + 2.0 * c * b;
+                p = s * r;
+                d[i + 1] = g + p;
+                g = c * r - b;
+            }
+            if deflated {
+                continue;
+            }
+            d[l] -= p;
+            e[l] = g;
+            e[m] = 0.0;
+        }
+    }
+    d
 }
 
 impl Rule {
     pub fn new(n: usize) -> Rule {
         assert!(n >= 1, "a rule needs at least one node");
-        let mut roots = vec![0.0f64; n];
-        let m = n.div_ceil(2);
-        // Largest roots first, by symmetry only the non-negative half.
-        let mut x = 0.0;
-        for i in 0..m {
-            x = match i {
-                // Asymptotic guesses for the largest roots of H_n (physicists'), scaled by sqrt(2).
-                0 => ((2 * n + 1) as f64).sqrt() - 1.85575 * ((2 * n + 1) as f64).powf(-1.0 / 6.0),
-                1 => x - 1.14 * (n as f64).powf(0.426) / x,
-                2 => 1.86 * x - 0.86 * roots[0] / std::f64::consts::SQRT_2,
-                3 => 1.91 * x - 0.91 * roots[1] / std::f64::consts::SQRT_2,
-                _ => 2.0 * x - roots[i - 2] / std::f64::consts::SQRT_2,
-            };
-            for _ in 0..100 {
-                // Newton on H_n in physicists' scaling: h_n'(y) relates to h_{n-1}.
-                let (hn, hn1, _) = orthonormal(n, x * std::f64::consts::SQRT_2);
-                // d/dx h_n(x) = sqrt(n) h_{n-1}(x) for orthonormal probabilists' polynomials.
-                let d = (n as f64).sqrt() * hn1 * std::f64::consts::SQRT_2;
-                let step = hn / d;
-                x -= step;
-                if step.abs() <= 1e-15 * x.abs().max(1.0) {
-                    break;
-                }
+        let off: Vec<f64> = (1..n).map(|k| (k as f64).sqrt()).collect();
+        let mut nodes = tridiagonal_eigenvalues(vec![0.0; n], off);
+        for x in nodes.iter_mut() {
+            // d/dx h_n = sqrt(n) h_{n-1}; the common scale factor cancels in the step.
+            let (hn, hn1, _, _) = orthonormal(n, *x);
+            if hn1 != 0.0 {
+                *x -= hn / ((n as f64).sqrt() * hn1);
             }
-            roots[i] = x * std::f64::consts::SQRT_2;
         }
-        let nodes = &roots[..m];
-        // Mirror: roots[i] for i < m are the positive half (descending); the rule is symmetric.
-        let mut all: Vec<f64> = nodes.iter().map(|&z| -z).collect();
-        let start = if n % 2 == 1 { 1 } else { 0 };
-        all.extend(nodes.iter().rev().skip(start).copied());
+        nodes.sort_by(|a, b| a.total_cmp(b));
+        // The rule is symmetric: average each node with its mirror so that odd moments vanish to rounding.
+        for i in 0..n / 2 {
+            let v = 0.5 * (nodes[n - 1 - i] - nodes[i]);
+            nodes[i] = -v;
+            nodes[n - 1 - i] = v;
+        }
         if n % 2 == 1 {
-            // The middle root is 0 exactly.
-            let mid = n / 2;
-            all[mid] = 0.0;
+            nodes[n / 2] = 0.0;
         }
-        all.sort_by(|a, b| a.partial_cmp(b).unwrap());
-        let weights: Vec<f64> = all.iter().map(|&z| 1.0 / orthonormal(n, z).2).collect();
-        Rule { nodes: all, weights }
+        let weights: Vec<f64> = nodes
+            .iter()
+            .map(|&z| {
+                let (_, _, sq, ln_f) = orthonormal(n, z);
+                (-2.0 * ln_f).exp() / sq
+            })
+            .collect();
+        Rule { nodes, weights }
     }
 
     /// E[g(Z)] by the rule.
@@ -85,7 +140,7 @@ mod tests {
     /// Moments of N(0, 1): E Z^(2k) = (2k - 1)!!, odd moments 0 (exact for degree <= 2n - 1).
     #[test]
     fn rules_integrate_normal_moments() {
-        for n in [1usize, 2, 5, 16, 33, 64, 96, 128] {
+        for n in [1usize, 2, 5, 16, 33, 64, 96, 128, 256, 512] {
             let r = Rule::new(n);
             assert_eq!(r.nodes.len(), n);
             assert!(r.nodes.windows(2).all(|w| w[0] < w[1]), "n = {n}: nodes not distinct and ascending");
