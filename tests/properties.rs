@@ -1,0 +1,137 @@
+//! Property tests (proptest) of the request path and of identities the answers must satisfy, on random
+//! inputs: the CI-side counterpart of the cargo-fuzz target in fuzz/.
+
+use proptest::prelude::*;
+use serde_json::{json, Value};
+use tailtally::api::routes::{contributions, layers, quantiles, tail};
+use tailtally::config::{Options, ServiceLimits};
+use tailtally::engine::contributions::contributions as engine_contributions;
+use tailtally::engine::law::Law;
+use tailtally::engine::moments::Moments;
+use tailtally::engine::quantiles::quantiles as engine_quantiles;
+use tailtally::engine::{MethodId, Side};
+use tailtally::portfolio::Model;
+
+fn limits() -> ServiceLimits {
+    let mut l = ServiceLimits::from_options(&Options::default());
+    l.max_thresholds = 20;
+    l.portfolio.max_listed_exposures = 200;
+    l.portfolio.max_total_exposures = 100_000;
+    l
+}
+
+/// Numbers a client might send, hostile ones included.
+fn number() -> impl Strategy<Value = Value> {
+    prop_oneof![
+        40 => (0.0f64..1.0).prop_map(|x| json!(x)),
+        3 => prop_oneof![Just(-1.0), Just(1.5), Just(0.0), Just(1.0), Just(1e-300), Just(1e300), Just(-0.0)].prop_map(|x| json!(x)),
+        6 => (0u64..50).prop_map(|x| json!(x)),
+        1 => Just(json!(u64::MAX)),
+        1 => Just(json!(-3)),
+        1 => Just(json!("0.5")),
+        1 => Just(Value::Null),
+    ]
+}
+
+/// Counts a client might send: mostly small integers, sometimes not.
+fn count() -> impl Strategy<Value = Value> {
+    prop_oneof![
+        40 => (0u64..40).prop_map(|x| json!(x)),
+        1 => Just(json!(u64::MAX)),
+        1 => Just(json!(-3)),
+        1 => Just(json!(2.5)),
+        1 => Just(json!("7")),
+        1 => Just(Value::Null),
+    ]
+}
+
+fn portfolio() -> impl Strategy<Value = Value> {
+    (
+        prop::collection::vec(number(), 0..12),
+        prop::collection::vec((count(), number()), 0..3),
+        prop::collection::vec(number(), 0..2),
+        prop::option::of((count(), number())),
+    )
+        .prop_map(|(ps, groups, rates, fam)| {
+            let mut v = json!({"probabilities": ps,
+                "groups": groups.into_iter().map(|(s, p)| json!({"size": s, "probability": p})).collect::<Vec<_>>(),
+                "poisson_rates": rates});
+            if let Some((n, p)) = fam {
+                v["families"] = json!([{"kind": "constant", "n": n, "probability": p}]);
+            }
+            v
+        })
+}
+
+/// Either an answer or a problem with status 413 or 422 and at least one pointer for 422.
+fn check<T>(r: Result<T, tailtally::api::problem::Problem>) {
+    if let Err(p) = r {
+        assert!(p.status == 413 || p.status == 422, "status {}", p.status);
+        if p.status == 422 {
+            assert!(!p.errors.is_empty(), "a 422 names its fields");
+        }
+    }
+}
+
+/// The generator must reach the computation, not only the parser: most generated bodies deserialise.
+#[test]
+fn generated_requests_mostly_reach_the_computation() {
+    use proptest::strategy::ValueTree;
+    use proptest::test_runner::TestRunner;
+    let mut runner = TestRunner::deterministic();
+    let strategy = (portfolio(), prop::collection::vec(count(), 1..4));
+    let (mut parsed, mut valid) = (0, 0);
+    for _ in 0..300 {
+        let (p, ks) = strategy.new_tree(&mut runner).unwrap().current();
+        let body = json!({"portfolio": p, "thresholds": ks});
+        if let Ok(req) = serde_json::from_value::<tailtally::api::types::TailRequest>(body) {
+            parsed += 1;
+            valid += tail::compute(&req, &limits()).is_ok() as usize;
+        }
+    }
+    eprintln!("parsed {parsed}, answered {valid} of 300");
+    assert!(parsed >= 60 && valid >= 30, "parsed {parsed}, answered {valid} of 300");
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 300, .. ProptestConfig::default() })]
+
+    /// Whatever the body, parsing and computing never panic, and refusals are 413/422 with pointers.
+    #[test]
+    fn any_request_gets_an_answer_or_a_problem(p in portfolio(), ks in prop::collection::vec(count(), 0..4),
+            side in prop_oneof![Just("upper"), Just("lower"), Just("point")], levels in prop::collection::vec(number(), 0..3)) {
+        let l = limits();
+        let t = json!({"portfolio": p, "thresholds": ks, "side": side, "methods": ["exact", "normal", "poisson", "saddlepoint", "auto"]});
+        if let Ok(req) = serde_json::from_value::<tailtally::api::types::TailRequest>(t) {
+            check(tail::compute(&req, &l));
+        }
+        let q = json!({"portfolio": p, "levels": levels, "methods": ["exact", "normal"]});
+        if let Ok(req) = serde_json::from_value::<quantiles::QuantilesRequest>(q) {
+            check(quantiles::compute(&req, &l));
+        }
+        let y = json!({"portfolio": p, "layers": [{"attachment": 2, "limit": 3}], "tail_levels": levels});
+        if let Ok(req) = serde_json::from_value::<layers::LayersRequest>(y) {
+            check(layers::compute(&req, &l));
+        }
+        let c = json!({"portfolio": p, "threshold": 2});
+        if let Ok(req) = serde_json::from_value::<contributions::ContributionsRequest>(c) {
+            check(contributions::compute(&req, &l));
+        }
+    }
+
+    /// P(S >= k) = P(S without i >= k) + p_i P(S without i = k - 1), and the quantile brackets its level.
+    #[test]
+    fn answers_satisfy_their_identities(ps in prop::collection::vec(1e-9f64..0.999, 1..60), k in 0u64..30,
+            level in 0.001f64..0.999) {
+        let model = Model::from_parts(&ps, &[(3, 0.2)], 0.0);
+        let m = Moments::of(&model);
+        let law = Law::independent(model.clone());
+        let tail = law.exact(&[(k, Side::Upper)])[0].value;
+        for (c, &p) in engine_contributions(&model, &m, k).iter().zip(&ps) {
+            let lhs = c.tail_without.p + p * c.sensitivity.p;
+            prop_assert!((lhs - tail).abs() <= 1e-12 * tail.max(1e-300) + 1e-15, "{lhs} vs {tail}");
+        }
+        let q = &engine_quantiles(&law, &[level], MethodId::Exact, None)[0];
+        prop_assert!(q.cdf_below.value < level && level <= q.cdf_at_count.value);
+    }
+}
