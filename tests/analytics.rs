@@ -251,3 +251,18 @@ fn contributions_match_leave_one_out_and_finite_differences() {
         }
     }
 }
+
+/// A tiny Poisson rate tilted far (t beyond 709, where e^t alone overflows) once panicked in the Poisson
+/// leaf. Reference: P(S >= 3) for Bernoulli(1/2) + Poisson(lambda) is (1/2)(P(N >= 2) + P(N >= 3)) with
+/// P(N >= j) = lambda^j / j! (1 + O(lambda)), closed form.
+#[test]
+fn tiny_poisson_rates_tilted_far_stay_finite() {
+    for lam in [1e-300f64, 5e-324] {
+        let law = Law::independent(Model::from_parts(&[0.5], &[], lam));
+        let v = law.exact(&[(3, Side::Upper), (1_000_000_000, Side::Upper)]);
+        // P(N >= 3) is lambda times smaller than P(N >= 2): negligible here.
+        let want = (0.5f64).ln() + lam.ln() * 2.0 - 2f64.ln();
+        assert!((v[0].ln_value - want).abs() < 1e-9 * want.abs(), "{} vs {want}", v[0].ln_value);
+        assert!(v[1].ln_value.is_finite() && v[1].ln_value < -7e11);
+    }
+}

@@ -24,6 +24,16 @@ pub struct CgfValue {
     pub k4: f64,
 }
 
+/// The tilted Poisson rate lambda e^t, formed so that it does not overflow when e^t alone would (a tiny rate
+/// tilted far: t beyond 709 with lambda e^t still moderate).
+pub fn tilted_rate(lambda: f64, t: f64) -> f64 {
+    if t < 700.0 {
+        lambda * t.exp()
+    } else {
+        (lambda.ln() + t).exp()
+    }
+}
+
 /// Quantities of t computed once per tilt and shared by every exposure.
 #[derive(Debug, Clone, Copy)]
 pub struct TiltConsts {
@@ -204,7 +214,8 @@ fn finish_scale(model: &Model, c: &TiltConsts, mut phi: Sum, mut err: f64, mut b
         b += if x.b { m } else { 0.0 };
     }
     if model.poisson > 0.0 {
-        let v = model.poisson * c.em1;
+        // lambda (e^t - 1), without overflow where e^t alone overflows.
+        let v = if c.t < 700.0 { model.poisson * c.em1 } else { tilted_rate(model.poisson, c.t) - model.poisson };
         phi.add(v);
         abs += v.abs();
     }
@@ -255,7 +266,7 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
         add(b.size as f64, b.p);
     }
     let lam = model.poisson;
-    let extra = if lam > 0.0 { lam * c.et } else { 0.0 };
+    let extra = if lam > 0.0 { tilted_rate(lam, t) } else { 0.0 };
     let shift = model.shift as f64;
     CgfValue { t, k1: k[0] + extra + shift, k2: k[1] + extra, k3: k[2] + extra, k4: k[3] + extra }
 }
