@@ -76,9 +76,11 @@ pub struct DistributionResponse {
         (status = 200, description = "pmf, cdf and survival over the range (CSV with `Accept: text/csv`)",
             content((DistributionResponse = "application/json"), (String = "text/csv"))),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn distribution(

@@ -26,10 +26,11 @@ use utoipa::ToSchema;
 pub struct QuantilesRequest {
     pub portfolio: PortfolioSpec,
     /// Levels strictly inside (0, 1).
-    #[schema(example = json!([0.95, 0.99, 0.995]))]
+    #[schema(example = json!([0.95, 0.99, 0.995]), min_items = 1)]
     pub levels: Vec<f64>,
     /// Methods; each level gets one quantile per method (default `exact`).
     #[serde(default = "default_methods")]
+    #[schema(min_items = 1)]
     pub methods: Vec<MethodId>,
     #[serde(default)]
     pub tolerance: Option<Tolerance>,
@@ -83,9 +84,11 @@ pub struct QuantilesResponse {
     responses(
         (status = 200, description = "One quantile per level and method", body = QuantilesResponse),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn quantiles(
