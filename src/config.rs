@@ -113,6 +113,10 @@ pub struct BatchLimits {
     pub line_timeout: std::time::Duration,
     /// Lines computed at once; answers still leave in input order.
     pub parallelism: usize,
+    /// Longest wait for more input before the batch ends with a problem line (None: wait for ever, as
+    /// `tailtally eval` does on a terminal). Over HTTP it keeps a stalled client from holding its admission
+    /// turn for ever, now that the batch has no whole-request timeout.
+    pub read_idle_timeout: Option<std::time::Duration>,
 }
 
 impl BatchLimits {
@@ -125,6 +129,7 @@ impl BatchLimits {
             max_lines: o.max_batch_lines,
             line_timeout: o.request_timeout(),
             parallelism: cores.min(o.max_concurrency).max(1),
+            read_idle_timeout: Some(o.request_timeout()),
         }
     }
 }

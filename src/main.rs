@@ -78,7 +78,11 @@ async fn eval(file: Option<std::path::PathBuf>, opts: &tailtally::config::Option
     });
     let chunks = futures_util::stream::unfold(rx, |mut rx| async move { rx.recv().await.map(|c| (c, rx)) });
     let limits = std::sync::Arc::new(tailtally::config::ServiceLimits::from_options(opts));
-    let batch = tailtally::config::BatchLimits::from_options(opts);
+    // A pipe or a terminal may pause for as long as it likes: no idle limit offline.
+    let batch = tailtally::config::BatchLimits {
+        read_idle_timeout: None,
+        ..tailtally::config::BatchLimits::from_options(opts)
+    };
     let answers = tailtally::api::batch::answers(Box::pin(chunks), limits, batch);
     futures_util::pin_mut!(answers);
     let stdout = std::io::stdout();

@@ -280,3 +280,54 @@ fn a_streaming_batch_holds_its_admission_turn_until_its_answer_ends() {
         p.request("POST", "/v1/tail", Some(b"{\"portfolio\": {\"probabilities\": [0.5]}, \"thresholds\": [1]}"));
     assert_eq!(after.status, 200, "{}", after.body);
 }
+
+#[test]
+fn a_client_that_expects_100_continue_is_told_to_send_the_body_before_any_answer() {
+    use std::io::{Read, Write};
+    let p = Process::start(&[]);
+    let body = json!({"id": 1, "tail": {"portfolio": {"probabilities": [0.5]}, "thresholds": [1]}}).to_string() + "\n";
+    let mut stream = std::net::TcpStream::connect(p.addr).unwrap();
+    stream.set_read_timeout(Some(common::HANG_GUARD)).unwrap();
+    let head = format!(
+        "POST /v1/batch HTTP/1.1\r\nhost: {}\r\ncontent-type: {NDJSON}\r\ncontent-length: {}\r\nexpect: 100-continue\r\nconnection: close\r\n\r\n",
+        p.addr,
+        body.len()
+    );
+    stream.write_all(head.as_bytes()).unwrap();
+    let mut seen = Vec::new();
+    let mut buf = [0u8; 1024];
+    while !seen.windows(4).any(|w| w == b"\r\n\r\n") {
+        let n = stream.read(&mut buf).unwrap();
+        assert!(n > 0, "closed: {}", String::from_utf8_lossy(&seen));
+        seen.extend_from_slice(&buf[..n]);
+    }
+    let text = String::from_utf8_lossy(&seen).to_string();
+    assert!(text.starts_with("HTTP/1.1 100 Continue\r\n"), "{text}");
+    stream.write_all(body.as_bytes()).unwrap();
+    stream.read_to_end(&mut seen).unwrap();
+    let text = String::from_utf8(seen).unwrap();
+    assert!(text.contains("HTTP/1.1 200 OK") && text.contains("\"id\":1,\"tail\""), "{text}");
+}
+
+#[test]
+fn a_stalled_body_ends_the_batch_with_a_problem_line_and_frees_the_turn() {
+    use std::io::{Read, Write};
+    let p = Process::start(&["--request-timeout-ms", "300", "--max-concurrency", "1"]);
+    let first = json!({"id": 1, "tail": {"portfolio": {"probabilities": [0.5]}, "thresholds": [1]}}).to_string() + "\n";
+    let mut stream = std::net::TcpStream::connect(p.addr).unwrap();
+    stream.set_read_timeout(Some(common::HANG_GUARD)).unwrap();
+    // The body is announced longer than what is sent, and the rest never comes.
+    let head = format!(
+        "POST /v1/batch HTTP/1.1\r\nhost: {}\r\ncontent-type: {NDJSON}\r\ncontent-length: {}\r\nconnection: close\r\n\r\n",
+        p.addr,
+        first.len() + 1000
+    );
+    stream.write_all(head.as_bytes()).unwrap();
+    stream.write_all(first.as_bytes()).unwrap();
+    let mut seen = Vec::new();
+    let _ = stream.read_to_end(&mut seen);
+    let text = String::from_utf8_lossy(&seen).to_string();
+    assert!(text.contains("\"id\":1,\"tail\""), "{text}");
+    assert!(text.contains("line 2: the input could not be read further: no input for 300 ms"), "{text}");
+    p.wait_for_metric("tailtally_compute_running ", 0.0);
+}

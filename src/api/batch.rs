@@ -107,7 +107,12 @@ impl LineSplitter {
 }
 
 /// The items of a chunked input, at most `max_lines` lines and then one `TooMany`; read lazily.
-pub fn items<S, E>(chunks: S, max_line_bytes: usize, max_lines: u64) -> impl Stream<Item = Item> + Send
+pub fn items<S, E>(
+    chunks: S,
+    max_line_bytes: usize,
+    max_lines: u64,
+    idle: Option<std::time::Duration>,
+) -> impl Stream<Item = Item> + Send
 where
     S: Stream<Item = Result<Bytes, E>> + Send + Unpin,
     E: std::fmt::Display,
@@ -151,7 +156,19 @@ where
             if st.input_done {
                 return None;
             }
-            match st.chunks.next().await {
+            let next = match idle {
+                Some(d) => match tokio::time::timeout(d, st.chunks.next()).await {
+                    Ok(next) => next,
+                    Err(_) => {
+                        st.input_done = true;
+                        let error = format!("no input for {} ms (see --request-timeout-secs)", d.as_millis());
+                        st.pending.push_back(Item::ReadError { no: st.split.line_no(), error });
+                        continue;
+                    }
+                },
+                None => st.chunks.next().await,
+            };
+            match next {
                 Some(Ok(b)) => st.split.push(&b, &mut st.pending),
                 Some(Err(e)) => {
                     st.input_done = true;
@@ -182,7 +199,7 @@ where
     E: std::fmt::Display,
 {
     let (max_line, max_lines, timeout) = (batch.max_line_bytes, batch.max_lines, batch.line_timeout);
-    items(chunks, max_line, max_lines)
+    items(chunks, max_line, max_lines, batch.read_idle_timeout)
         .map(move |item| {
             let limits = limits.clone();
             async move {

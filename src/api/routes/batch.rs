@@ -11,7 +11,7 @@ use crate::api::problem::Problem;
 use crate::api::{Admitted, AppState};
 use axum::body::Body;
 use axum::extract::{Request, State};
-use axum::http::{header, HeaderValue};
+use axum::http::{header, HeaderValue, StatusCode};
 use axum::response::{IntoResponse, Response};
 use futures_util::StreamExt;
 
@@ -30,7 +30,8 @@ Blank lines are skipped. Each line may be as long as `--max-body-bytes`; a batch
 /// kind, invalid request; pointers relative to the line's object, e.g. `/tail/thresholds/0`, and the line
 /// number in `detail`). A bad line never stops the batch. After `--max-batch-lines` lines the stream ends
 /// with one 413 problem line and the rest of the body is not read. Each line has the request timeout as its
-/// limit (a 408 problem line beyond); the batch as a whole has none.
+/// limit (a 408 problem line beyond), and so has each wait for more of the body (the answer then ends with a
+/// problem line); the batch as a whole has none.
 #[utoipa::path(
     post, path = "/v1/batch", tag = "analytics",
     request_body(
@@ -41,6 +42,7 @@ Blank lines are skipped. Each line may be as long as `--max-body-bytes`; a batch
         (status = 200, description = "One NDJSON answer line per request line, in input order: `{\"id\": ..., \"<kind>\": <response>}` or `{\"id\": ..., \"problem\": <Problem>}`",
             body = String, content_type = "application/x-ndjson",
             example = json!("{\"id\":\"q\",\"problem\":{\"type\":\"/problems/invalid-request\",\"title\":\"Invalid request\",\"status\":422,\"detail\":\"line 2: /quantiles/levels/0: must be strictly between 0 and 1, got 2\",\"errors\":[{\"pointer\":\"/quantiles/levels/0\",\"detail\":\"must be strictly between 0 and 1, got 2\"}]}}\n")),
+        (status = 408, description = "No body arrived within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not NDJSON", body = Problem, content_type = "application/problem+json"),
         (status = 503, description = "All computing slots busy and the queue full", body = Problem, content_type = "application/problem+json"),
     )
@@ -52,7 +54,21 @@ pub async fn batch(State(state): State<AppState>, mut req: Request) -> Result<Re
         return Err(Problem::unsupported_media(format!("expected Content-Type: {NDJSON}, got {ctype:?}")));
     }
     let admitted = req.extensions_mut().remove::<Admitted>();
-    let chunks = req.into_body().into_data_stream();
+    let mut chunks = req.into_body().into_data_stream();
+    // Read the first chunk before answering: a client that sent `Expect: 100-continue` is told to go on
+    // only when the body is first read, and would otherwise wait (curl: one second) for the signal.
+    let first = match state.batch.read_idle_timeout {
+        Some(d) => tokio::time::timeout(d, chunks.next()).await.map_err(|_| {
+            Problem::new(
+                StatusCode::REQUEST_TIMEOUT,
+                "timeout",
+                "Request timeout",
+                "no body arrived within the request timeout (see --request-timeout-secs, --request-timeout-ms)",
+            )
+        })?,
+        None => chunks.next().await,
+    };
+    let chunks = futures_util::stream::iter(first).chain(chunks);
     let answers = batch::answers(chunks, state.limits.clone(), state.batch.clone()).map(move |a| {
         // The admission turn lives as long as the stream: the batch keeps computing after this handler returns.
         let _turn = &admitted;
