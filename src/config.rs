@@ -19,6 +19,12 @@ pub enum Command {
     Serve,
     /// Print the OpenAPI document.
     Openapi,
+    /// Answer a batch of NDJSON request lines (the format of POST /v1/batch) from FILE, or from standard
+    /// input when FILE is absent or `-`; answers go to standard output in input order.
+    Eval {
+        /// The batch file; `-` or absent for standard input.
+        file: Option<std::path::PathBuf>,
+    },
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -47,6 +53,10 @@ pub struct Options {
     /// Work budget per request: exposures x thresholds (the exact method's cost scale).
     #[arg(long, env = "TAILTALLY_MAX_WORK", default_value_t = 2e9, global = true)]
     pub max_work: f64,
+    /// Most lines in one batch (POST /v1/batch, `tailtally eval`); the answer stream ends with one 413
+    /// problem line where the next line would begin.
+    #[arg(long, env = "TAILTALLY_MAX_BATCH_LINES", default_value_t = 100_000, global = true)]
+    pub max_batch_lines: u64,
     /// Seconds before a computing request (POST /v1/...) is answered with 408.
     #[arg(long, env = "TAILTALLY_REQUEST_TIMEOUT_SECS", default_value_t = 60, global = true)]
     pub request_timeout_secs: u64,
@@ -90,6 +100,38 @@ pub struct ServiceLimits {
     pub portfolio: Limits,
     pub max_thresholds: usize,
     pub max_work: f64,
+}
+
+/// Limits of a batch (POST /v1/batch and `tailtally eval`) beyond those of each line's request.
+#[derive(Debug, Clone)]
+pub struct BatchLimits {
+    /// Longest line, in bytes (`--max-body-bytes`: a line is one request body).
+    pub max_line_bytes: usize,
+    /// Most non-blank lines answered.
+    pub max_lines: u64,
+    /// Time one line may compute before it is answered with a 408 problem line.
+    pub line_timeout: std::time::Duration,
+    /// Lines computed at once; answers still leave in input order.
+    pub parallelism: usize,
+    /// Longest wait for more input before the batch ends with a problem line (None: wait for ever, as
+    /// `tailtally eval` does on a terminal). Over HTTP it keeps a stalled client from holding its admission
+    /// turn for ever, now that the batch has no whole-request timeout.
+    pub read_idle_timeout: Option<std::time::Duration>,
+}
+
+impl BatchLimits {
+    pub fn from_options(o: &Options) -> Self {
+        // A batch holds one admission turn; it may use the cores, but not more computing threads than the
+        // service would run for separate requests.
+        let cores = std::thread::available_parallelism().map_or(2, |n| n.get());
+        BatchLimits {
+            max_line_bytes: o.max_body_bytes,
+            max_lines: o.max_batch_lines,
+            line_timeout: o.request_timeout(),
+            parallelism: cores.min(o.max_concurrency).max(1),
+            read_idle_timeout: Some(o.request_timeout()),
+        }
+    }
 }
 
 impl ServiceLimits {

@@ -1,4 +1,5 @@
-//! Command line: `tailtally` (or `tailtally serve`) serves the API; `tailtally openapi` prints its document.
+//! Command line: `tailtally` (or `tailtally serve`) serves the API; `tailtally openapi` prints its document;
+//! `tailtally eval [FILE]` answers a batch of NDJSON request lines (the format of POST /v1/batch) offline.
 
 use clap::Parser;
 use tailtally::config::{Cli, Command};
@@ -12,6 +13,7 @@ async fn main() -> std::process::ExitCode {
             print!("{}", tailtally::api::openapi::pretty_json());
             std::process::ExitCode::SUCCESS
         }
+        Command::Eval { file } => eval(file, &cli.options).await,
         Command::Serve => {
             telemetry::init(cli.options.log_format);
             let app = match server::App::bind(&cli.options).await {
@@ -34,4 +36,68 @@ async fn main() -> std::process::ExitCode {
             }
         }
     }
+}
+
+/// `tailtally eval`: the batch's answers to standard output, in input order, through the same line handling
+/// as POST /v1/batch. Problem lines are answers (exit 0); only failing to read the input or to write the
+/// output is an error (exit 1).
+async fn eval(file: Option<std::path::PathBuf>, opts: &tailtally::config::Options) -> std::process::ExitCode {
+    use futures_util::StreamExt;
+    use std::io::{Read, Write};
+    let input: Box<dyn Read + Send> = match file.as_deref() {
+        None => Box::new(std::io::stdin()),
+        Some(p) if p == std::path::Path::new("-") => Box::new(std::io::stdin()),
+        Some(p) => match std::fs::File::open(p) {
+            Ok(f) => Box::new(f),
+            Err(e) => {
+                eprintln!("tailtally: cannot open {}: {e}", p.display());
+                return std::process::ExitCode::FAILURE;
+            }
+        },
+    };
+    // The input is read on its own thread, a few chunks ahead of the computation and no more.
+    let (tx, rx) = tokio::sync::mpsc::channel::<std::io::Result<bytes::Bytes>>(4);
+    std::thread::spawn(move || {
+        let mut input = input;
+        loop {
+            let mut buf = vec![0u8; 64 * 1024];
+            let chunk = match input.read(&mut buf) {
+                Ok(0) => return,
+                Ok(n) => {
+                    buf.truncate(n);
+                    Ok(bytes::Bytes::from(buf))
+                }
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+                Err(e) => Err(e),
+            };
+            let failed = chunk.is_err();
+            if tx.blocking_send(chunk).is_err() || failed {
+                return;
+            }
+        }
+    });
+    let chunks = futures_util::stream::unfold(rx, |mut rx| async move { rx.recv().await.map(|c| (c, rx)) });
+    let limits = std::sync::Arc::new(tailtally::config::ServiceLimits::from_options(opts));
+    // A pipe or a terminal may pause for as long as it likes: no idle limit offline.
+    let batch = tailtally::config::BatchLimits {
+        read_idle_timeout: None,
+        ..tailtally::config::BatchLimits::from_options(opts)
+    };
+    let answers = tailtally::api::batch::answers(Box::pin(chunks), limits, batch);
+    futures_util::pin_mut!(answers);
+    let stdout = std::io::stdout();
+    let mut out = stdout.lock();
+    let mut status = std::process::ExitCode::SUCCESS;
+    while let Some(a) = answers.next().await {
+        // Each answer is flushed at once, so that a consumer of a pipe sees it as soon as it is ready.
+        if let Err(e) = out.write_all(&a.line).and_then(|()| out.flush()) {
+            eprintln!("tailtally: cannot write the answers: {e}");
+            return std::process::ExitCode::FAILURE;
+        }
+        if let Some(e) = a.read_error {
+            eprintln!("tailtally: cannot read the batch: {e}");
+            status = std::process::ExitCode::FAILURE;
+        }
+    }
+    status
 }

@@ -3,12 +3,13 @@
 //!
 //! The request timeout and the admission limit (at most `max_concurrency` running, `max_queued` waiting,
 //! 503 beyond) apply to the computing routes only: probes, /metrics and the documents must answer while the
-//! service is saturated.
+//! service is saturated. POST /v1/batch is admitted too, but streams: it has no whole-request timeout or
+//! whole-body limit, and applies both to each of its lines instead (`api::batch`).
 
 use crate::api::metrics::{self, InFlight};
 use crate::api::problem::{Problem, ProblemType};
-use crate::api::{openapi, routes, AppState};
-use crate::config::{Options, ServiceLimits};
+use crate::api::{openapi, routes, Admitted, AppState};
+use crate::config::{BatchLimits, Options, ServiceLimits};
 use axum::extract::{DefaultBodyLimit, MatchedPath, Request, State};
 use axum::http::{header, HeaderName, HeaderValue, StatusCode};
 use axum::middleware::{self, Next};
@@ -31,12 +32,13 @@ use tower_http::timeout::TimeoutLayer;
 use tower_http::trace::TraceLayer;
 
 pub fn router(opts: &Options) -> Router {
-    let state = AppState { limits: Arc::new(ServiceLimits::from_options(opts)) };
+    let state =
+        AppState { limits: Arc::new(ServiceLimits::from_options(opts)), batch: BatchLimits::from_options(opts) };
     let request_id = HeaderName::from_static("x-request-id");
     let admission = Admission::new(opts.max_concurrency, opts.max_queued);
     // `route_layer` covers only the routes added before it: the computing ones. Queued time counts towards
     // the timeout, so the timeout is the outer of the two.
-    let api = Router::new()
+    let computing = Router::new()
         .route("/v1/tail", post(routes::tail::tail))
         .route("/v1/quantiles", post(routes::quantiles::quantiles))
         .route("/v1/distribution", post(routes::distribution::distribution))
@@ -46,7 +48,7 @@ pub fn router(opts: &Options) -> Router {
         .route_layer(
             ServiceBuilder::new()
                 .layer(TimeoutLayer::with_status_code(StatusCode::REQUEST_TIMEOUT, opts.request_timeout()))
-                .layer(middleware::from_fn_with_state(admission, admit)),
+                .layer(middleware::from_fn_with_state(admission.clone(), admit)),
         )
         .route("/", get(routes::page::explorer))
         .route("/healthz", get(routes::health::healthz))
@@ -54,8 +56,13 @@ pub fn router(opts: &Options) -> Router {
         .route("/metrics", get(routes::metrics::metrics))
         .route("/docs", get(routes::docs::docs))
         .route("/openapi.json", get(openapi_json))
-        .fallback(not_found)
-        .with_state(state);
+        .layer(RequestBodyLimitLayer::new(opts.max_body_bytes));
+    // A batch is admitted like any computing request but has neither the whole-request timeout nor the
+    // whole-body limit: it streams, each line within the request timeout and the body limit.
+    let batch = Router::new()
+        .route("/v1/batch", post(routes::batch::batch))
+        .route_layer(middleware::from_fn_with_state(admission, admit));
+    let api = computing.merge(batch).fallback(not_found).with_state(state);
     api.layer(
         ServiceBuilder::new()
             .layer(SetRequestIdLayer::new(request_id.clone(), MakeRequestUuid))
@@ -69,7 +76,6 @@ pub fn router(opts: &Options) -> Router {
             .layer(cors(&opts.cors_origins))
             .layer(CompressionLayer::new())
             .layer(RequestDecompressionLayer::new())
-            .layer(RequestBodyLimitLayer::new(opts.max_body_bytes))
             .layer(DefaultBodyLimit::max(opts.max_body_bytes)),
     )
 }
@@ -106,8 +112,8 @@ impl Admission {
     }
 }
 
-async fn admit(State(a): State<Admission>, req: Request, next: Next) -> Response {
-    let Ok(_place) = a.admitted.clone().try_acquire_owned() else {
+async fn admit(State(a): State<Admission>, mut req: Request, next: Next) -> Response {
+    let Ok(place) = a.admitted.clone().try_acquire_owned() else {
         let mut res = Problem::overloaded(format!(
             "all computing slots are busy and {} requests are waiting (see --max-concurrency, --max-queued); retry later",
             a.max_queued
@@ -117,11 +123,13 @@ async fn admit(State(a): State<Admission>, req: Request, next: Next) -> Response
         return res;
     };
     let waiting = metrics::queued();
-    let Ok(_turn) = a.running.clone().acquire_owned().await else {
+    let Ok(turn) = a.running.clone().acquire_owned().await else {
         return Problem::internal("admission control closed").into_response();
     };
     drop(waiting);
-    let _computing = metrics::computing();
+    // Held here until the answer is ready, and by a streaming answer until it ends.
+    let admitted = Admitted(Arc::new((place, turn, metrics::computing())));
+    req.extensions_mut().insert(admitted.clone());
     next.run(req).await
 }
 

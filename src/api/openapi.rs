@@ -17,6 +17,7 @@ use utoipa::OpenApi;
         crate::api::routes::layers::layers,
         crate::api::routes::contributions::contributions,
         crate::api::routes::chart::chart,
+        crate::api::routes::batch::batch,
         crate::api::routes::page::explorer,
         crate::api::routes::health::healthz,
         crate::api::routes::health::readyz,

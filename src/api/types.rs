@@ -23,13 +23,14 @@ pub const ASSUMPTIONS: &[&str] = &[
 pub struct TailRequest {
     pub portfolio: PortfolioSpec,
     /// Counts k at which to evaluate the probability.
-    #[schema(example = json!([10, 25, 40]))]
+    #[schema(example = json!([10, 25, 40]), min_items = 1)]
     pub thresholds: Vec<u64>,
     /// Which probability: `upper` P(S >= k) (default), `lower` P(S <= k) or `point` P(S = k).
     #[serde(default)]
     pub side: Side,
     /// Methods to run; each threshold gets one estimate per method.
     #[serde(default = "default_methods")]
+    #[schema(min_items = 1)]
     pub methods: Vec<MethodId>,
     /// For `auto`: `{"absolute": a}` or `{"relative": r}`; default `{"relative": 0.001}`.
     #[serde(default)]

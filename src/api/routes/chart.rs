@@ -27,9 +27,11 @@ const HEIGHT_RANGE: (u32, u32) = (160, 3000);
     responses(
         (status = 200, description = "An SVG image (deterministic for a given request)", body = String, content_type = "image/svg+xml"),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn chart(State(state): State<AppState>, Body(req): Body<ChartRequest>) -> Result<Response, Problem> {

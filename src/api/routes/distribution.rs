@@ -2,6 +2,7 @@
 //! given as `from`/`to` or as the central range holding all but `mass`. JSON by default; CSV when the client
 //! sends `Accept: text/csv`.
 
+use crate::api::cancel::Cancel;
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario};
@@ -75,9 +76,11 @@ pub struct DistributionResponse {
         (status = 200, description = "pmf, cdf and survival over the range (CSV with `Accept: text/csv`)",
             content((DistributionResponse = "application/json"), (String = "text/csv"))),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn distribution(
@@ -90,7 +93,9 @@ pub async fn distribution(
         .get(header::ACCEPT)
         .and_then(|v| v.to_str().ok())
         .is_some_and(|a| a.split(',').any(|m| m.trim().starts_with("text/csv")));
-    let out = tokio::task::spawn_blocking(move || compute(&req, &limits))
+    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
+    let (cancel, _guard) = Cancel::pair();
+    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
         .await
         .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
     if csv {
@@ -125,7 +130,17 @@ pub fn to_csv(d: &DistributionResponse) -> String {
     s
 }
 
+/// The whole computation, synchronous and free of HTTP (also used by batches and the command line).
 pub fn compute(req: &DistributionRequest, limits: &ServiceLimits) -> Result<DistributionResponse, Problem> {
+    compute_cancellable(req, limits, &Cancel::never())
+}
+
+/// `compute`, giving up with an error once `cancel` is set.
+pub fn compute_cancellable(
+    req: &DistributionRequest,
+    limits: &ServiceLimits,
+    cancel: &Cancel,
+) -> Result<DistributionResponse, Problem> {
     let mut errs = Vec::new();
     match (req.from, req.to, req.mass) {
         (Some(a), Some(b), None) => {
@@ -154,8 +169,11 @@ pub fn compute(req: &DistributionRequest, limits: &ServiceLimits) -> Result<Dist
     // A range of counts costs about one tilted law per 1.5 standard deviations; the pmf cells are cheap.
     scenario::check_work(&model, 64.0, factor, limits)?;
     let sc = scenario::build(model, req.stress, req.dependence);
+    cancel.check()?;
     let mut out = answer(req, &sc.law, sc.stress, limits)?;
     if let Some(base) = &sc.base {
+        // The table is one engine call; the check goes between the stressed and the base law.
+        cancel.check()?;
         out.base = Some(Box::new(answer(req, base, None, limits)?));
     }
     Ok(out)

@@ -1,6 +1,7 @@
 //! POST /v1/layers: count layers (expected events in the layer, probability touched and exhausted) and the
 //! expected count beyond quantiles (conditional tail expectation of the count).
 
+use crate::api::cancel::Cancel;
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario, ValueOut};
@@ -96,9 +97,11 @@ pub struct LayersResponse {
     responses(
         (status = 200, description = "One result per layer and per tail level", body = LayersResponse),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn layers(
@@ -106,7 +109,9 @@ pub async fn layers(
     Body(req): Body<LayersRequest>,
 ) -> Result<Json<LayersResponse>, Problem> {
     let limits = state.limits.clone();
-    let out = tokio::task::spawn_blocking(move || compute(&req, &limits))
+    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
+    let (cancel, _guard) = Cancel::pair();
+    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
         .await
         .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
     Ok(Json(out))
@@ -115,7 +120,17 @@ pub async fn layers(
 /// Largest attachment or limit served with a Poisson part (its windows grow like the square root of the count).
 const MAX_UNBOUNDED_COUNT: u64 = 1_000_000_000;
 
+/// The whole computation, synchronous and free of HTTP (also used by batches and the command line).
 pub fn compute(req: &LayersRequest, limits: &ServiceLimits) -> Result<LayersResponse, Problem> {
+    compute_cancellable(req, limits, &Cancel::never())
+}
+
+/// `compute`, giving up with an error once `cancel` is set.
+pub fn compute_cancellable(
+    req: &LayersRequest,
+    limits: &ServiceLimits,
+    cancel: &Cancel,
+) -> Result<LayersResponse, Problem> {
     let mut errs = Vec::new();
     if req.layers.is_empty() && req.tail_levels.is_empty() {
         errs.push(Violation::new("/layers", "give at least one layer or one tail level"));
@@ -147,20 +162,21 @@ pub fn compute(req: &LayersRequest, limits: &ServiceLimits) -> Result<LayersResp
     let evals = req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0;
     scenario::check_work(&model, evals, Scenario::work_factor(&req.stress, &req.dependence), limits)?;
     let sc = scenario::build(model, req.stress, req.dependence);
-    let mut out = answer(req, &sc.law, sc.stress);
+    let mut out = answer(req, &sc.law, sc.stress, cancel)?;
     if let Some(base) = &sc.base {
-        out.base = Some(Box::new(answer(req, base, None)));
+        out.base = Some(Box::new(answer(req, base, None, cancel)?));
     }
     Ok(out)
 }
 
-fn answer(req: &LayersRequest, law: &Law, stress: Option<Stress>) -> LayersResponse {
+fn answer(req: &LayersRequest, law: &Law, stress: Option<Stress>, cancel: &Cancel) -> Result<LayersResponse, Problem> {
     let layers = req
         .layers
         .iter()
         .map(|l| {
+            cancel.check()?;
             let r = layer(law, l.attachment, l.limit);
-            LayerOut {
+            Ok(LayerOut {
                 attachment: l.attachment,
                 limit: l.limit,
                 expected_count: r.expected_count.value,
@@ -171,28 +187,29 @@ fn answer(req: &LayersRequest, law: &Law, stress: Option<Stress>) -> LayersRespo
                     probability_touched: r.probability_touched.into(),
                     probability_exhausted: r.probability_exhausted.into(),
                 },
-            }
+            })
         })
-        .collect();
+        .collect::<Result<Vec<_>, Problem>>()?;
     let tail_expectations = req
         .tail_levels
         .iter()
         .map(|&lvl| {
+            cancel.check()?;
             let t = tail_expectation(law, lvl);
-            TailExpectationOut {
+            Ok(TailExpectationOut {
                 level: lvl,
                 quantile: t.quantile,
                 expected_count: t.expected_count.into(),
                 probability_beyond: t.probability_beyond.into(),
-            }
+            })
         })
-        .collect();
-    LayersResponse {
+        .collect::<Result<Vec<_>, Problem>>()?;
+    Ok(LayersResponse {
         summary: Summary::of_law(law),
         model: Scenario::model_out(law, stress),
         layers,
         tail_expectations,
         base: None,
         assumptions: ASSUMPTIONS.iter().map(|s| s.to_string()).collect(),
-    }
+    })
 }

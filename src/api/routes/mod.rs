@@ -1,5 +1,6 @@
 //! One file per route.
 
+pub mod batch;
 pub mod chart;
 pub mod contributions;
 pub mod distribution;

@@ -1,6 +1,7 @@
 //! POST /v1/quantiles: the smallest count k with P(S <= k) >= level, for each level and method, with the
 //! bracket P(S <= k - 1) < level <= P(S <= k) and the counts consistent with the method's error bound.
 
+use crate::api::cancel::Cancel;
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario};
@@ -25,10 +26,11 @@ use utoipa::ToSchema;
 pub struct QuantilesRequest {
     pub portfolio: PortfolioSpec,
     /// Levels strictly inside (0, 1).
-    #[schema(example = json!([0.95, 0.99, 0.995]))]
+    #[schema(example = json!([0.95, 0.99, 0.995]), min_items = 1)]
     pub levels: Vec<f64>,
     /// Methods; each level gets one quantile per method (default `exact`).
     #[serde(default = "default_methods")]
+    #[schema(min_items = 1)]
     pub methods: Vec<MethodId>,
     #[serde(default)]
     pub tolerance: Option<Tolerance>,
@@ -82,9 +84,11 @@ pub struct QuantilesResponse {
     responses(
         (status = 200, description = "One quantile per level and method", body = QuantilesResponse),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn quantiles(
@@ -92,7 +96,9 @@ pub async fn quantiles(
     Body(req): Body<QuantilesRequest>,
 ) -> Result<Json<QuantilesResponse>, Problem> {
     let limits = state.limits.clone();
-    let out = tokio::task::spawn_blocking(move || compute(&req, &limits))
+    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
+    let (cancel, _guard) = Cancel::pair();
+    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
         .await
         .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
     Ok(Json(out))
@@ -101,7 +107,17 @@ pub async fn quantiles(
 /// Probes a quantile search may need (guess, gallop and bisection of three searches), for the work budget.
 const PROBES_PER_LEVEL: f64 = 40.0;
 
+/// The whole computation, synchronous and free of HTTP (also used by batches and the command line).
 pub fn compute(req: &QuantilesRequest, limits: &ServiceLimits) -> Result<QuantilesResponse, Problem> {
+    compute_cancellable(req, limits, &Cancel::never())
+}
+
+/// `compute`, giving up with an error once `cancel` is set.
+pub fn compute_cancellable(
+    req: &QuantilesRequest,
+    limits: &ServiceLimits,
+    cancel: &Cancel,
+) -> Result<QuantilesResponse, Problem> {
     let mut errs = Vec::new();
     if req.levels.is_empty() {
         errs.push(Violation::new("/levels", "at least one level is required"));
@@ -125,16 +141,25 @@ pub fn compute(req: &QuantilesRequest, limits: &ServiceLimits) -> Result<Quantil
     let evals = req.levels.len() as f64 * req.methods.len() as f64 * PROBES_PER_LEVEL;
     scenario::check_work(&model, evals, Scenario::work_factor(&req.stress, &req.dependence), limits)?;
     let sc = scenario::build(model, req.stress, req.dependence);
-    let mut out = answer(req, &sc.law, sc.stress);
+    let mut out = answer(req, &sc.law, sc.stress, cancel)?;
     if let Some(base) = &sc.base {
-        out.base = Some(Box::new(answer(req, base, None)));
+        out.base = Some(Box::new(answer(req, base, None, cancel)?));
     }
     Ok(out)
 }
 
-fn answer(req: &QuantilesRequest, law: &Law, stress: Option<Stress>) -> QuantilesResponse {
-    let per_method: Vec<_> =
-        req.methods.iter().map(|&m| compute_quantiles(law, &req.levels, m, req.tolerance)).collect();
+fn answer(
+    req: &QuantilesRequest,
+    law: &Law,
+    stress: Option<Stress>,
+    cancel: &Cancel,
+) -> Result<QuantilesResponse, Problem> {
+    // Checked between methods: the engine searches a method's levels together.
+    let per_method = req
+        .methods
+        .iter()
+        .map(|&m| cancel.check().map(|()| compute_quantiles(law, &req.levels, m, req.tolerance)))
+        .collect::<Result<Vec<_>, Problem>>()?;
     let mut out = Vec::new();
     // Levels in the order asked, and for each level the methods in the order asked.
     for i in 0..req.levels.len() {
@@ -159,11 +184,11 @@ fn answer(req: &QuantilesRequest, law: &Law, stress: Option<Stress>) -> Quantile
             });
         }
     }
-    QuantilesResponse {
+    Ok(QuantilesResponse {
         summary: Summary::of_law(law),
         model: Scenario::model_out(law, stress),
         quantiles: out,
         base: None,
         assumptions: ASSUMPTIONS.iter().map(|s| s.to_string()).collect(),
-    }
+    })
 }

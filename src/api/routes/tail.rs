@@ -1,5 +1,6 @@
 //! POST /v1/tail: tail, cumulative or point probabilities at a list of thresholds, one estimate per method.
 
+use crate::api::cancel::Cancel;
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario;
@@ -18,14 +19,18 @@ use axum::Json;
     responses(
         (status = 200, description = "One result per threshold, one estimate per method", body = TailResponse),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn tail(State(state): State<AppState>, Body(req): Body<TailRequest>) -> Result<Json<TailResponse>, Problem> {
     let limits = state.limits.clone();
-    let out = tokio::task::spawn_blocking(move || compute(&req, &limits))
+    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
+    let (cancel, _guard) = Cancel::pair();
+    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
         .await
         .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
     Ok(Json(out))
@@ -41,6 +46,15 @@ pub fn work_of(model: &crate::portfolio::Model, thresholds: usize) -> f64 {
 
 /// The whole computation, synchronous and free of HTTP (also used by the command line).
 pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse, Problem> {
+    compute_cancellable(req, limits, &Cancel::never())
+}
+
+/// `compute`, giving up with an error once `cancel` is set.
+pub fn compute_cancellable(
+    req: &TailRequest,
+    limits: &ServiceLimits,
+    cancel: &Cancel,
+) -> Result<TailResponse, Problem> {
     let mut errs = Vec::new();
     if req.thresholds.is_empty() {
         errs.push(Violation::new("/thresholds", "at least one threshold is required"));
@@ -88,16 +102,27 @@ pub fn compute(req: &TailRequest, limits: &ServiceLimits) -> Result<TailResponse
     let factor = scenario::Scenario::work_factor(&req.stress, &req.dependence);
     scenario::check_work(&model, req.thresholds.len() as f64, factor, limits)?;
     let sc = scenario::build(model, req.stress, req.dependence);
-    let mut out = answer(req, &sc.law, sc.stress);
+    let mut out = answer(req, &sc.law, sc.stress, cancel)?;
     if let Some(base) = &sc.base {
-        out.base = Some(Box::new(answer(req, base, None)));
+        out.base = Some(Box::new(answer(req, base, None, cancel)?));
     }
     Ok(out)
 }
 
-fn answer(req: &TailRequest, law: &Law, stress: Option<crate::portfolio::stress::Stress>) -> TailResponse {
+fn answer(
+    req: &TailRequest,
+    law: &Law,
+    stress: Option<crate::portfolio::stress::Stress>,
+    cancel: &Cancel,
+) -> Result<TailResponse, Problem> {
     let queries: Vec<(u64, engine::Side)> = req.thresholds.iter().map(|&k| (k, req.side)).collect();
-    let per_method: Vec<_> = req.methods.iter().map(|id| law.estimates(*id, &queries, req.tolerance)).collect();
+    // The engine evaluates a method's thresholds together (nearby ones share one tilted law), so the
+    // cancellation check goes between methods rather than between thresholds.
+    let per_method = req
+        .methods
+        .iter()
+        .map(|id| cancel.check().map(|()| law.estimates(*id, &queries, req.tolerance)))
+        .collect::<Result<Vec<_>, Problem>>()?;
     let results = req
         .thresholds
         .iter()
@@ -108,11 +133,11 @@ fn answer(req: &TailRequest, law: &Law, stress: Option<crate::portfolio::stress:
             estimates: per_method.iter().map(|m| EstimateOut::from(&m[i])).collect(),
         })
         .collect();
-    TailResponse {
+    Ok(TailResponse {
         summary: Summary::of_law(law),
         model: scenario::Scenario::model_out(law, stress),
         results,
         base: None,
         assumptions: ASSUMPTIONS.iter().map(|s| s.to_string()).collect(),
-    }
+    })
 }
