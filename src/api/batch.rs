@@ -1,7 +1,7 @@
 //! Batches of requests as NDJSON, shared by POST /v1/batch (`routes::batch`) and `tailtally eval`.
 //!
 //! Each non-blank input line is one object `{"id": <string or number>, "<kind>": <request>}` where `<kind>`
-//! is one of `tail`, `quantiles`, `distribution`, `layers` and the request is that endpoint's body. Each
+//! is one of `tail`, `quantiles`, `distribution`, `layers`, `contributions` and the request is that endpoint's body. Each
 //! line gets one answer line, in input order: `{"id": ..., "<kind>": <response>}`, or
 //! `{"id": ..., "problem": <problem details>}` whose pointers are relative to the line's object (e.g.
 //! `/tail/thresholds/0`) and whose detail starts with the line number (1-based, blank lines counted).
@@ -15,7 +15,7 @@
 use crate::api::cancel::Cancel;
 use crate::api::extract;
 use crate::api::problem::Problem;
-use crate::api::routes::{distribution, layers, quantiles, tail};
+use crate::api::routes::{contributions, distribution, layers, quantiles, tail};
 use crate::config::{BatchLimits, ServiceLimits};
 use crate::portfolio::Violation;
 use axum::http::StatusCode;
@@ -27,7 +27,7 @@ use std::collections::VecDeque;
 use std::sync::{Arc, OnceLock};
 
 /// The request kinds a line may hold, by key.
-pub const KINDS: [&str; 4] = ["tail", "quantiles", "distribution", "layers"];
+pub const KINDS: [&str; 5] = ["tail", "quantiles", "distribution", "layers", "contributions"];
 
 /// One unit of input after splitting.
 #[derive(Debug, PartialEq, Eq)]
@@ -277,6 +277,7 @@ pub fn answer_line(
         "tail" => run(body, |r| tail::compute_cancellable(r, limits, cancel)),
         "quantiles" => run(body, |r| quantiles::compute_cancellable(r, limits, cancel)),
         "distribution" => run(body, |r| distribution::compute_cancellable(r, limits, cancel)),
+        "contributions" => run(body, |r| contributions::compute_cancellable(r, limits, cancel)),
         _ => run(body, |r| layers::compute_cancellable(r, limits, cancel)),
     };
     match result {
@@ -490,5 +491,8 @@ mod tests {
         );
         assert_eq!(v["id"], "x\"y");
         assert!((v["layers"]["layers"][0]["expected_count"].as_f64().unwrap() - 1.0).abs() < 1e-12, "{v}");
+        let v = answer(r#"{"id": 9, "contributions": {"portfolio": {"probabilities": [0.5, 0.5]}, "threshold": 2}}"#);
+        // P(S >= 2) = 1/4 and each exposure's sensitivity is P(the other one = 1) = 1/2.
+        assert!((v["contributions"]["contributions"][0]["sensitivity"].as_f64().unwrap() - 0.5).abs() < 1e-15, "{v}");
     }
 }

@@ -3,6 +3,7 @@
 //! p_i x sensitivity = P(S >= k) - P(S without i >= k) (formed as a product, so small impacts keep their
 //! accuracy); ranked, optionally only the top N.
 
+use crate::api::cancel::Cancel;
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario, ValueOut};
@@ -97,9 +98,11 @@ pub struct ContributionsResponse {
     responses(
         (status = 200, description = "Every exposure's sensitivity and leave-one-out tail, ranked", body = ContributionsResponse),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "Not answered within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body or work over the configured limits", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not JSON", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid field, with its JSON pointer", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "All computing slots busy and the queue full (see Retry-After)", body = Problem, content_type = "application/problem+json"),
     )
 )]
 pub async fn contributions(
@@ -107,7 +110,9 @@ pub async fn contributions(
     Body(req): Body<ContributionsRequest>,
 ) -> Result<Json<ContributionsResponse>, Problem> {
     let limits = state.limits.clone();
-    let out = tokio::task::spawn_blocking(move || compute(&req, &limits))
+    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
+    let (cancel, _guard) = Cancel::pair();
+    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
         .await
         .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
     Ok(Json(out))
@@ -118,6 +123,15 @@ pub async fn contributions(
 const EVALUATIONS: f64 = 40.0;
 
 pub fn compute(req: &ContributionsRequest, limits: &ServiceLimits) -> Result<ContributionsResponse, Problem> {
+    compute_cancellable(req, limits, &Cancel::never())
+}
+
+/// `compute`, giving up with an error once `cancel` is set (checked between the base and stressed laws).
+pub fn compute_cancellable(
+    req: &ContributionsRequest,
+    limits: &ServiceLimits,
+    cancel: &Cancel,
+) -> Result<ContributionsResponse, Problem> {
     let mut errs = Vec::new();
     if matches!(req.dependence, Some(Dependence::OneFactorGaussian { .. })) {
         errs.push(Violation::new(
@@ -139,6 +153,7 @@ pub fn compute(req: &ContributionsRequest, limits: &ServiceLimits) -> Result<Con
         expand(f, |p| listed.push(p));
     }
     let base_out = req.stress.map(|_| answer(req, &model, &listed, None));
+    cancel.check()?;
     let (model, listed) = match req.stress {
         Some(s) => {
             let m = crate::portfolio::stress::stressed(&model, &s);
