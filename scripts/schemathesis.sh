@@ -10,6 +10,9 @@
 # Needs `pip install schemathesis` (4.x). The server runs with small limits so that generated portfolios
 # (n up to the limit) stay cheap: the point is the contract, not the engine's speed.
 #
+# POST /v1/batch is left out: its body is NDJSON, which Schemathesis cannot generate (tests/http_batch.rs
+# covers it).
+#
 # The check `positive_data_acceptance` (ST202, "schema-valid request rejected") is left out unless STRICT=1:
 # the service refuses schema-valid requests by rule (work and size limits set at start-up: 413; values that
 # depend on each other: 422), which a schema cannot state.
@@ -53,6 +56,7 @@ echo "tailtally at $ADDR; $MAX_EXAMPLES examples per operation, seed $SEED"
 status=0
 schemathesis run "http://$ADDR/openapi.json" \
     --checks all \
+    --exclude-path /v1/batch \
     $( [ "${STRICT:-0}" = 1 ] || echo --exclude-checks positive_data_acceptance ) \
     --max-examples "$MAX_EXAMPLES" \
     --seed "$SEED" \
