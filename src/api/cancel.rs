@@ -60,6 +60,18 @@ impl Drop for CancelOnDrop {
     }
 }
 
+/// Run a computing route's work on the blocking pool, off the async threads, with a cancellation flag whose
+/// guard lives in the calling future: when the timeout (or a client going away) drops that future, the
+/// computation sees the flag and stops.
+pub async fn off_executor<T: Send + 'static>(
+    work: impl FnOnce(&Cancel) -> Result<T, Problem> + Send + 'static,
+) -> Result<T, Problem> {
+    let (cancel, _guard) = Cancel::pair();
+    tokio::task::spawn_blocking(move || work(&cancel))
+        .await
+        .map_err(|e| Problem::internal(format!("computation failed: {e}")))?
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -2,6 +2,7 @@
 //! probabilities come from the engine (exact pmf for the bars, the chosen approximations for the lines); the
 //! drawing is `crate::chart`. Validation and limits are those of POST /v1/tail.
 
+use crate::api::cancel::off_executor;
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::routes::tail::{work_of, MAX_POISSON_THRESHOLD};
@@ -36,9 +37,7 @@ const HEIGHT_RANGE: (u32, u32) = (160, 3000);
 )]
 pub async fn chart(State(state): State<AppState>, Body(req): Body<ChartRequest>) -> Result<Response, Problem> {
     let limits = state.limits.clone();
-    let svg = tokio::task::spawn_blocking(move || compute(&req, &limits))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
+    let svg = off_executor(move |_| compute(&req, &limits)).await?;
     let mut res = svg.into_response();
     res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static("image/svg+xml"));
     Ok(res)

@@ -3,7 +3,7 @@
 //! p_i x sensitivity = P(S >= k) - P(S without i >= k) (formed as a product, so small impacts keep their
 //! accuracy); ranked, optionally only the top N.
 
-use crate::api::cancel::Cancel;
+use crate::api::cancel::{off_executor, Cancel};
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario, ValueOut};
@@ -110,11 +110,7 @@ pub async fn contributions(
     Body(req): Body<ContributionsRequest>,
 ) -> Result<Json<ContributionsResponse>, Problem> {
     let limits = state.limits.clone();
-    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
-    let (cancel, _guard) = Cancel::pair();
-    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
+    let out = off_executor(move |cancel| compute_cancellable(&req, &limits, cancel)).await?;
     Ok(Json(out))
 }
 

@@ -2,7 +2,7 @@
 //! given as `from`/`to` or as the central range holding all but `mass`. JSON by default; CSV when the client
 //! sends `Accept: text/csv`.
 
-use crate::api::cancel::Cancel;
+use crate::api::cancel::{off_executor, Cancel};
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario};
@@ -93,11 +93,7 @@ pub async fn distribution(
         .get(header::ACCEPT)
         .and_then(|v| v.to_str().ok())
         .is_some_and(|a| a.split(',').any(|m| m.trim().starts_with("text/csv")));
-    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
-    let (cancel, _guard) = Cancel::pair();
-    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
+    let out = off_executor(move |cancel| compute_cancellable(&req, &limits, cancel)).await?;
     if csv {
         let mut res = to_csv(&out).into_response();
         res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static("text/csv; charset=utf-8"));

@@ -1,7 +1,7 @@
 //! POST /v1/layers: count layers (expected events in the layer, probability touched and exhausted) and the
 //! expected count beyond quantiles (conditional tail expectation of the count).
 
-use crate::api::cancel::Cancel;
+use crate::api::cancel::{off_executor, Cancel};
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario, ValueOut};
@@ -109,11 +109,7 @@ pub async fn layers(
     Body(req): Body<LayersRequest>,
 ) -> Result<Json<LayersResponse>, Problem> {
     let limits = state.limits.clone();
-    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
-    let (cancel, _guard) = Cancel::pair();
-    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
+    let out = off_executor(move |cancel| compute_cancellable(&req, &limits, cancel)).await?;
     Ok(Json(out))
 }
 

@@ -1,7 +1,7 @@
 //! POST /v1/quantiles: the smallest count k with P(S <= k) >= level, for each level and method, with the
 //! bracket P(S <= k - 1) < level <= P(S <= k) and the counts consistent with the method's error bound.
 
-use crate::api::cancel::Cancel;
+use crate::api::cancel::{off_executor, Cancel};
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario::{self, ModelOut, Scenario};
@@ -96,11 +96,7 @@ pub async fn quantiles(
     Body(req): Body<QuantilesRequest>,
 ) -> Result<Json<QuantilesResponse>, Problem> {
     let limits = state.limits.clone();
-    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
-    let (cancel, _guard) = Cancel::pair();
-    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
+    let out = off_executor(move |cancel| compute_cancellable(&req, &limits, cancel)).await?;
     Ok(Json(out))
 }
 

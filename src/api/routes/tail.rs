@@ -1,6 +1,6 @@
 //! POST /v1/tail: tail, cumulative or point probabilities at a list of thresholds, one estimate per method.
 
-use crate::api::cancel::Cancel;
+use crate::api::cancel::{off_executor, Cancel};
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
 use crate::api::scenario;
@@ -28,11 +28,7 @@ use axum::Json;
 )]
 pub async fn tail(State(state): State<AppState>, Body(req): Body<TailRequest>) -> Result<Json<TailResponse>, Problem> {
     let limits = state.limits.clone();
-    // The guard lives in this future: when the timeout drops it, the computation sees the flag and stops.
-    let (cancel, _guard) = Cancel::pair();
-    let out = tokio::task::spawn_blocking(move || compute_cancellable(&req, &limits, &cancel))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))??;
+    let out = off_executor(move |cancel| compute_cancellable(&req, &limits, cancel)).await?;
     Ok(Json(out))
 }
 
