@@ -5,6 +5,7 @@
 use crate::api::cancel::{off_executor, Cancel};
 use crate::api::extract::Body;
 use crate::api::problem::Problem;
+use crate::api::routes::tail::MAX_POISSON_THRESHOLD;
 use crate::api::scenario::{self, ModelOut, Scenario};
 use crate::api::types::{Summary, ASSUMPTIONS};
 use crate::api::AppState;
@@ -161,6 +162,24 @@ pub fn compute_cancellable(
     }
     scenario::check(&req.stress, &req.dependence, &mut errs);
     let model = scenario::model(&req.portfolio, limits, errs)?;
+    // With a Poisson part the support is unbounded and the exact engine's window grows with the count (the
+    // tilted Poisson window is about 25 sqrt(k) long): an explicit range meets the same threshold limit as
+    // POST /v1/tail, before any window is built.
+    if model.poisson > 0.0 {
+        let bad: Vec<Violation> = [("/from", req.from), ("/to", req.to)]
+            .into_iter()
+            .filter_map(|(at, k)| k.filter(|&k| k > MAX_POISSON_THRESHOLD).map(|k| (at, k)))
+            .map(|(at, k)| {
+                Violation::new(
+                    at,
+                    format!("{k} exceeds {MAX_POISSON_THRESHOLD}, the largest count served with a Poisson part"),
+                )
+            })
+            .collect();
+        if !bad.is_empty() {
+            return Err(Problem::invalid(bad));
+        }
+    }
     let factor = Scenario::work_factor(&req.stress, &req.dependence);
     // A range of counts costs about one tilted law per 1.5 standard deviations; the pmf cells are cheap.
     scenario::check_work(&model, 64.0, factor, limits)?;
