@@ -98,19 +98,37 @@ pub fn check(stress: &Option<Stress>, dep: &Option<Dependence>, errs: &mut Vec<V
     }
 }
 
-/// Validate the portfolio with the other fields' violations, and build the model.
-pub fn model(spec: &PortfolioSpec, limits: &ServiceLimits, mut errs: Vec<Violation>) -> Result<Model, Problem> {
-    match build_model(spec, "/portfolio", &limits.portfolio) {
-        Ok(m) if errs.is_empty() => {
-            crate::api::metrics::exposures_processed(m.exposures);
-            Ok(m)
-        }
-        Ok(_) => Err(Problem::invalid(errs)),
+/// Validate the portfolio with the other fields' violations, and build the model. A stress multiplies the
+/// Poisson rate, so the stressed rate must meet the portfolio's rate limit too (probabilities saturate at 1).
+pub fn model(
+    spec: &PortfolioSpec,
+    stress: &Option<Stress>,
+    limits: &ServiceLimits,
+    mut errs: Vec<Violation>,
+) -> Result<Model, Problem> {
+    let m = match build_model(spec, "/portfolio", &limits.portfolio) {
+        Ok(m) => m,
         Err(mut v) => {
             errs.append(&mut v);
-            Err(Problem::invalid(errs))
+            return Err(Problem::invalid(errs));
+        }
+    };
+    if let Some(s) = stress {
+        let rate = m.poisson * s.factor();
+        let max = limits.portfolio.max_poisson_rate;
+        if !(rate.is_finite() && rate <= max) {
+            let at = match s {
+                Stress::ProbabilityFactor(_) => "/stress/probability_factor",
+                Stress::OddsFactor(_) => "/stress/odds_factor",
+            };
+            errs.push(Violation::new(at, format!("the stressed total Poisson rate {rate} exceeds the limit {max}")));
         }
     }
+    if !errs.is_empty() {
+        return Err(Problem::invalid(errs));
+    }
+    crate::api::metrics::exposures_processed(m.exposures);
+    Ok(m)
 }
 
 /// Refuse work over the budget (exposures x evaluations x scenario factor).

@@ -142,7 +142,7 @@ pub fn compute_cancellable(
         ));
     }
     scenario::check(&req.stress, &None, &mut errs);
-    let model = scenario::model(&req.portfolio, limits, errs)?;
+    let model = scenario::model(&req.portfolio, &req.stress, limits, errs)?;
     scenario::check_work(&model, EVALUATIONS, Scenario::work_factor(&req.stress, &None), limits)?;
     let mut listed: Vec<f64> = req.portfolio.probabilities.clone();
     for f in &req.portfolio.families {

@@ -161,7 +161,7 @@ pub fn compute_cancellable(
         (_, None, _) => errs.push(Violation::new("/to", "from and to go together")),
     }
     scenario::check(&req.stress, &req.dependence, &mut errs);
-    let model = scenario::model(&req.portfolio, limits, errs)?;
+    let model = scenario::model(&req.portfolio, &req.stress, limits, errs)?;
     // With a Poisson part the support is unbounded and the exact engine's window grows with the count (the
     // tilted Poisson window is about 25 sqrt(k) long): an explicit range meets the same threshold limit as
     // POST /v1/tail, before any window is built.

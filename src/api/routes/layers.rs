@@ -154,7 +154,7 @@ pub fn compute_cancellable(
         }
     }
     scenario::check(&req.stress, &req.dependence, &mut errs);
-    let model = scenario::model(&req.portfolio, limits, errs)?;
+    let model = scenario::model(&req.portfolio, &req.stress, limits, errs)?;
     let evals = req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0;
     scenario::check_work(&model, evals, Scenario::work_factor(&req.stress, &req.dependence), limits)?;
     let sc = scenario::build(model, req.stress, req.dependence);

@@ -133,7 +133,7 @@ pub fn compute_cancellable(
         errs.push(Violation::new("/methods", "at least one method is required"));
     }
     scenario::check(&req.stress, &req.dependence, &mut errs);
-    let model = scenario::model(&req.portfolio, limits, errs)?;
+    let model = scenario::model(&req.portfolio, &req.stress, limits, errs)?;
     let evals = req.levels.len() as f64 * req.methods.len() as f64 * PROBES_PER_LEVEL;
     scenario::check_work(&model, evals, Scenario::work_factor(&req.stress, &req.dependence), limits)?;
     let sc = scenario::build(model, req.stress, req.dependence);

@@ -74,7 +74,7 @@ pub fn compute_cancellable(
         errs.push(Violation::new("/methods", "at least one method is required"));
     }
     scenario::check(&req.stress, &req.dependence, &mut errs);
-    let model = scenario::model(&req.portfolio, limits, errs)?;
+    let model = scenario::model(&req.portfolio, &req.stress, limits, errs)?;
     // With a Poisson part the support is unbounded and the exact engine's window grows like sqrt(k): refuse
     // thresholds whose windows would not fit in memory rather than exhaust it.
     if model.poisson > 0.0 {
