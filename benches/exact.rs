@@ -16,7 +16,7 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
 use tailtally::engine::exact;
-use tailtally::engine::moments::Moments;
+use tailtally::engine::numerics::moments::Moments;
 use tailtally::engine::Side;
 use tailtally::portfolio::Model;
 
@@ -48,7 +48,7 @@ fn tail_5sd(c: &mut Criterion) {
             b.iter(|| {
                 let mom = Moments::of(model);
                 let (vals, work) = exact::evaluate(model, &mom, &[(black_box(k), Side::Upper)]);
-                black_box((vals[0].ln_p, work.max_window))
+                black_box((vals[0].ln_value, work.max_window))
             })
         });
     }

@@ -3,7 +3,7 @@
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use std::time::Instant;
-use tailtally::engine::{cgf, moments::Moments};
+use tailtally::engine::numerics::{cgf, moments::Moments};
 use tailtally::portfolio::Model;
 fn med(mut f: impl FnMut()) -> f64 {
     let mut v = vec![];

@@ -5,13 +5,13 @@
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use std::time::Instant;
-use tailtally::engine::contributions::contributions;
-use tailtally::engine::dependence::Dependence;
-use tailtally::engine::distribution::{central_range, table};
-use tailtally::engine::law::Law;
-use tailtally::engine::layers::{layer, tail_expectation};
-use tailtally::engine::moments::Moments;
-use tailtally::engine::quantiles::quantiles;
+use tailtally::analytics::dependence::Dependence;
+use tailtally::analytics::distribution::{central_range, table};
+use tailtally::analytics::law::Law;
+use tailtally::analytics::layers::{layer, tail_expectation};
+use tailtally::analytics::quantiles::quantiles;
+use tailtally::engine::exact::leave_one_out::contributions;
+use tailtally::engine::numerics::moments::Moments;
 use tailtally::engine::{MethodId, Side};
 use tailtally::portfolio::Model;
 

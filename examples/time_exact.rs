@@ -16,9 +16,10 @@
 use std::time::Instant;
 
 use tailtally::engine::exact::window::Window;
-use tailtally::engine::exact::{self, convolve, leaf, ExactValue};
-use tailtally::engine::moments::Moments;
-use tailtally::engine::{cgf, Side};
+use tailtally::engine::exact::{self, convolve, leaf};
+use tailtally::engine::numerics::cgf;
+use tailtally::engine::numerics::moments::Moments;
+use tailtally::engine::{Side, Value};
 use tailtally::portfolio::Model;
 
 fn usage() -> ! {
@@ -91,7 +92,7 @@ fn main() {
     match mode {
         "tail" => {
             let mut times = Vec::with_capacity(repeats);
-            let mut last: Option<(ExactValue, exact::Work)> = None;
+            let mut last: Option<(Value, exact::Work)> = None;
             for _ in 0..repeats {
                 let start = Instant::now();
                 let model = Model::from_parts(&probs, &[], 0.0);
@@ -108,8 +109,8 @@ fn main() {
                  \"rel_err_bound\":{},\"abs_err_bound\":{},\"max_window\":{},\"tilts\":{},\"repeats\":{repeats}}}",
                 num(med),
                 num(min),
-                num(v.ln_p),
-                num(v.p),
+                num(v.ln_value),
+                num(v.value),
                 num(v.rel_err),
                 num(v.abs_err),
                 work.max_window,
@@ -222,7 +223,7 @@ fn main() {
 fn merge_breakdown(model: &Model, t: f64, repeats: usize) -> String {
     use std::cmp::Reverse;
     use std::collections::BinaryHeap;
-    let c = tailtally::engine::cgf::TiltConsts::new(t);
+    let c = tailtally::engine::numerics::cgf::TiltConsts::new(t);
     let (mut best_leaves, mut best_products) = (f64::INFINITY, f64::INFINITY);
     let mut split = (0.0, 0usize, 0.0, 0usize, 0.0f64); // direct ms, count, fft ms, count, largest direct cost
     for _ in 0..repeats {

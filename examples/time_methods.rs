@@ -5,7 +5,7 @@
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use std::time::Instant;
-use tailtally::engine::{self, select::Tolerance, MethodId, Prepared, Side};
+use tailtally::engine::{self, MethodId, Prepared, Side, Tolerance};
 use tailtally::portfolio::Model;
 
 fn main() {

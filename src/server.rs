@@ -6,10 +6,10 @@
 //! service is saturated. POST /v1/batch is admitted too, but streams: it has no whole-request timeout or
 //! whole-body limit, and applies both to each of its lines instead (`api::batch`).
 
-use crate::api::metrics::{self, InFlight};
 use crate::api::problem::{Problem, ProblemType};
 use crate::api::{openapi, routes, Admitted, AppState};
 use crate::config::{BatchLimits, Options, ServiceLimits};
+use crate::telemetry::metrics::{self, InFlight};
 use axum::extract::{DefaultBodyLimit, MatchedPath, Request, State};
 use axum::http::{header, HeaderName, HeaderValue, StatusCode};
 use axum::middleware::{self, Next};

@@ -3,11 +3,11 @@
 //! test), statrs' binomial and Poisson quantiles, and Vasicek's closed-form large-portfolio law.
 
 use statrs::distribution::{Binomial, DiscreteCDF, Poisson};
-use tailtally::engine::dependence::{large_portfolio_cdf, Dependence};
-use tailtally::engine::distribution::{central_range, table};
-use tailtally::engine::law::Law;
-use tailtally::engine::layers::{layer, tail_expectation};
-use tailtally::engine::quantiles::quantiles;
+use tailtally::analytics::dependence::{large_portfolio_cdf, Dependence};
+use tailtally::analytics::distribution::{central_range, table};
+use tailtally::analytics::law::Law;
+use tailtally::analytics::layers::{layer, tail_expectation};
+use tailtally::analytics::quantiles::quantiles;
 use tailtally::engine::{BoundKind, MethodId, Side};
 use tailtally::portfolio::stress::{stressed, Stress};
 use tailtally::portfolio::Model;
@@ -200,8 +200,8 @@ fn homogeneous_one_factor_law_approaches_the_vasicek_limit() {
 /// each p_i, so the difference is exact up to rounding).
 #[test]
 fn contributions_match_leave_one_out_and_finite_differences() {
-    use tailtally::engine::contributions::contributions;
-    use tailtally::engine::moments::Moments;
+    use tailtally::engine::exact::leave_one_out::contributions;
+    use tailtally::engine::numerics::moments::Moments;
     for (n, seed, extra) in [(70usize, 11u64, false), (150, 12, true)] {
         let ps = portfolio(n, seed);
         let groups: Vec<(u64, f64)> = if extra { vec![(12, 0.05)] } else { vec![] };
@@ -230,23 +230,23 @@ fn contributions_match_leave_one_out_and_finite_differences() {
                     };
                     let fd = (tail_at(ps[i] + h) - tail_at(ps[i] - h)) / (2.0 * h);
                     assert!(
-                        (fd - c.sensitivity.p).abs() <= 1e-9 * c.sensitivity.p + 1e-13 / h,
+                        (fd - c.sensitivity.value).abs() <= 1e-9 * c.sensitivity.value + 1e-13 / h,
                         "k = {k}, i = {i}: fd {fd} vs {}",
-                        c.sensitivity.p
+                        c.sensitivity.value
                     );
                 }
                 let rel = |a: f64, b: f64| if b == 0.0 { a.abs() } else { (a / b - 1.0).abs() };
                 assert!(
-                    rel(c.tail_without.p, want_tail) < 1e-10,
+                    rel(c.tail_without.value, want_tail) < 1e-10,
                     "k = {k}, i = {i}: {} vs {want_tail}",
-                    c.tail_without.p
+                    c.tail_without.value
                 );
                 assert!(
-                    rel(c.sensitivity.p, want_point) < 1e-10,
+                    rel(c.sensitivity.value, want_point) < 1e-10,
                     "k = {k}, i = {i}: {} vs {want_point}",
-                    c.sensitivity.p
+                    c.sensitivity.value
                 );
-                assert!((c.tail_without.p - want_tail).abs() <= c.tail_without.abs_err + 1e-15 * want_tail);
+                assert!((c.tail_without.value - want_tail).abs() <= c.tail_without.abs_err + 1e-15 * want_tail);
             }
         }
     }

@@ -118,7 +118,7 @@ fn saddlepoint_is_within_half_a_percent_in_the_upper_tail() {
 /// `auto` meets the tolerance it was given, checked against exact.
 #[test]
 fn auto_meets_its_tolerance() {
-    use tailtally::engine::select::Tolerance;
+    use tailtally::engine::Tolerance;
     let mut rng = ChaCha8Rng::seed_from_u64(5);
     for _ in 0..300 {
         let model = random_model(&mut rng);

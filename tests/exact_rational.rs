@@ -10,7 +10,7 @@ use num_rational::BigRational;
 use num_traits::{One, Signed, ToPrimitive, Zero};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use tailtally::engine::{exact, moments::Moments, Side};
+use tailtally::engine::{exact, numerics::moments::Moments, Side};
 use tailtally::portfolio::Model;
 
 fn rat(x: f64) -> BigRational {
@@ -122,13 +122,13 @@ fn random_portfolios_agree_with_rational_arithmetic() {
             };
             checked += 1;
             if truth.is_zero() {
-                assert_eq!(v.p, 0.0, "case {case} k={k} {side:?}: truth is 0");
+                assert_eq!(v.value, 0.0, "case {case} k={k} {side:?}: truth is 0");
                 continue;
             }
             let ln_truth = ln_rat(&truth);
-            let rel = if v.p >= f64::MIN_POSITIVE {
+            let rel = if v.value >= f64::MIN_POSITIVE {
                 // Representable: the relative error itself, in exact arithmetic.
-                let diff = (rat(v.p) - &truth).abs();
+                let diff = (rat(v.value) - &truth).abs();
                 assert!(
                     diff <= rat(v.abs_err),
                     "case {case} k={k} {side:?}: |p - truth| exceeds the bound {}",
@@ -138,13 +138,18 @@ fn random_portfolios_agree_with_rational_arithmetic() {
             } else {
                 // Below f64's range only the logarithm is returned; its own ulp limits the comparison.
                 let tol = 1e-13 + 4.0 * f64::EPSILON * ln_truth.abs();
-                assert!((v.ln_p - ln_truth).abs() <= tol, "case {case} k={k} {side:?}: ln {} vs {}", v.ln_p, ln_truth);
-                (v.ln_p - ln_truth).abs().exp_m1()
+                assert!(
+                    (v.ln_value - ln_truth).abs() <= tol,
+                    "case {case} k={k} {side:?}: ln {} vs {}",
+                    v.ln_value,
+                    ln_truth
+                );
+                (v.ln_value - ln_truth).abs().exp_m1()
             };
             assert!(
                 rel <= 1e-13,
                 "case {case} k={k} {side:?}: relative error {rel:e} (p = {}, truth ~ e^{ln_truth})",
-                v.p
+                v.value
             );
             assert!(rel <= v.rel_err, "case {case} k={k} {side:?}: relative bound {} < observed {rel:e}", v.rel_err);
             worst_rel = worst_rel.max(rel);

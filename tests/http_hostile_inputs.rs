@@ -35,12 +35,36 @@ async fn a_far_distribution_range_with_a_poisson_part_is_refused() {
 async fn a_stress_that_takes_a_rate_past_its_limit_is_refused() {
     let s = start(&[]).await;
     let cases = [
-        ("/v1/tail", json!({"portfolio": {"poisson_rates": [5]}, "thresholds": [3], "stress": {"odds_factor": 1e308}}), "/stress/odds_factor"),
-        ("/v1/quantiles", json!({"portfolio": {"poisson_rates": [5]}, "levels": [0.5], "stress": {"probability_factor": 1e308}}), "/stress/probability_factor"),
-        ("/v1/quantiles", json!({"portfolio": {"poisson_rates": [1e9]}, "levels": [0.5], "stress": {"probability_factor": 1e9}}), "/stress/probability_factor"),
-        ("/v1/distribution", json!({"portfolio": {"poisson_rates": [2]}, "stress": {"probability_factor": 1e300}}), "/stress/probability_factor"),
-        ("/v1/layers", json!({"portfolio": {"poisson_rates": [2]}, "layers": [{"attachment": 1}], "stress": {"odds_factor": 1e300}}), "/stress/odds_factor"),
-        ("/v1/contributions", json!({"portfolio": {"probabilities": [0.1], "poisson_rates": [2]}, "threshold": 1, "stress": {"odds_factor": 1e300}}), "/stress/odds_factor"),
+        (
+            "/v1/tail",
+            json!({"portfolio": {"poisson_rates": [5]}, "thresholds": [3], "stress": {"odds_factor": 1e308}}),
+            "/stress/odds_factor",
+        ),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": {"poisson_rates": [5]}, "levels": [0.5], "stress": {"probability_factor": 1e308}}),
+            "/stress/probability_factor",
+        ),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": {"poisson_rates": [1e9]}, "levels": [0.5], "stress": {"probability_factor": 1e9}}),
+            "/stress/probability_factor",
+        ),
+        (
+            "/v1/distribution",
+            json!({"portfolio": {"poisson_rates": [2]}, "stress": {"probability_factor": 1e300}}),
+            "/stress/probability_factor",
+        ),
+        (
+            "/v1/layers",
+            json!({"portfolio": {"poisson_rates": [2]}, "layers": [{"attachment": 1}], "stress": {"odds_factor": 1e300}}),
+            "/stress/odds_factor",
+        ),
+        (
+            "/v1/contributions",
+            json!({"portfolio": {"probabilities": [0.1], "poisson_rates": [2]}, "threshold": 1, "stress": {"odds_factor": 1e300}}),
+            "/stress/odds_factor",
+        ),
     ];
     for (path, body, pointer) in cases {
         let (st, ct, v) = s.post_json(path, &body).await;

@@ -1,4 +1,5 @@
-//! The operations routes end to end: /metrics (Prometheus text format) and /docs (offline documentation).
+//! The operations routes end to end: /metrics (Prometheus text format), /docs (offline documentation), the
+//! probes and the served OpenAPI document (equal to the committed one).
 
 mod common;
 use common::start;
@@ -68,4 +69,15 @@ async fn docs_page_is_self_contained_html_reading_the_served_spec() {
     for path in ["/v1/tail", "/metrics", "/docs", "/healthz", "/readyz"] {
         assert!(spec["paths"][path].is_object(), "{path} missing from the OpenAPI document");
     }
+}
+
+#[tokio::test]
+async fn health_and_openapi_are_served() {
+    let s = start(&[]).await;
+    assert_eq!(s.get("/healthz").await.0, 200);
+    assert_eq!(s.get("/readyz").await.0, 200);
+    let (status, _, spec) = s.get("/openapi.json").await;
+    assert_eq!(status, 200);
+    let committed = std::fs::read_to_string("openapi/openapi.json").unwrap();
+    assert_eq!(spec, committed);
 }

@@ -3,12 +3,13 @@
 
 use proptest::prelude::*;
 use serde_json::{json, Value};
-use tailtally::api::routes::{contributions, layers, quantiles, tail};
+use tailtally::analytics::cancel::Cancel;
+use tailtally::analytics::law::Law;
+use tailtally::analytics::quantiles::quantiles as engine_quantiles;
+use tailtally::analytics::{contributions, layers, quantiles, tail, Analytic};
 use tailtally::config::{Options, ServiceLimits};
-use tailtally::engine::contributions::contributions as engine_contributions;
-use tailtally::engine::law::Law;
-use tailtally::engine::moments::Moments;
-use tailtally::engine::quantiles::quantiles as engine_quantiles;
+use tailtally::engine::exact::leave_one_out::contributions as engine_contributions;
+use tailtally::engine::numerics::moments::Moments;
 use tailtally::engine::{MethodId, Side};
 use tailtally::portfolio::Model;
 
@@ -64,6 +65,11 @@ fn portfolio() -> impl Strategy<Value = Value> {
 }
 
 /// Either an answer or a problem with status 413 or 422 and at least one pointer for 422.
+/// The question's answer, or its refusal as the service would send it.
+fn compute<A: Analytic>(req: &A::Request, l: &ServiceLimits) -> Result<A::Answer, tailtally::api::problem::Problem> {
+    tailtally::analytics::run::<A>(req, l, &Cancel::never()).map_err(Into::into)
+}
+
 fn check<T>(r: Result<T, tailtally::api::problem::Problem>) {
     if let Err(p) = r {
         assert!(p.status == 413 || p.status == 422, "status {}", p.status);
@@ -84,9 +90,9 @@ fn generated_requests_mostly_reach_the_computation() {
     for _ in 0..300 {
         let (p, ks) = strategy.new_tree(&mut runner).unwrap().current();
         let body = json!({"portfolio": p, "thresholds": ks});
-        if let Ok(req) = serde_json::from_value::<tailtally::api::types::TailRequest>(body) {
+        if let Ok(req) = serde_json::from_value::<tail::TailRequest>(body) {
             parsed += 1;
-            valid += tail::compute(&req, &limits()).is_ok() as usize;
+            valid += compute::<tail::Tail>(&req, &limits()).is_ok() as usize;
         }
     }
     eprintln!("parsed {parsed}, answered {valid} of 300");
@@ -102,20 +108,20 @@ proptest! {
             side in prop_oneof![Just("upper"), Just("lower"), Just("point")], levels in prop::collection::vec(number(), 0..3)) {
         let l = limits();
         let t = json!({"portfolio": p, "thresholds": ks, "side": side, "methods": ["exact", "normal", "poisson", "saddlepoint", "auto"]});
-        if let Ok(req) = serde_json::from_value::<tailtally::api::types::TailRequest>(t) {
-            check(tail::compute(&req, &l));
+        if let Ok(req) = serde_json::from_value::<tail::TailRequest>(t) {
+            check(compute::<tail::Tail>(&req, &l));
         }
         let q = json!({"portfolio": p, "levels": levels, "methods": ["exact", "normal"]});
         if let Ok(req) = serde_json::from_value::<quantiles::QuantilesRequest>(q) {
-            check(quantiles::compute(&req, &l));
+            check(compute::<quantiles::Quantiles>(&req, &l));
         }
         let y = json!({"portfolio": p, "layers": [{"attachment": 2, "limit": 3}], "tail_levels": levels});
         if let Ok(req) = serde_json::from_value::<layers::LayersRequest>(y) {
-            check(layers::compute(&req, &l));
+            check(compute::<layers::Layers>(&req, &l));
         }
         let c = json!({"portfolio": p, "threshold": 2});
         if let Ok(req) = serde_json::from_value::<contributions::ContributionsRequest>(c) {
-            check(contributions::compute(&req, &l));
+            check(compute::<contributions::Contributions>(&req, &l));
         }
     }
 
@@ -128,7 +134,7 @@ proptest! {
         let law = Law::independent(model.clone());
         let tail = law.exact(&[(k, Side::Upper)])[0].value;
         for (c, &p) in engine_contributions(&model, &m, k).iter().zip(&ps) {
-            let lhs = c.tail_without.p + p * c.sensitivity.p;
+            let lhs = c.tail_without.value + p * c.sensitivity.value;
             prop_assert!((lhs - tail).abs() <= 1e-12 * tail.max(1e-300) + 1e-15, "{lhs} vs {tail}");
         }
         let q = &engine_quantiles(&law, &[level], MethodId::Exact, None)[0];

@@ -12,10 +12,15 @@
 //! have been. After `max_lines` lines the answers end with one 413 problem line and the rest of the input is
 //! not read.
 
-use crate::api::cancel::Cancel;
+use crate::analytics::cancel::Cancel;
+use crate::analytics::contributions::Contributions;
+use crate::analytics::distribution::Distribution;
+use crate::analytics::layers::Layers;
+use crate::analytics::quantiles::Quantiles;
+use crate::analytics::tail::Tail;
+use crate::analytics::{self, Analytic};
 use crate::api::extract;
 use crate::api::problem::Problem;
-use crate::api::routes::{contributions, distribution, layers, quantiles, tail};
 use crate::config::{BatchLimits, ServiceLimits};
 use crate::portfolio::Violation;
 use axum::http::StatusCode;
@@ -26,8 +31,39 @@ use serde_json::value::RawValue;
 use std::collections::VecDeque;
 use std::sync::{Arc, OnceLock};
 
-/// The request kinds a line may hold, by key.
-pub const KINDS: [&str; 5] = ["tail", "quantiles", "distribution", "layers", "contributions"];
+/// The request kinds a line may hold.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Kind {
+    Tail,
+    Quantiles,
+    Distribution,
+    Layers,
+    Contributions,
+}
+
+impl Kind {
+    pub const ALL: [Kind; 5] = [Kind::Tail, Kind::Quantiles, Kind::Distribution, Kind::Layers, Kind::Contributions];
+
+    /// The line's key for this kind (the route's last path segment).
+    pub fn key(self) -> &'static str {
+        match self {
+            Kind::Tail => "tail",
+            Kind::Quantiles => "quantiles",
+            Kind::Distribution => "distribution",
+            Kind::Layers => "layers",
+            Kind::Contributions => "contributions",
+        }
+    }
+
+    fn of_key(k: &str) -> Option<Kind> {
+        Kind::ALL.into_iter().find(|kind| kind.key() == k)
+    }
+
+    /// The keys, for messages: "tail, quantiles, ...".
+    fn keys() -> String {
+        Kind::ALL.map(Kind::key).join(", ")
+    }
+}
 
 /// One unit of input after splitting.
 #[derive(Debug, PartialEq, Eq)]
@@ -274,34 +310,35 @@ pub fn answer_line(
     let id = Some(env.id.as_str());
     let body = env.body.get().as_bytes();
     let result = match env.kind {
-        "tail" => run(body, |r| tail::compute_cancellable(r, limits, cancel)),
-        "quantiles" => run(body, |r| quantiles::compute_cancellable(r, limits, cancel)),
-        "distribution" => run(body, |r| distribution::compute_cancellable(r, limits, cancel)),
-        "contributions" => run(body, |r| contributions::compute_cancellable(r, limits, cancel)),
-        _ => run(body, |r| layers::compute_cancellable(r, limits, cancel)),
+        Kind::Tail => run::<Tail>(body, limits, cancel),
+        Kind::Quantiles => run::<Quantiles>(body, limits, cancel),
+        Kind::Distribution => run::<Distribution>(body, limits, cancel),
+        Kind::Layers => run::<Layers>(body, limits, cancel),
+        Kind::Contributions => run::<Contributions>(body, limits, cancel),
     };
     match result {
         Ok(json) => {
             let mut out = Vec::with_capacity(json.len() + env.id.len() + 24);
             out.extend_from_slice(b"{\"id\":");
             out.extend_from_slice(env.id.as_bytes());
-            out.extend_from_slice(format!(",\"{}\":", env.kind).as_bytes());
+            out.extend_from_slice(format!(",\"{}\":", env.kind.key()).as_bytes());
             out.extend_from_slice(&json);
             out.extend_from_slice(b"}\n");
             out
         }
-        Err(p) => problem_line(id, relocate(p, &format!("/{}", env.kind), no)),
+        Err(p) => problem_line(id, relocate(p, &format!("/{}", env.kind.key()), no)),
     }
 }
 
-fn run<T, R, F>(body: &[u8], f: F) -> Result<Vec<u8>, Problem>
+/// Decode one line's request, answer it with the question `A`, encode the answer.
+fn run<A>(body: &[u8], limits: &ServiceLimits, cancel: &Cancel) -> Result<Vec<u8>, Problem>
 where
-    T: serde::de::DeserializeOwned,
-    R: serde::Serialize,
-    F: FnOnce(&T) -> Result<R, Problem>,
+    A: Analytic,
+    A::Request: serde::de::DeserializeOwned,
+    A::Answer: serde::Serialize,
 {
-    let req: T = extract::parse(body)?;
-    let resp = f(&req)?;
+    let req: A::Request = extract::parse(body)?;
+    let resp = analytics::run::<A>(&req, limits, cancel)?;
     serde_json::to_vec(&resp).map_err(|e| Problem::internal(format!("could not write the answer: {e}")))
 }
 
@@ -338,7 +375,7 @@ fn on_line(no: u64, detail: &str) -> String {
 /// A line's object: its id (as JSON text, echoed verbatim) and its one request.
 struct Envelope<'a> {
     id: String,
-    kind: &'static str,
+    kind: Kind,
     body: &'a RawValue,
 }
 
@@ -386,7 +423,7 @@ fn parse_envelope(no: u64, line: &[u8]) -> Result<Envelope<'_>, Rejected> {
     };
     let mut errs = Vec::new();
     let mut id = None;
-    let mut kind: Option<(&'static str, &RawValue)> = None;
+    let mut kind: Option<(Kind, &RawValue)> = None;
     for (i, (k, v)) in members.0.iter().enumerate() {
         let ptr = format!("/{}", crate::api::problem::escape_token(k));
         if members.0[..i].iter().any(|(prev, _)| prev == k) {
@@ -400,21 +437,21 @@ fn parse_envelope(no: u64, line: &[u8]) -> Result<Envelope<'_>, Rejected> {
             } else {
                 errs.push(Violation::new(ptr, "the id must be a string or a number"));
             }
-        } else if let Some(&known) = KINDS.iter().find(|&&n| n == k) {
+        } else if let Some(known) = Kind::of_key(k) {
             if let Some((first, _)) = kind {
-                errs.push(Violation::new(ptr, format!("a line holds one request; it already has `{first}`")));
+                errs.push(Violation::new(ptr, format!("a line holds one request; it already has `{}`", first.key())));
             } else {
                 kind = Some((known, v));
             }
         } else {
-            errs.push(Violation::new(ptr, format!("unknown key: expected `id` and one of {}", KINDS.join(", "))));
+            errs.push(Violation::new(ptr, format!("unknown key: expected `id` and one of {}", Kind::keys())));
         }
     }
     if id.is_none() && !errs.iter().any(|e| e.pointer == "/id") {
         errs.push(Violation::new("/id", "required: a string or a number that the answer echoes"));
     }
     if kind.is_none() && errs.iter().all(|e| e.detail.starts_with("unknown key") || e.pointer == "/id") {
-        errs.push(Violation::new("", format!("give one request under one of the keys {}", KINDS.join(", "))));
+        errs.push(Violation::new("", format!("give one request under one of the keys {}", Kind::keys())));
     }
     match (id, kind) {
         (Some(id), Some((kind, body))) if errs.is_empty() => Ok(Envelope { id, kind, body }),

@@ -1,15 +1,16 @@
-//! The HTTP API: wire types, the problem-details error, the JSON extractor, routes and the OpenAPI document.
-//! Handlers validate, hand the work to the engine off the async threads, and copy the answer into wire form.
+//! The HTTP API: decode a request, call the analytics, encode the answer. Here are the problem-details error,
+//! the JSON extractor, the routes (one file each), the batch dispatcher (NDJSON), the SVG drawing of a chart,
+//! the OpenAPI document and the shared state of the handlers. No computation happens here: the questions and
+//! their wire types live in `crate::analytics`.
 
 pub mod batch;
-pub mod cancel;
 pub mod extract;
-pub mod metrics;
+pub mod offload;
 pub mod openapi;
 pub mod problem;
+pub mod responses;
 pub mod routes;
-pub mod scenario;
-pub mod types;
+pub mod svg;
 
 use crate::config::{BatchLimits, ServiceLimits};
 use std::sync::Arc;

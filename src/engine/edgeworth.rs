@@ -5,7 +5,7 @@
 //! O(1/n) only asymptotically, with no usable constant for a finite portfolio: the bound returned is an
 //! *estimate*, the size of the next terms of the expansion (kurtosis and squared skewness).
 
-use super::normal_law::{cdf, ln_pdf};
+use super::numerics::normal_law::{cdf, ln_pdf};
 use super::{BoundKind, Estimate, MethodId, Prepared, Side, TailMethod};
 
 pub struct Edgeworth;
@@ -28,10 +28,6 @@ fn cdf_at(prep: &Prepared, x: f64) -> (f64, f64) {
 }
 
 impl TailMethod for Edgeworth {
-    fn id(&self) -> MethodId {
-        MethodId::Edgeworth
-    }
-
     fn estimate(&self, prep: &Prepared, queries: &[(u64, Side)]) -> Vec<Estimate> {
         queries
             .iter()
@@ -57,5 +53,35 @@ impl TailMethod for Edgeworth {
                 Estimate::new(MethodId::Edgeworth, p, p.ln(), err.min(1.0), BoundKind::Estimated, start)
             })
             .collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::engine::normal::Normal;
+    use crate::portfolio::Model;
+    use statrs::distribution::{Binomial, DiscreteCDF};
+
+    /// On a skewed binomial (statrs' cdf as the reference) the skewness term beats the plain normal law in
+    /// the bulk. (Its estimated bound is not asserted here: at k = 4 it undershoots the error, 0.00137 against
+    /// 0.00269 measured, which is what the coverage test in tests/approximations.rs measures across portfolios.)
+    #[test]
+    fn skewness_correction_improves_on_the_normal_law_for_a_skewed_binomial() {
+        let (n, p) = (300u64, 0.03);
+        let model = Model::from_parts(&[], &[(n, p)], 0.0);
+        let prep = Prepared::new(&model);
+        let bin = Binomial::new(p, n).unwrap();
+        let ks: Vec<u64> = (4..16).collect();
+        let queries: Vec<(u64, Side)> = ks.iter().map(|&k| (k, Side::Lower)).collect();
+        let (ed, no) = (Edgeworth.estimate(&prep, &queries), Normal.estimate(&prep, &queries));
+        let (mut err_e, mut err_n) = (0.0f64, 0.0f64);
+        for ((e, m), &k) in ed.iter().zip(&no).zip(&ks) {
+            let truth = bin.cdf(k);
+            err_e = err_e.max((e.probability - truth).abs());
+            err_n = err_n.max((m.probability - truth).abs());
+            assert_eq!(e.bound_kind, BoundKind::Estimated);
+        }
+        assert!(err_e < 0.5 * err_n, "edgeworth {err_e} vs normal {err_n}");
     }
 }

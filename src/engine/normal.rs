@@ -9,7 +9,7 @@
 //! the Poisson part, as the limit of many tiny Bernoullis, contributes its rate. The bound is absolute: it says
 //! nothing useful in far tails, which is why the other methods exist.
 
-use super::normal_law::{cdf, ln_cdf, ln_sf, sf};
+use super::numerics::normal_law::{cdf, ln_cdf, ln_sf, sf};
 use super::{BoundKind, Estimate, MethodId, Prepared, Side, TailMethod};
 
 /// Shevtsova (2010).
@@ -29,10 +29,6 @@ impl Normal {
 }
 
 impl TailMethod for Normal {
-    fn id(&self) -> MethodId {
-        MethodId::Normal
-    }
-
     fn estimate(&self, prep: &Prepared, queries: &[(u64, Side)]) -> Vec<Estimate> {
         let m = &prep.moments;
         let sd = m.sd();
@@ -62,7 +58,7 @@ impl TailMethod for Normal {
                             let (a, b) = ((kf - 0.5 - m.mean) / sd, (kf + 0.5 - m.mean) / sd);
                             // Difference of two tails on the side where both are small, in log space.
                             let (la, lb) = if a > 0.0 { (ln_sf(a), ln_sf(b)) } else { (ln_cdf(b), ln_cdf(a)) };
-                            let ln = la + super::float::log1m_exp(lb - la);
+                            let ln = la + super::numerics::float::log1m_exp(lb - la);
                             (ln.exp(), ln)
                         }
                     }
@@ -70,5 +66,32 @@ impl TailMethod for Normal {
                 Estimate::new(MethodId::Normal, p, ln_p, Normal::bound(prep, side), BoundKind::Rigorous, start)
             })
             .collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::portfolio::Model;
+    use statrs::distribution::{Binomial, ContinuousCDF, DiscreteCDF, Normal as StatrsNormal};
+
+    /// The value is the continuity-corrected normal cdf (statrs' normal law as the closed form), and the
+    /// Berry-Esseen bound covers the distance to the binomial law (statrs' binomial cdf) at every count.
+    #[test]
+    fn continuity_corrected_normal_within_berry_esseen_of_the_binomial() {
+        let (n, p) = (400u64, 0.3);
+        let model = Model::from_parts(&[], &[(n, p)], 0.0);
+        let prep = Prepared::new(&model);
+        let (mean, sd) = (n as f64 * p, (n as f64 * p * (1.0 - p)).sqrt());
+        let phi = StatrsNormal::new(mean, sd).unwrap();
+        let bin = Binomial::new(p, n).unwrap();
+        let ks: Vec<u64> = (90..150).step_by(3).collect();
+        let queries: Vec<(u64, Side)> = ks.iter().map(|&k| (k, Side::Lower)).collect();
+        for (e, &k) in Normal.estimate(&prep, &queries).iter().zip(&ks) {
+            let closed = phi.cdf(k as f64 + 0.5);
+            assert!((e.probability - closed).abs() < 1e-13, "k={k}: {} vs {closed}", e.probability);
+            assert!((e.probability - bin.cdf(k)).abs() <= e.error_bound, "k={k}");
+            assert_eq!(e.bound_kind, BoundKind::Rigorous);
+        }
     }
 }

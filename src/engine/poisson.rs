@@ -7,7 +7,7 @@
 //! of every event's probability, so it holds for every side. The Poisson probabilities themselves are computed by
 //! the exact engine, so the value carries no error of its own beyond the approximation.
 
-use super::{exact, moments::Moments, BoundKind, Estimate, MethodId, Prepared, Side, TailMethod};
+use super::{exact, numerics::moments::Moments, BoundKind, Estimate, MethodId, Prepared, Side, TailMethod};
 use crate::portfolio::Model;
 
 pub struct PoissonApprox;
@@ -23,10 +23,6 @@ impl PoissonApprox {
 }
 
 impl TailMethod for PoissonApprox {
-    fn id(&self) -> MethodId {
-        MethodId::Poisson
-    }
-
     fn estimate(&self, prep: &Prepared, queries: &[(u64, Side)]) -> Vec<Estimate> {
         let start = std::time::Instant::now();
         // A rate below 1e-200 is rounding residue of mean - shift (every exposure certain or impossible).
@@ -49,7 +45,7 @@ impl TailMethod for PoissonApprox {
                     Some(p) => (*p, p.ln(), 0.0),
                     None => {
                         let v = vals.next().expect("one value per open query");
-                        (v.p, v.ln_p, (bound + v.abs_err).min(1.0))
+                        (v.value, v.ln_value, (bound + v.abs_err).min(1.0))
                     }
                 };
                 let mut e = Estimate::new(MethodId::Poisson, p, ln_p, err, BoundKind::Rigorous, start);
@@ -57,5 +53,29 @@ impl TailMethod for PoissonApprox {
                 e
             })
             .collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use statrs::distribution::{DiscreteCDF, Poisson};
+
+    /// The value is the Poisson law with the portfolio's mean (statrs' Poisson sf as the closed form), and
+    /// the Barbour-Hall bound covers its distance to the exact law of the portfolio.
+    #[test]
+    fn poisson_law_with_the_mean_within_the_barbour_hall_bound() {
+        let ps: Vec<f64> = (0..200).map(|i| 0.001 + 0.0002 * (i % 13) as f64).collect();
+        let model = Model::from_parts(&ps, &[], 0.0);
+        let prep = Prepared::new(&model);
+        let lam: f64 = ps.iter().sum();
+        let pois = Poisson::new(lam).unwrap();
+        let queries: Vec<(u64, Side)> = (1..8).map(|k| (k, Side::Upper)).collect();
+        let exact = exact::evaluate(&model, &prep.moments, &queries).0;
+        for ((e, x), &(k, _)) in PoissonApprox.estimate(&prep, &queries).iter().zip(&exact).zip(&queries) {
+            let closed = pois.sf(k - 1);
+            assert!((e.probability / closed - 1.0).abs() < 1e-9, "k={k}: {} vs {closed}", e.probability);
+            assert!((e.probability - x.value).abs() <= e.error_bound, "k={k}");
+        }
     }
 }

@@ -4,53 +4,13 @@
 //! (Edgeworth, saddlepoint) are never used to certify a tolerance. A relative tolerance r is met when
 //! bound <= r * (probability - bound), i.e. relative to the smallest value the truth can take.
 
-use super::{exact::Exact, normal::Normal, poisson::PoissonApprox, Estimate, MethodId, Prepared, Side, TailMethod};
-use serde::{Deserialize, Serialize};
-use utoipa::ToSchema;
-
-/// The accuracy a client asks for.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize, ToSchema)]
-#[serde(rename_all = "snake_case", deny_unknown_fields)]
-pub enum Tolerance {
-    /// |estimate - truth| <= a.
-    Absolute(f64),
-    /// |estimate - truth| <= r * truth.
-    Relative(f64),
-}
+use super::exact::Exact;
+use super::normal::Normal;
+use super::poisson::PoissonApprox;
+use super::vocabulary::{Check, Estimate, Prepared, Selection, Side, TailMethod, Tolerance};
 
 /// Documented default: 0.1% relative, what pricing work usually needs.
 pub const DEFAULT_TOLERANCE: Tolerance = Tolerance::Relative(1e-3);
-
-impl Tolerance {
-    pub fn met_by(&self, e: &Estimate) -> bool {
-        if e.bound_kind != super::BoundKind::Rigorous {
-            return false;
-        }
-        match *self {
-            Tolerance::Absolute(a) => e.error_bound <= a,
-            Tolerance::Relative(r) => {
-                e.error_bound <= r * (e.probability - e.error_bound).max(0.0) || e.error_bound == 0.0
-            }
-        }
-    }
-}
-
-/// One candidate that `auto` checked.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, ToSchema)]
-pub struct Check {
-    pub method: MethodId,
-    pub error_bound: f64,
-    pub meets_tolerance: bool,
-    pub elapsed_us: f64,
-}
-
-/// Why `auto` chose what it chose.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, ToSchema)]
-pub struct Selection {
-    pub tolerance: Tolerance,
-    pub chosen: MethodId,
-    pub checked: Vec<Check>,
-}
 
 fn check(e: &Estimate, tol: &Tolerance) -> Check {
     Check { method: e.method, error_bound: e.error_bound, meets_tolerance: tol.met_by(e), elapsed_us: e.elapsed_us }
@@ -89,4 +49,31 @@ pub fn auto(prep: &Prepared, queries: &[(u64, Side)], tol: Tolerance) -> Vec<Est
             e
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::engine::MethodId;
+    use crate::portfolio::Model;
+
+    /// A loose absolute tolerance is met by the normal law's rigorous bound; a relative tolerance of 1e-12
+    /// in a far tail only by exact; either way the answer says what was checked.
+    #[test]
+    fn auto_takes_the_cheapest_rigorous_bound_that_meets_the_tolerance() {
+        let ps: Vec<f64> = (0..500).map(|i| 0.02 + 0.1 * ((i * 7 % 11) as f64 / 11.0)).collect();
+        let model = Model::from_parts(&ps, &[], 0.0);
+        let prep = Prepared::new(&model);
+        let loose = auto(&prep, &[(40, Side::Upper)], Tolerance::Absolute(0.5)).remove(0);
+        assert_eq!(loose.method, MethodId::Normal);
+        assert!(loose.selection.as_ref().unwrap().checked.len() == 1);
+        let tight = auto(&prep, &[(120, Side::Upper)], Tolerance::Relative(1e-12)).remove(0);
+        assert_eq!(tight.method, MethodId::Exact);
+        let sel = tight.selection.unwrap();
+        assert_eq!(
+            sel.checked.iter().map(|c| c.method).collect::<Vec<_>>(),
+            [MethodId::Normal, MethodId::Poisson, MethodId::Exact]
+        );
+        assert!(!sel.checked[0].meets_tolerance && !sel.checked[1].meets_tolerance);
+    }
 }

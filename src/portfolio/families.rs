@@ -69,3 +69,12 @@ pub fn expand(f: &FamilySpec, mut sink: impl FnMut(f64)) {
         }
     }
 }
+/// The listed exposures' probabilities as the client numbered them: `probabilities`, then the members of
+/// each family in order (p = 0 and p = 1 included).
+pub fn listed_probabilities(spec: &super::spec::PortfolioSpec) -> Vec<f64> {
+    let mut listed = spec.probabilities.clone();
+    for f in &spec.families {
+        expand(f, |p| listed.push(p));
+    }
+    listed
+}

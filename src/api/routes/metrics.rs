@@ -13,7 +13,7 @@ pub const CONTENT_TYPE: &str = "text/plain; version=0.0.4; charset=utf-8";
                content_type = "text/plain; version=0.0.4; charset=utf-8"))
 )]
 pub async fn metrics() -> Response {
-    let mut res = crate::api::metrics::render().into_response();
+    let mut res = crate::telemetry::metrics::render().into_response();
     res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static(CONTENT_TYPE));
     res
 }

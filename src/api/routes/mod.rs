@@ -1,4 +1,26 @@
-//! One file per route.
+//! One file per route. The JSON questions' routes are all the same three steps (decode the question, answer
+//! it off the async threads, encode the answer), written once by [`json_route!`]; each route file names its
+//! question, types and documentation.
+
+/// A POST route that decodes a JSON question, answers it off the async threads (`api::offload`) and
+/// encodes the answer as JSON, with its OpenAPI operation (the shared problem answers included).
+macro_rules! json_route {
+    ($(#[$doc:meta])* $name:ident: $question:ty, $req:ty => $resp:ty,
+     path = $path:literal, tag = $tag:literal, ok = $ok:literal) => {
+        $(#[$doc])*
+        #[utoipa::path(
+            post, path = $path, tag = $tag,
+            request_body = $req,
+            responses((status = 200, description = $ok, body = $resp), ComputingProblems)
+        )]
+        pub async fn $name(
+            axum::extract::State(state): axum::extract::State<crate::api::AppState>,
+            crate::api::extract::Body(req): crate::api::extract::Body<$req>,
+        ) -> Result<axum::Json<$resp>, crate::api::problem::Problem> {
+            Ok(axum::Json(crate::api::offload::answer::<$question>(req, state.limits.clone()).await?))
+        }
+    };
+}
 
 pub mod batch;
 pub mod chart;

@@ -5,7 +5,7 @@
 
 use super::fft;
 use super::window::Window;
-use crate::engine::float::{compose, gamma};
+use crate::engine::numerics::float::{compose, gamma};
 use std::cmp::Reverse;
 use std::collections::BinaryHeap;
 

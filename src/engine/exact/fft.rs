@@ -10,7 +10,7 @@
 //! proof for every kernel; the tests compare with direct convolution on many sizes and the bound holds there
 //! with a factor of more than a thousand to spare.
 
-use crate::engine::float::U;
+use crate::engine::numerics::float::U;
 use realfft::RealFftPlanner;
 use std::cell::RefCell;
 

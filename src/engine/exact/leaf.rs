@@ -7,8 +7,8 @@
 //! distance from the mode.
 
 use super::window::Window;
-use crate::engine::cgf::{tilt_qr, TiltConsts, TILT_REL};
-use crate::engine::float::{compose, gamma, U};
+use crate::engine::numerics::cgf::{tilt_qr, TiltConsts, TILT_REL};
+use crate::engine::numerics::float::{compose, gamma, U};
 
 /// Exposures per Bernoulli leaf block. Small enough that the recursion's quadratic cost is negligible, large
 /// enough that the merge tree above it is shallow.
@@ -59,7 +59,7 @@ pub fn binomial(m: u64, p: f64, c: &TiltConsts) -> Window {
 /// Tilted Poisson(lambda) = Poisson(lambda e^t) over its Bernstein window (Bernstein's inequality holds for the
 /// Poisson law as the limit of sums of Bernoulli variables).
 pub fn poisson(lambda: f64, c: &TiltConsts) -> Window {
-    let mu = crate::engine::cgf::tilted_rate(lambda, c.t);
+    let mu = crate::engine::numerics::cgf::tilted_rate(lambda, c.t);
     if mu < 1e-300 {
         // exp(-mu) rounds to 1: the part is a point mass at 0 up to mu <= 1e-300.
         return degenerate(0, None, 1.0);

@@ -9,7 +9,7 @@
 //! window). Direct arithmetic on non-negative numbers keeps errors relative (`rel`); the FFT and truncation add
 //! absolute L1 error (`abs`). The propagation rules are in `Window::after_product`.
 
-use crate::engine::float::compose;
+use crate::engine::numerics::float::compose;
 
 /// ln of the tail mass that one truncation may drop on each side: exp(-75) ~ 2.7e-33.
 pub const TRUNC_LN: f64 = 75.0;
@@ -63,23 +63,6 @@ impl Window {
             None => hi_f.max(lo as f64) as u64,
         };
         (lo.min(hi), hi)
-    }
-
-    /// Drop the counts outside [lo, hi], adding the dropped exact mass (bounded by Bernstein) to `abs`.
-    pub fn truncate_to(&mut self, lo: u64, hi: u64) {
-        let (old_lo, old_hi) = (self.lo, self.hi());
-        let lo = lo.max(old_lo);
-        let hi = hi.min(old_hi);
-        if lo == old_lo && hi == old_hi {
-            return;
-        }
-        let dropped_sides = (lo > old_lo) as u8 + (hi < old_hi) as u8;
-        let start = (lo - old_lo) as usize;
-        let end = (hi - old_lo) as usize + 1;
-        self.w.truncate(end);
-        self.w.drain(..start);
-        self.lo = lo;
-        self.abs += (1.0 + self.rel) * dropped_sides as f64 * (-TRUNC_LN).exp();
     }
 
     /// Account for gradual underflow: each operation that lands below the normal range may lose up to

@@ -49,6 +49,16 @@ pub fn mills_minus_inverse(w: f64) -> f64 {
     }
 }
 
+/// Phi^-1(p) for p in (0, 1), accurate in both tails: from the smaller of p and 1 - p.
+pub fn normal_quantile(p: f64) -> f64 {
+    use statrs::function::erf::erfc_inv;
+    if p < 0.5 {
+        -std::f64::consts::SQRT_2 * erfc_inv(2.0 * p)
+    } else {
+        std::f64::consts::SQRT_2 * erfc_inv(2.0 * (1.0 - p))
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -62,5 +72,14 @@ mod tests {
         let a = sf(24.999).ln();
         let b = ln_pdf(24.999) - 24.999f64.ln() + asymptotic(24.999).ln();
         assert!((a - b).abs() < 1e-9 * a.abs());
+    }
+
+    #[test]
+    fn quantile_inverts_the_cdf_in_both_tails() {
+        for p in [1e-300, 1e-20, 1e-5, 0.01, 0.3, 0.5, 0.7, 0.99, 1.0 - 1e-10] {
+            let z = normal_quantile(p);
+            let back = cdf(z);
+            assert!((back / p - 1.0).abs() < 1e-9, "p = {p}: Phi(Phi^-1(p)) = {back}");
+        }
     }
 }

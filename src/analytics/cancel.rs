@@ -1,10 +1,9 @@
 //! Cancellation of abandoned computations. A blocking computation cannot be interrupted from outside, so
-//! the computing routes check a shared flag between their units of work (methods, levels, layers, the base
-//! and stressed laws) and give up early once nobody waits for the answer: the request timed out, the client
-//! went away, or a batch line ran over its time.
+//! the questions check a shared flag between their units of work (methods, levels, layers, the base and
+//! stressed laws) and give up early once nobody waits for the answer: the request timed out, the client went
+//! away, or a batch line ran over its time.
 
-use crate::api::problem::Problem;
-use axum::http::StatusCode;
+use super::error::Error;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 
@@ -33,16 +32,10 @@ impl Cancel {
         self.0.as_ref().is_some_and(|f| f.load(Ordering::Relaxed))
     }
 
-    /// `Err` once cancelled: the answer would be thrown away, so the computation stops with a problem that
-    /// nobody is expected to read (408, the usual reason).
-    pub fn check(&self) -> Result<(), Problem> {
+    /// `Err` once cancelled: the answer would be thrown away, so the computation stops.
+    pub fn check(&self) -> Result<(), Error> {
         if self.is_cancelled() {
-            return Err(Problem::new(
-                StatusCode::REQUEST_TIMEOUT,
-                "timeout",
-                "Request timeout",
-                "the computation was abandoned: its time ran out or the client went away",
-            ));
+            return Err(Error::Cancelled);
         }
         Ok(())
     }
@@ -60,18 +53,6 @@ impl Drop for CancelOnDrop {
     }
 }
 
-/// Run a computing route's work on the blocking pool, off the async threads, with a cancellation flag whose
-/// guard lives in the calling future: when the timeout (or a client going away) drops that future, the
-/// computation sees the flag and stops.
-pub async fn off_executor<T: Send + 'static>(
-    work: impl FnOnce(&Cancel) -> Result<T, Problem> + Send + 'static,
-) -> Result<T, Problem> {
-    let (cancel, _guard) = Cancel::pair();
-    tokio::task::spawn_blocking(move || work(&cancel))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))?
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -82,7 +63,7 @@ mod tests {
         assert!(c.check().is_ok());
         drop(guard);
         assert!(c.is_cancelled());
-        assert_eq!(c.check().unwrap_err().status, 408);
+        assert_eq!(c.check(), Err(Error::Cancelled));
         assert!(Cancel::never().check().is_ok());
     }
 }

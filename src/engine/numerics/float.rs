@@ -96,16 +96,8 @@ pub fn log1m_exp(x: f64) -> f64 {
     }
 }
 
-/// A probability given by its natural logarithm, turned into f64 (0 when it underflows).
-pub fn exp_prob(ln_p: f64) -> f64 {
-    if ln_p >= 0.0 {
-        1.0
-    } else {
-        ln_p.exp()
-    }
-}
-
-/// Smallest double >= x: used to round error bounds up so that rounding never makes a bound smaller.
+/// x rounded up by a few ulps (never below x): error bounds pass through it so that the rounding of their
+/// own arithmetic never makes a bound smaller.
 pub fn up(x: f64) -> f64 {
     if x.is_nan() || x == f64::INFINITY {
         return x;

@@ -1,106 +1,15 @@
 //! SVG pictures of the law of the count: the exact pmf as bars, the tail asked about shaded, the threshold
 //! marked and approximations overlaid as lines, on a linear or a logarithmic probability axis.
 //!
-//! Pure rendering: the caller computes the probabilities (as natural logarithms, so that values below the f64
-//! range still plot on the log axis) and this module only turns them into markup. Output depends on nothing
-//! but the input (fixed number formatting, no clock, no randomness), so the same request always gives the same
-//! bytes. The choice of counts to plot lives here too ([`plot_counts`]); the explorer page applies the same rule.
+//! Pure rendering of the chart question's answer (`analytics::chart`, which also chooses the counts): its
+//! probabilities come as natural logarithms, so that values below the f64 range still plot on the log axis,
+//! and this module only turns them into markup, section by section. Output depends on nothing but the input
+//! (fixed number formatting, no clock, no randomness), so the same request always gives the same bytes.
 
+use crate::analytics::chart::ChartData;
 use crate::engine::{MethodId, Side};
 use std::f64::consts::LN_10;
 use std::fmt::Write;
-
-/// Most bars drawn: beyond this the counts are sampled with a stride.
-pub const MAX_POINTS: u64 = 300;
-
-/// Standard deviations either side of the mean that the plot covers (before the threshold is added).
-pub const SPREAD_SD: f64 = 6.0;
-
-/// The counts to plot, in increasing order, and the stride between them.
-///
-/// The bulk mean +- 6 sd (clipped to the support) decides the stride, so that it fits in [`MAX_POINTS`] bars;
-/// the threshold (clamped to the support) is always one of the counts. A threshold far outside the bulk moves
-/// the window to the threshold rather than stretching the stride, since the bulk would then be a few pixels
-/// wide anyway; the window keeps a fifth of its width on the far side of the threshold.
-pub fn plot_counts(
-    mean: f64,
-    sd: f64,
-    support_min: u64,
-    support_max: Option<u64>,
-    threshold: u64,
-    side: Side,
-) -> (Vec<u64>, u64) {
-    let max = support_max.unwrap_or(u64::MAX);
-    let clip = |x: f64| -> u64 {
-        if x.is_nan() || x <= support_min as f64 {
-            support_min
-        } else if x >= max as f64 {
-            max
-        } else {
-            x as u64
-        }
-    };
-    let bulk_lo = clip((mean - SPREAD_SD * sd).floor());
-    let bulk_hi = clip((mean + SPREAD_SD * sd).ceil()).max(bulk_lo);
-    let k = threshold.clamp(support_min, max);
-    let stride = (bulk_hi - bulk_lo) / MAX_POINTS + 1;
-    let (mut lo, mut hi) = (bulk_lo.min(k), bulk_hi.max(k));
-    // Show some of the tail beyond a threshold at the edge of the bulk, not just its first bar.
-    let ext = ((bulk_hi - bulk_lo) / 8).max(3 * stride);
-    match side {
-        Side::Upper => hi = hi.max(k.saturating_add(ext).min(max)),
-        Side::Lower => lo = lo.min(k.saturating_sub(ext).max(support_min)),
-        Side::Point => {}
-    }
-    let span = (MAX_POINTS - 1) * stride;
-    if hi - lo > span {
-        let margin = span / 5;
-        if k > bulk_hi {
-            hi = k.saturating_add(margin).min(max);
-            lo = hi.saturating_sub(span).max(support_min);
-        } else {
-            lo = k.saturating_sub(margin).max(support_min);
-            hi = lo.saturating_add(span).min(max);
-        }
-    }
-    // Grid points k + j * stride inside [lo, hi].
-    let first = k - (k - lo) / stride * stride;
-    let mut counts = Vec::new();
-    let mut c = first;
-    while c <= hi {
-        counts.push(c);
-        match c.checked_add(stride) {
-            Some(n) => c = n,
-            None => break,
-        }
-    }
-    (counts, stride)
-}
-
-/// One approximation drawn as a line: ln P(S = k) at each plotted count (None where it is 0).
-pub struct Overlay<'a> {
-    pub method: MethodId,
-    pub ln: &'a [Option<f64>],
-}
-
-/// Everything one picture shows.
-pub struct Chart<'a> {
-    pub counts: &'a [u64],
-    pub stride: u64,
-    /// Exact ln P(S = k) at each count (None where P = 0).
-    pub exact_ln: &'a [Option<f64>],
-    pub overlays: Vec<Overlay<'a>>,
-    pub threshold: u64,
-    pub side: Side,
-    /// Exact ln of the probability asked about (the shaded tail), for the title.
-    pub tail_ln: Option<f64>,
-    pub exposures: u64,
-    pub mean: f64,
-    pub sd: f64,
-    pub log_scale: bool,
-    pub width: u32,
-    pub height: u32,
-}
 
 /// Colours of the picture: one ink per series, chosen to stay apart for common colour-vision deficiencies
 /// (they also differ in dash pattern).
@@ -245,24 +154,42 @@ fn fmt_linear_tick(v: f64, step: f64) -> String {
     }
 }
 
-/// Render the picture.
-pub fn render(c: &Chart) -> String {
-    let w = c.width as f64;
-    let h = c.height as f64;
-    let n = c.counts.len().max(1);
-    let legend_h = 22.0;
-    let (left, right, top, bottom) = (74.0, 18.0, 54.0, 52.0 + legend_h);
-    let pw = (w - left - right).max(10.0);
-    let ph = (h - top - bottom).max(10.0);
-    let slot = pw / n as f64;
-    let x_of = |i: usize| left + slot * (i as f64 + 0.5);
+/// The plot's geometry and vertical scale, shared by every section of the drawing.
+struct Frame {
+    w: f64,
+    h: f64,
+    left: f64,
+    top: f64,
+    /// Plot width and height.
+    pw: f64,
+    ph: f64,
+    /// Horizontal room of one count.
+    slot: f64,
+    base_y: f64,
+    /// The vertical range, in log10 units on the log axis and in probability on the linear one.
+    y_lo: f64,
+    y_hi: f64,
+    log_scale: bool,
+}
 
-    // Vertical scale: in log10 units on the log axis, in probability on the linear one.
-    let all_ln = c.exact_ln.iter().chain(c.overlays.iter().flat_map(|o| o.ln.iter())).filter_map(|v| *v);
-    let exact_l10 = || c.exact_ln.iter().filter_map(|v| *v).map(|l| l / LN_10);
-    let (y_lo, y_hi, ticks): (f64, f64, Vec<(f64, String)>) = if c.log_scale {
+impl Frame {
+    fn x_of(&self, i: usize) -> f64 {
+        self.left + self.slot * (i as f64 + 0.5)
+    }
+
+    fn y_of(&self, ln: f64) -> f64 {
+        let v = if self.log_scale { ln / LN_10 } else { ln.exp() };
+        let f = ((v - self.y_lo) / (self.y_hi - self.y_lo)).clamp(-0.05, 1.05);
+        self.top + self.ph * (1.0 - f)
+    }
+}
+
+/// The vertical range and its ticks (value, label; the log axis labels its ticks as powers of ten).
+fn vertical_scale(c: &ChartData) -> (f64, f64, Vec<(f64, String)>) {
+    let all_ln = c.exact_ln.iter().chain(c.overlays.iter().flat_map(|(_, ln)| ln.iter())).filter_map(|v| *v);
+    if c.log_scale {
         let hi_l = all_ln.fold(f64::NEG_INFINITY, f64::max) / LN_10;
-        let lo_l = exact_l10().fold(f64::INFINITY, f64::min);
+        let lo_l = c.exact_ln.iter().filter_map(|v| *v).map(|l| l / LN_10).fold(f64::INFINITY, f64::min);
         // The floor sits a little below the smallest bar, so that bar keeps a visible height.
         let (mut lo, mut hi) = if hi_l.is_finite() && lo_l.is_finite() {
             ((lo_l - 0.02 * (hi_l - lo_l).max(1.0)).floor(), hi_l.ceil())
@@ -295,15 +222,37 @@ pub fn render(c: &Chart) -> String {
             i += 1.0;
         }
         (0.0, top, ticks)
-    };
-    let y_of = |ln: f64| -> f64 {
-        let v = if c.log_scale { ln / LN_10 } else { ln.exp() };
-        let f = ((v - y_lo) / (y_hi - y_lo)).clamp(-0.05, 1.05);
-        top + ph * (1.0 - f)
-    };
-    let base_y = top + ph;
+    }
+}
 
+/// Render the picture.
+pub fn render(c: &ChartData) -> String {
+    let w = c.width as f64;
+    let h = c.height as f64;
+    let n = c.counts.len().max(1);
+    let legend_h = 22.0;
+    let (left, right, top, bottom) = (74.0, 18.0, 54.0, 52.0 + legend_h);
+    let pw = (w - left - right).max(10.0);
+    let ph = (h - top - bottom).max(10.0);
+    let (y_lo, y_hi, ticks) = vertical_scale(c);
+    let f =
+        Frame { w, h, left, top, pw, ph, slot: pw / n as f64, base_y: top + ph, y_lo, y_hi, log_scale: c.log_scale };
     let mut s = String::with_capacity(8192 + 120 * n);
+    header(&mut s, c, &f);
+    tail_band(&mut s, c, &f);
+    y_axis(&mut s, &f, &ticks);
+    bars(&mut s, c, &f);
+    overlays(&mut s, c, &f);
+    threshold_marker(&mut s, c, &f);
+    x_axis(&mut s, c, &f);
+    legend(&mut s, c, &f);
+    s.push_str("</svg>\n");
+    s
+}
+
+/// The document's opening, its title (the probability asked about) and subtitle, and the plot's clip path.
+fn header(s: &mut String, c: &ChartData, f: &Frame) {
+    let (w, h, left, top, pw, ph) = (f.w, f.h, f.left, f.top, f.pw, f.ph);
     let title = format!("{} = {}", side_label(c.side, c.threshold), fmt_prob(c.tail_ln));
     let subtitle = format!(
         "{} exposures \u{b7} mean {} \u{b7} sd {}{}",
@@ -326,29 +275,36 @@ pub fn render(c: &Chart) -> String {
         t = esc(&title),
         sub = esc(&subtitle),
     );
+}
 
-    // Tail region: one band over the counts in the tail.
+/// The tail region: one band over the counts in the tail.
+fn tail_band(s: &mut String, c: &ChartData, f: &Frame) {
     let tail_idx: Vec<usize> = (0..c.counts.len()).filter(|&i| in_tail(c.side, c.counts[i], c.threshold)).collect();
     if let (Some(&a), Some(&b)) = (tail_idx.first(), tail_idx.last()) {
-        let x0 = left + slot * a as f64;
-        let x1 = left + slot * (b + 1) as f64;
+        let x0 = f.left + f.slot * a as f64;
+        let x1 = f.left + f.slot * (b + 1) as f64;
         let _ = writeln!(
             s,
-            "<rect class=\"tail-region\" x=\"{x0:.2}\" y=\"{top}\" width=\"{:.2}\" height=\"{ph:.2}\" fill=\"{TAIL_FILL}\" fill-opacity=\"0.55\"/>",
-            x1 - x0
+            "<rect class=\"tail-region\" x=\"{x0:.2}\" y=\"{}\" width=\"{:.2}\" height=\"{:.2}\" fill=\"{TAIL_FILL}\" fill-opacity=\"0.55\"/>",
+            f.top,
+            x1 - x0,
+            f.ph
         );
     }
+}
 
-    // Grid and y ticks.
+/// Grid lines and probability ticks.
+fn y_axis(s: &mut String, f: &Frame, ticks: &[(f64, String)]) {
+    let (left, top, pw, ph) = (f.left, f.top, f.pw, f.ph);
     let _ = writeln!(s, "<g class=\"y-axis\" font-size=\"11\" fill=\"{MUTED}\">");
-    for (v, label) in &ticks {
-        let y = top + ph * (1.0 - (v - y_lo) / (y_hi - y_lo));
+    for (v, label) in ticks {
+        let y = top + ph * (1.0 - (v - f.y_lo) / (f.y_hi - f.y_lo));
         let _ = writeln!(
             s,
             "<line x1=\"{left}\" x2=\"{:.2}\" y1=\"{y:.2}\" y2=\"{y:.2}\" stroke=\"{GRID}\" stroke-width=\"1\"/>",
             left + pw
         );
-        if c.log_scale {
+        if f.log_scale {
             let _ = writeln!(
                 s,
                 "<text x=\"{:.2}\" y=\"{:.2}\" text-anchor=\"end\">10<tspan dy=\"-5\" font-size=\"8.5\">{}</tspan></text>",
@@ -362,33 +318,38 @@ pub fn render(c: &Chart) -> String {
         }
     }
     s.push_str("</g>\n");
+}
 
-    // Bars.
-    let bar_w = if slot > 3.0 { slot * 0.82 } else { slot };
+/// The exact pmf as bars, those in the tail in their own colour.
+fn bars(s: &mut String, c: &ChartData, f: &Frame) {
+    let base_y = f.base_y;
+    let bar_w = if f.slot > 3.0 { f.slot * 0.82 } else { f.slot };
     let mut plain = String::new();
     let mut tail = String::new();
     for (i, v) in c.exact_ln.iter().enumerate() {
         let Some(l) = v else { continue };
-        let y = y_of(*l);
+        let y = f.y_of(*l);
         if base_y - y < 0.05 {
             continue;
         }
-        let x = x_of(i) - bar_w / 2.0;
+        let x = f.x_of(i) - bar_w / 2.0;
         let target = if in_tail(c.side, c.counts[i], c.threshold) { &mut tail } else { &mut plain };
         let _ = write!(target, "M{x:.2} {base_y:.2}V{y:.2}h{bar_w:.2}V{base_y:.2}Z");
     }
     let _ = writeln!(s, "<path class=\"bars\" d=\"{plain}\" fill=\"{BAR}\"/>");
     let _ = writeln!(s, "<path class=\"tail-bars\" d=\"{tail}\" fill=\"{TAIL_BAR}\"/>");
+}
 
-    // Overlays, clipped to the plot; a gap where a method gives 0.
-    for o in &c.overlays {
-        let (col, dash) = overlay_style(o.method);
+/// The approximations as lines, clipped to the plot; a gap where a method gives 0.
+fn overlays(s: &mut String, c: &ChartData, f: &Frame) {
+    for (method, ln) in &c.overlays {
+        let (col, dash) = overlay_style(*method);
         let mut d = String::new();
         let mut pen_down = false;
-        for (i, v) in o.ln.iter().enumerate() {
+        for (i, v) in ln.iter().enumerate() {
             match v {
                 Some(l) => {
-                    let _ = write!(d, "{}{:.2} {:.2}", if pen_down { "L" } else { "M" }, x_of(i), y_of(*l));
+                    let _ = write!(d, "{}{:.2} {:.2}", if pen_down { "L" } else { "M" }, f.x_of(i), f.y_of(*l));
                     pen_down = true;
                 }
                 None => pen_down = false,
@@ -398,31 +359,37 @@ pub fn render(c: &Chart) -> String {
         let _ = writeln!(
             s,
             "<path class=\"overlay overlay-{}\" d=\"{d}\" fill=\"none\" stroke=\"{col}\" stroke-width=\"2\"{dash_attr} clip-path=\"url(#plot-area)\"/>",
-            method_name(o.method)
+            method_name(*method)
         );
     }
+}
 
-    // Threshold marker.
-    if let Some(i) = c.counts.iter().position(|&k| k == c.threshold).or_else(|| {
-        // Outside the support: mark the nearest edge.
+/// The threshold's dashed line and label (at the nearest edge when it is outside the plotted counts).
+fn threshold_marker(s: &mut String, c: &ChartData, f: &Frame) {
+    let at = c.counts.iter().position(|&k| k == c.threshold).or_else(|| {
         if c.threshold < *c.counts.first()? {
             Some(0)
         } else {
             Some(c.counts.len() - 1)
         }
-    }) {
-        let x = x_of(i);
+    });
+    if let Some(i) = at {
+        let x = f.x_of(i);
         let _ = writeln!(
             s,
-            "<g class=\"threshold\"><line x1=\"{x:.2}\" x2=\"{x:.2}\" y1=\"{:.2}\" y2=\"{base_y:.2}\" stroke=\"{INK}\" stroke-width=\"1.5\" stroke-dasharray=\"4 3\"/>\
+            "<g class=\"threshold\"><line x1=\"{x:.2}\" x2=\"{x:.2}\" y1=\"{:.2}\" y2=\"{:.2}\" stroke=\"{INK}\" stroke-width=\"1.5\" stroke-dasharray=\"4 3\"/>\
              <text x=\"{x:.2}\" y=\"{:.2}\" font-size=\"11\" text-anchor=\"middle\" fill=\"{INK}\">k = {}</text></g>",
-            top - 2.0,
-            top - 5.0,
+            f.top - 2.0,
+            f.base_y,
+            f.top - 5.0,
             fmt_count(c.threshold)
         );
     }
+}
 
-    // Axes and x ticks.
+/// The axes, the count ticks at round numbers and both axis labels.
+fn x_axis(s: &mut String, c: &ChartData, f: &Frame) {
+    let (left, top, pw, ph, slot, base_y) = (f.left, f.top, f.pw, f.ph, f.slot, f.base_y);
     let _ = writeln!(
         s,
         "<path class=\"axes\" d=\"M{left} {top}V{base_y:.2}H{:.2}\" fill=\"none\" stroke=\"{INK}\" stroke-width=\"1\"/>",
@@ -461,17 +428,18 @@ pub fn render(c: &Chart) -> String {
         "<text class=\"y-label\" transform=\"translate(16 {:.2}) rotate(-90)\" font-size=\"12\" text-anchor=\"middle\" fill=\"{INK}\">{ylab}</text>",
         top + ph / 2.0
     );
+}
 
-    // Legend.
-    let ly = h - 14.0;
-    let mut lx = left;
+/// One legend entry per series: (colour, dash, drawn as a bar, label).
+fn legend(s: &mut String, c: &ChartData, f: &Frame) {
+    let ly = f.h - 14.0;
+    let mut lx = f.left;
     let _ = writeln!(s, "<g class=\"legend\" font-size=\"11.5\" fill=\"{INK}\">");
-    // (colour, dash, is a bar) per entry.
     let tail_label = format!("tail {}", side_label(c.side, c.threshold));
     let mut entries: Vec<(&str, &str, bool, &str)> = vec![(BAR, "", true, "exact"), (TAIL_BAR, "", true, &tail_label)];
-    for o in &c.overlays {
-        let (col, dash) = overlay_style(o.method);
-        entries.push((col, dash, false, method_name(o.method)));
+    for (method, _) in &c.overlays {
+        let (col, dash) = overlay_style(*method);
+        entries.push((col, dash, false, method_name(*method)));
     }
     for (col, dash, bar, label) in entries {
         if bar {
@@ -489,36 +457,12 @@ pub fn render(c: &Chart) -> String {
         let _ = writeln!(s, "<text x=\"{:.2}\" y=\"{ly:.2}\">{}</text>", lx + 22.0, esc(label));
         lx += 30.0 + 6.6 * label.chars().count() as f64;
     }
-    s.push_str("</g>\n</svg>\n");
-    s
+    s.push_str("</g>\n");
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn plot_counts_cover_the_bulk_and_the_threshold() {
-        let up = Side::Upper;
-        let (c, s) = plot_counts(85.5, 9.1, 0, None, 110, up);
-        assert_eq!(s, 1);
-        assert_eq!((c[0], *c.last().unwrap()), (30, 141));
-        // A threshold beyond the bulk is included with some of its tail; a far one moves the window.
-        let (c, _) = plot_counts(85.5, 9.1, 0, None, 200, up);
-        assert!(c.contains(&200) && c[0] == 30 && *c.last().unwrap() == 213);
-        let (c, _) = plot_counts(85.5, 9.1, 0, None, 20, Side::Lower);
-        assert!(c[0] == 7 && *c.last().unwrap() == 141);
-        let (c, s) = plot_counts(85.5, 9.1, 0, None, 5000, up);
-        assert_eq!(s, 1);
-        assert!(c.contains(&5000) && c.len() as u64 == MAX_POINTS);
-        // Clipped to the support, a threshold above it clamped onto its edge.
-        let (c, _) = plot_counts(0.6, 0.68, 0, Some(3), 9, up);
-        assert_eq!(c, vec![0, 1, 2, 3]);
-        // A wide law is sampled with a stride that keeps the threshold on the grid.
-        let (c, s) = plot_counts(1e6, 1e3, 0, None, 1_000_123, Side::Point);
-        assert!(s > 1 && c.len() as u64 <= MAX_POINTS && c.contains(&1_000_123));
-        assert!(c.windows(2).all(|w| w[1] - w[0] == s));
-    }
 
     #[test]
     fn probabilities_format_from_their_logarithm() {

@@ -1,4 +1,7 @@
-//! Logging: structured events through `tracing`, as text or JSON lines, filtered by RUST_LOG.
+//! Logging (structured events through `tracing`, as text or JSON lines, filtered by RUST_LOG) and the
+//! service's metrics registry (`metrics`).
+
+pub mod metrics;
 
 use crate::config::LogFormat;
 use tracing_subscriber::EnvFilter;

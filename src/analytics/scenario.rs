@@ -1,16 +1,31 @@
-//! What every analytics request shares besides its portfolio: an optional stress and an optional dependence
-//! model. This file validates them, builds the law (base and stressed) and describes in the response which
-//! model was used. The engine does the work; this is the wire side.
+//! What every question shares besides its own fields: the portfolio validated into a model, an optional
+//! stress and an optional dependence model, the work budget, and the laws built from them (the stressed one
+//! and, under stress, the base). Also how the answer describes the model it used (`ModelOut`).
 
-use crate::api::problem::Problem;
+use super::dependence::{Dependence, MAX_NODES};
+use super::error::Error;
+use super::law::Law;
 use crate::config::ServiceLimits;
-use crate::engine::dependence::{Dependence, MAX_NODES};
-use crate::engine::law::{Law, LawValue};
-use crate::engine::BoundKind;
 use crate::portfolio::stress::{stressed, Stress};
 use crate::portfolio::{validate::build_model, Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
+
+/// The model's assumptions, returned with every answer.
+pub const ASSUMPTIONS: &[&str] = &[
+    "Exposures and sources are mutually independent unless a dependence model is named in `model`; under the one-factor Gaussian model they are independent given the common factor, and Poisson sources are independent of it.",
+    "Each listed probability is the exposure's event probability over the same period.",
+    "Results support, and do not replace, the judgement of a qualified actuary or engineer and the rules of local regulation.",
+];
+
+/// [`ASSUMPTIONS`] as an answer carries them.
+pub fn assumptions() -> Vec<String> {
+    ASSUMPTIONS.iter().map(|s| s.to_string()).collect()
+}
+
+/// Largest count (threshold, range end, layer bound) served for an unbounded (Poisson) portfolio: its tilted
+/// window then holds about 10^6 counts.
+pub const MAX_UNBOUNDED_COUNT: u64 = 1_000_000_000;
 
 /// How the law was modelled, echoed in every answer.
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
@@ -25,37 +40,8 @@ pub struct ModelOut {
     pub stress: Option<Stress>,
 }
 
-/// A value (a probability or an expected count) with its error bound.
-#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
-pub struct ValueOut {
-    pub value: f64,
-    /// Natural logarithm of the value, finite where the value underflows; null only when the value is 0.
-    pub ln_value: Option<f64>,
-    /// Bound on |value - truth|.
-    pub error_bound: f64,
-    pub bound_kind: BoundKind,
-}
-
-impl From<LawValue> for ValueOut {
-    fn from(v: LawValue) -> Self {
-        ValueOut {
-            value: v.value,
-            ln_value: v.ln_value.is_finite().then_some(v.ln_value),
-            error_bound: v.abs_err,
-            bound_kind: v.kind,
-        }
-    }
-}
-
-/// The laws a request asks about: the stressed one (or the base when unstressed), and the base under stress.
-pub struct Scenario {
-    pub law: Law,
-    pub base: Option<Law>,
-    pub stress: Option<Stress>,
-}
-
-impl Scenario {
-    pub fn model_out(law: &Law, stress: Option<Stress>) -> ModelOut {
+impl ModelOut {
+    pub fn of(law: &Law, stress: Option<Stress>) -> ModelOut {
         ModelOut {
             dependence: law.dependence,
             nodes_evaluated: law.is_mixture().then(|| {
@@ -65,16 +51,29 @@ impl Scenario {
             stress,
         }
     }
+}
 
-    /// Multiplier of the work of one independent evaluation under this scenario (quadrature nodes of both
-    /// rules, and a second law under stress).
-    pub fn work_factor(stress: &Option<Stress>, dep: &Option<Dependence>) -> f64 {
-        let nodes = match dep {
-            Some(Dependence::OneFactorGaussian { nodes, .. }) => *nodes as f64 * 3.0,
-            _ => 1.0,
-        };
-        nodes * if stress.is_some() { 2.0 } else { 1.0 }
-    }
+/// The laws a request asks about: the stressed one (or the base when unstressed), and the base under stress.
+pub struct Laws {
+    pub law: Law,
+    pub base: Option<Law>,
+    pub stress: Option<Stress>,
+}
+
+/// Multiplier of the work of one independent evaluation under this scenario (quadrature nodes of both
+/// rules, and a second law under stress).
+pub fn work_factor(stress: &Option<Stress>, dep: &Option<Dependence>) -> f64 {
+    let nodes = match dep {
+        Some(Dependence::OneFactorGaussian { nodes, .. }) => *nodes as f64 * 3.0,
+        _ => 1.0,
+    };
+    nodes * if stress.is_some() { 2.0 } else { 1.0 }
+}
+
+/// The work a model costs for `evaluations` exact tails, in exposure-threshold units, to compare with
+/// `--max-work`.
+pub fn work_of(model: &Model, evaluations: usize) -> f64 {
+    (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * evaluations as f64
 }
 
 /// Check the stress and dependence fields; `errs` collects violations with pointers.
@@ -105,12 +104,12 @@ pub fn model(
     stress: &Option<Stress>,
     limits: &ServiceLimits,
     mut errs: Vec<Violation>,
-) -> Result<Model, Problem> {
+) -> Result<Model, Error> {
     let m = match build_model(spec, "/portfolio", &limits.portfolio) {
         Ok(m) => m,
         Err(mut v) => {
             errs.append(&mut v);
-            return Err(Problem::invalid(errs));
+            return Err(Error::Invalid(errs));
         }
     };
     if let Some(s) = stress {
@@ -125,17 +124,17 @@ pub fn model(
         }
     }
     if !errs.is_empty() {
-        return Err(Problem::invalid(errs));
+        return Err(Error::Invalid(errs));
     }
-    crate::api::metrics::exposures_processed(m.exposures);
+    crate::telemetry::metrics::exposures_processed(m.exposures);
     Ok(m)
 }
 
 /// Refuse work over the budget (exposures x evaluations x scenario factor).
-pub fn check_work(model: &Model, evaluations: f64, factor: f64, limits: &ServiceLimits) -> Result<(), Problem> {
-    let work = crate::api::routes::tail::work_of(model, 1) * evaluations * factor;
+pub fn check_work(model: &Model, evaluations: f64, factor: f64, limits: &ServiceLimits) -> Result<(), Error> {
+    let work = work_of(model, 1) * evaluations * factor;
     if work > limits.max_work {
-        return Err(Problem::too_large(format!(
+        return Err(Error::TooLarge(format!(
             "estimated work {work:.0} (exposures x evaluations x nodes) exceeds the work budget {} (see --max-work); split the request",
             limits.max_work
         )));
@@ -144,13 +143,13 @@ pub fn check_work(model: &Model, evaluations: f64, factor: f64, limits: &Service
 }
 
 /// The stressed and base laws under the dependence model.
-pub fn build(model: Model, stress: Option<Stress>, dep: Option<Dependence>) -> Scenario {
+pub fn build(model: Model, stress: Option<Stress>, dep: Option<Dependence>) -> Laws {
     let dep = dep.unwrap_or(Dependence::Independent);
     match stress {
-        None => Scenario { law: Law::new(model, dep), base: None, stress: None },
+        None => Laws { law: Law::new(model, dep), base: None, stress: None },
         Some(s) => {
             let st = stressed(&model, &s);
-            Scenario { law: Law::new(st, dep), base: Some(Law::new(model, dep)), stress: Some(s) }
+            Laws { law: Law::new(st, dep), base: Some(Law::new(model, dep)), stress: Some(s) }
         }
     }
 }

@@ -1,21 +1,18 @@
-//! Request and response types of the HTTP API (serde + OpenAPI schemas). No computation here beyond copying
-//! engine results into wire form.
+//! The tail question: P(S >= k), P(S <= k) or P(S = k) at a list of thresholds, one estimate per method.
 
-use crate::engine::dependence::Dependence;
-use crate::engine::moments::Moments;
-use crate::engine::select::{Selection, Tolerance};
+use super::checks::{check_tolerance, list_size, unbounded_counts};
+use super::dependence::Dependence;
+use super::error::Error;
+use super::law::{Law, Summary};
+use super::pipeline::{Analytic, Ctx, Inputs};
+use super::scenario::{assumptions, ModelOut};
+use crate::config::ServiceLimits;
+use crate::engine::vocabulary::{Selection, Tolerance};
 use crate::engine::{BoundKind, Estimate, MethodId, Side};
 use crate::portfolio::stress::Stress;
-use crate::portfolio::{Model, PortfolioSpec};
+use crate::portfolio::{Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
-
-/// The model's assumptions, returned with every answer.
-pub const ASSUMPTIONS: &[&str] = &[
-    "Exposures and sources are mutually independent unless a dependence model is named in `model`; under the one-factor Gaussian model they are independent given the common factor, and Poisson sources are independent of it.",
-    "Each listed probability is the exposure's event probability over the same period.",
-    "Results support, and do not replace, the judgement of a qualified actuary or engineer and the rules of local regulation.",
-];
 
 /// POST /v1/tail request.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
@@ -43,58 +40,8 @@ pub struct TailRequest {
     pub dependence: Option<Dependence>,
 }
 
-fn default_methods() -> Vec<MethodId> {
+pub fn default_methods() -> Vec<MethodId> {
     vec![MethodId::Exact]
-}
-
-/// Summary of the portfolio's law.
-#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
-pub struct Summary {
-    /// Exposures as counted by the client (p = 0 and p = 1 included; group sizes counted).
-    pub exposures: u64,
-    pub mean: f64,
-    pub variance: f64,
-    pub standard_deviation: f64,
-    pub skewness: f64,
-    /// Lyapunov ratio sum E|X - EX|^3 / sd^3: the Berry-Esseen bound is a constant times this.
-    pub lyapunov_ratio: Option<f64>,
-    pub support_min: u64,
-    /// Largest possible count; null when a Poisson part makes it unbounded.
-    pub support_max: Option<u64>,
-}
-
-impl Summary {
-    /// The summary of a law: its own moments, which under dependence are those of the mixture.
-    pub fn of_law(law: &crate::engine::law::Law) -> Summary {
-        let m = law.moments();
-        let (min, max) = law.support();
-        let lr = m.lyapunov_ratio();
-        Summary {
-            exposures: law.exposures(),
-            mean: m.mean,
-            variance: m.variance,
-            standard_deviation: m.sd(),
-            skewness: m.skewness(),
-            // The Berry-Esseen diagnostic belongs to independent sums only.
-            lyapunov_ratio: (lr.is_finite() && !law.is_mixture()).then_some(lr),
-            support_min: min,
-            support_max: max,
-        }
-    }
-
-    pub fn of(model: &Model, m: &Moments) -> Summary {
-        let lr = m.lyapunov_ratio();
-        Summary {
-            exposures: model.exposures,
-            mean: m.mean,
-            variance: m.variance,
-            standard_deviation: m.sd(),
-            skewness: m.skewness(),
-            lyapunov_ratio: lr.is_finite().then_some(lr),
-            support_min: model.support_min(),
-            support_max: model.support_max(),
-        }
-    }
 }
 
 /// One method's estimate for one threshold.
@@ -152,7 +99,7 @@ pub struct ThresholdResult {
 pub struct TailResponse {
     pub summary: Summary,
     /// The dependence model and stress behind these figures.
-    pub model: crate::api::scenario::ModelOut,
+    pub model: ModelOut,
     pub results: Vec<ThresholdResult>,
     /// Under `stress`: the same figures for the unstressed portfolio.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -162,29 +109,64 @@ pub struct TailResponse {
     pub assumptions: Vec<String>,
 }
 
-/// POST /v1/chart request: the picture of the law around one threshold.
-#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
-pub struct ChartRequest {
-    pub portfolio: PortfolioSpec,
-    /// The count k whose tail is shaded and marked.
-    #[schema(example = 110)]
-    pub threshold: u64,
-    /// Which region is shaded: `upper` S >= k (default), `lower` S <= k or `point` S = k.
-    #[serde(default)]
-    pub side: Side,
-    /// Approximations drawn as lines over the exact bars: any of `normal`, `edgeworth`, `poisson`,
-    /// `saddlepoint` (none by default).
-    #[serde(default)]
-    #[schema(example = json!(["normal", "saddlepoint"]))]
-    pub methods: Vec<MethodId>,
-    /// Logarithmic probability axis, for far tails (values below 1e-308 plot too).
-    #[serde(default)]
-    pub log_scale: bool,
-    /// Width in pixels, 240 to 4000 (default 760).
-    #[serde(default)]
-    pub width: Option<u32>,
-    /// Height in pixels, 160 to 3000 (default 420).
-    #[serde(default)]
-    pub height: Option<u32>,
+pub struct Tail;
+
+impl Analytic for Tail {
+    type Request = TailRequest;
+    type Answer = TailResponse;
+
+    fn inputs(req: &TailRequest) -> Inputs<'_> {
+        Inputs { portfolio: &req.portfolio, stress: req.stress, dependence: req.dependence }
+    }
+
+    fn check(req: &TailRequest, limits: &ServiceLimits, errs: &mut Vec<Violation>) {
+        list_size("/thresholds", ("threshold", "thresholds"), req.thresholds.len(), limits.max_thresholds, errs);
+        check_tolerance(req.tolerance, errs);
+        if req.methods.is_empty() {
+            errs.push(Violation::new("/methods", "at least one method is required"));
+        }
+    }
+
+    fn check_model(req: &TailRequest, model: &Model) -> Result<(), Error> {
+        // With a Poisson part the support is unbounded and the exact engine's window grows like sqrt(k): refuse
+        // thresholds whose windows would not fit in memory rather than exhaust it.
+        let counts = req.thresholds.iter().enumerate().map(|(i, &k)| (format!("/thresholds/{i}"), k));
+        unbounded_counts(model, counts, "threshold")
+    }
+
+    fn evaluations(req: &TailRequest) -> Option<f64> {
+        Some(req.thresholds.len() as f64)
+    }
+
+    fn answer(req: &TailRequest, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<TailResponse, Error> {
+        let queries: Vec<(u64, Side)> = req.thresholds.iter().map(|&k| (k, req.side)).collect();
+        // The engine evaluates a method's thresholds together (nearby ones share one tilted law), so the
+        // cancellation check goes between methods rather than between thresholds.
+        let per_method = req
+            .methods
+            .iter()
+            .map(|id| ctx.cancel.check().map(|()| law.estimates(*id, &queries, req.tolerance)))
+            .collect::<Result<Vec<_>, Error>>()?;
+        let results = req
+            .thresholds
+            .iter()
+            .enumerate()
+            .map(|(i, &k)| ThresholdResult {
+                threshold: k,
+                side: req.side,
+                estimates: per_method.iter().map(|m| EstimateOut::from(&m[i])).collect(),
+            })
+            .collect();
+        Ok(TailResponse {
+            summary: Summary::of_law(law),
+            model: ModelOut::of(law, stress),
+            results,
+            base: None,
+            assumptions: assumptions(),
+        })
+    }
+
+    fn with_base(answer: &mut TailResponse, base: TailResponse) {
+        answer.base = Some(Box::new(base));
+    }
 }

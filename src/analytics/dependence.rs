@@ -8,7 +8,7 @@
 //! conditional law at each node is an ordinary independent portfolio, so every method applies to it. Binomial
 //! groups move with the factor like their members; Poisson sources are taken as independent of the factor.
 
-use super::normal_law;
+use crate::engine::numerics::normal_law::{self, normal_quantile};
 use crate::portfolio::Model;
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
@@ -35,16 +35,6 @@ pub enum Dependence {
 
 fn default_nodes() -> usize {
     DEFAULT_NODES
-}
-
-/// Phi^-1(p) for p in (0, 1), accurate in both tails: from the smaller of p and 1 - p.
-pub fn normal_quantile(p: f64) -> f64 {
-    use statrs::function::erf::erfc_inv;
-    if p < 0.5 {
-        -std::f64::consts::SQRT_2 * erfc_inv(2.0 * p)
-    } else {
-        std::f64::consts::SQRT_2 * erfc_inv(2.0 * (1.0 - p))
-    }
 }
 
 /// The factor's per-exposure thresholds Phi^-1(p), computed once and reused at every node.
@@ -94,19 +84,10 @@ pub fn large_portfolio_cdf(x: f64, p: f64, rho: f64) -> f64 {
 mod tests {
     use super::*;
 
-    #[test]
-    fn quantile_inverts_the_cdf_in_both_tails() {
-        for p in [1e-300, 1e-20, 1e-5, 0.01, 0.3, 0.5, 0.7, 0.99, 1.0 - 1e-10] {
-            let z = normal_quantile(p);
-            let back = normal_law::cdf(z);
-            assert!((back / p - 1.0).abs() < 1e-9, "p = {p}: Phi(Phi^-1(p)) = {back}");
-        }
-    }
-
     /// The conditional probabilities average back to p over the factor (E p_i(Z) = p_i).
     #[test]
     fn conditional_probabilities_average_to_the_unconditional_ones() {
-        let rule = super::super::quadrature::Rule::new(96);
+        let rule = crate::engine::numerics::quadrature::Rule::new(96);
         for p in [0.001, 0.05, 0.4] {
             let m = Model::from_parts(&[p], &[], 0.0);
             let th = Thresholds::of(&m);

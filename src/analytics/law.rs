@@ -1,4 +1,4 @@
-//! The law of the count as the engine's analytics see it: one independent portfolio, or a mixture of
+//! The law of the count as the analytics see it: one independent portfolio, or a mixture of
 //! independent portfolios over a common factor (`dependence`). Every analytic (tail, quantiles, distribution,
 //! layers) asks this type for exact values or method estimates and gets them with their error bound, mixed
 //! over the factor where there is one.
@@ -8,19 +8,21 @@
 //! them) and the quadrature error. That is estimated as in nested rules: the value comes from a rule with
 //! twice the requested nodes and its error is estimated by the distance to the requested rule. (A rule with
 //! 1.5 times the nodes as the check was tried first and undershot the error against a 256-node reference by
-//! up to 10 times at 10^4 identical exposures.) For large portfolios the conditional law given the factor is nearly deterministic, the integrand
-//! in the factor is close to a step and Gauss-Hermite converges slowly: the estimate then grows (about 3e-2
+//! up to 10 times at 10^4 identical exposures.) For large portfolios the conditional law given the factor is
+//! nearly deterministic, the integrand in the factor is close to a step and Gauss-Hermite converges slowly: the estimate then grows (about 3e-2
 //! at 10^5 identical exposures with 64 nodes, about 1e-2 with 256), which is the signal to ask for more nodes.
 //! Because that last term is an estimate, every answer under dependence has bound kind `estimated`.
 
 use super::dependence::{conditional, Dependence, Thresholds};
-use super::exact::{self, ExactValue};
-use super::float::{up, Sum, U};
-use super::moments::Moments;
-use super::quadrature::Rule;
-use super::select::Tolerance;
-use super::{BoundKind, Estimate, MethodId, Prepared, Side};
+use crate::engine::exact;
+use crate::engine::numerics::float::{up, Sum, U};
+use crate::engine::numerics::moments::Moments;
+use crate::engine::numerics::quadrature::Rule;
+use crate::engine::Tolerance;
+use crate::engine::{BoundKind, Estimate, MethodId, Prepared, Side, Value};
 use crate::portfolio::Model;
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
 
 /// Nodes whose weight is below this are left out; their total weight is added to the bound.
 const PRUNE_WEIGHT: f64 = 1e-18;
@@ -39,22 +41,6 @@ impl Component {
 
     fn prep(&self) -> Prepared<'_> {
         Prepared { model: &self.model, moments: self.moments }
-    }
-}
-
-/// A value of the law (a probability or an expectation) with its bound and the bound's kind.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct LawValue {
-    pub value: f64,
-    pub ln_value: f64,
-    pub abs_err: f64,
-    pub rel_err: f64,
-    pub kind: BoundKind,
-}
-
-impl From<ExactValue> for LawValue {
-    fn from(v: ExactValue) -> Self {
-        LawValue { value: v.p, ln_value: v.ln_p, abs_err: v.abs_err, rel_err: v.rel_err, kind: BoundKind::Rigorous }
     }
 }
 
@@ -82,7 +68,7 @@ fn par_map<T: Sync, R: Send>(items: &[T], f: impl Fn(&T) -> R + Sync) -> Vec<R> 
 }
 
 /// sum_j w_j v_j with its logarithm (log-sum-exp, so tiny components keep their weight) and mixed bound.
-fn mix(parts: &[(f64, LawValue)]) -> LawValue {
+fn mix(parts: &[(f64, Value)]) -> Value {
     let mut s = Sum::default();
     let mut abs = 0.0;
     let mut max_ln = f64::NEG_INFINITY;
@@ -103,13 +89,7 @@ fn mix(parts: &[(f64, LawValue)]) -> LawValue {
     } else {
         BoundKind::Estimated
     };
-    LawValue {
-        value,
-        ln_value: ln,
-        abs_err,
-        rel_err: if value > 0.0 { up(abs_err / value) } else { f64::INFINITY },
-        kind,
-    }
+    Value { value, ln_value: ln, abs_err, rel_err: if value > 0.0 { up(abs_err / value) } else { f64::INFINITY }, kind }
 }
 
 impl Law {
@@ -206,11 +186,11 @@ impl Law {
     }
 
     /// Mix per-component values of the main rule and, under dependence, widen by the check rule's distance.
-    fn mixed(&self, f: impl Fn(&Component) -> Vec<LawValue> + Sync) -> Vec<LawValue> {
+    fn mixed(&self, f: impl Fn(&Component) -> Vec<Value> + Sync) -> Vec<Value> {
         let main = self.over(&self.main, &f);
         let n = main.first().map_or(0, |v| v.len());
-        let combine = |vals: &[Vec<LawValue>], comps: &[Component], i: usize| {
-            let parts: Vec<(f64, LawValue)> = comps.iter().zip(vals).map(|(c, v)| (c.weight, v[i])).collect();
+        let combine = |vals: &[Vec<Value>], comps: &[Component], i: usize| {
+            let parts: Vec<(f64, Value)> = comps.iter().zip(vals).map(|(c, v)| (c.weight, v[i])).collect();
             mix(&parts)
         };
         if !self.is_mixture() {
@@ -230,32 +210,23 @@ impl Law {
     }
 
     /// Exact values for (threshold, side) queries, in order.
-    pub fn exact(&self, queries: &[(u64, Side)]) -> Vec<LawValue> {
-        self.mixed(|c| exact::evaluate(&c.model, &c.moments, queries).0.into_iter().map(LawValue::from).collect())
+    pub fn exact(&self, queries: &[(u64, Side)]) -> Vec<Value> {
+        self.mixed(|c| exact::evaluate(&c.model, &c.moments, queries).0)
     }
 
     /// E[min((S - a)+, l)] (no cap when `limit` is None).
-    pub fn layer_expectation(&self, a: u64, limit: Option<u64>) -> LawValue {
-        self.mixed(|c| vec![exact::layer_expectation(&c.model, &c.moments, a, limit).into()]).remove(0)
+    pub fn layer_expectation(&self, a: u64, limit: Option<u64>) -> Value {
+        self.mixed(|c| vec![exact::layer_expectation(&c.model, &c.moments, a, limit)]).remove(0)
     }
 
     /// One method's estimates; under dependence each component's estimate is mixed like an exact value.
     pub fn estimates(&self, id: MethodId, queries: &[(u64, Side)], tol: Option<Tolerance>) -> Vec<Estimate> {
         let start = std::time::Instant::now();
         if !self.is_mixture() {
-            return super::run(id, &self.main[0].prep(), queries, tol);
+            return crate::engine::run(id, &self.main[0].prep(), queries, tol);
         }
-        let as_values = |c: &Component| -> Vec<LawValue> {
-            super::run(id, &c.prep(), queries, tol)
-                .into_iter()
-                .map(|e| LawValue {
-                    value: e.probability,
-                    ln_value: e.ln_probability,
-                    abs_err: e.error_bound,
-                    rel_err: e.relative_error_bound.unwrap_or(f64::INFINITY),
-                    kind: e.bound_kind,
-                })
-                .collect()
+        let as_values = |c: &Component| -> Vec<Value> {
+            crate::engine::run(id, &c.prep(), queries, tol).iter().map(Estimate::value).collect()
         };
         let vals = self.mixed(as_values);
         let per = start.elapsed().as_secs_f64() * 1e6 / queries.len().max(1) as f64;
@@ -280,8 +251,55 @@ impl Law {
     }
 }
 
-impl Default for LawValue {
-    fn default() -> Self {
-        LawValue { value: 0.0, ln_value: f64::NEG_INFINITY, abs_err: 0.0, rel_err: 0.0, kind: BoundKind::Rigorous }
+/// A value (a probability or an expected count) with its error bound.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct ValueOut {
+    pub value: f64,
+    /// Natural logarithm of the value, finite where the value underflows; null only when the value is 0.
+    pub ln_value: Option<f64>,
+    /// Bound on |value - truth|.
+    pub error_bound: f64,
+    pub bound_kind: BoundKind,
+}
+
+impl From<Value> for ValueOut {
+    fn from(v: Value) -> Self {
+        ValueOut { value: v.value, ln_value: v.ln(), error_bound: v.abs_err, bound_kind: v.kind }
+    }
+}
+
+/// Summary of the portfolio's law.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct Summary {
+    /// Exposures as counted by the client (p = 0 and p = 1 included; group sizes counted).
+    pub exposures: u64,
+    pub mean: f64,
+    pub variance: f64,
+    pub standard_deviation: f64,
+    pub skewness: f64,
+    /// Lyapunov ratio sum E|X - EX|^3 / sd^3: the Berry-Esseen bound is a constant times this.
+    pub lyapunov_ratio: Option<f64>,
+    pub support_min: u64,
+    /// Largest possible count; null when a Poisson part makes it unbounded.
+    pub support_max: Option<u64>,
+}
+
+impl Summary {
+    /// The summary of a law: its own moments, which under dependence are those of the mixture.
+    pub fn of_law(law: &Law) -> Summary {
+        let m = law.moments();
+        let (min, max) = law.support();
+        let lr = m.lyapunov_ratio();
+        Summary {
+            exposures: law.exposures(),
+            mean: m.mean,
+            variance: m.variance,
+            standard_deviation: m.sd(),
+            skewness: m.skewness(),
+            // The Berry-Esseen diagnostic belongs to independent sums only.
+            lyapunov_ratio: (lr.is_finite() && !law.is_mixture()).then_some(lr),
+            support_min: min,
+            support_max: max,
+        }
     }
 }

@@ -164,8 +164,9 @@ mod tests {
     #[test]
     fn rule_integrates_a_normal_cdf() {
         let (a, b) = (-1.3f64, 0.7f64);
-        let want = crate::engine::normal_law::cdf(a / (1.0 + b * b).sqrt());
-        let err = |n: usize| (Rule::new(n).expect(|z| crate::engine::normal_law::cdf(a + b * z)) - want).abs();
+        let want = crate::engine::numerics::normal_law::cdf(a / (1.0 + b * b).sqrt());
+        let err =
+            |n: usize| (Rule::new(n).expect(|z| crate::engine::numerics::normal_law::cdf(a + b * z)) - want).abs();
         // Measured: 3.5e-12 at 64 nodes; the larger rule must do better (the error estimate relies on that).
         assert!(err(64) < 1e-11, "{}", err(64));
         assert!(err(96) < err(64), "{} vs {}", err(96), err(64));

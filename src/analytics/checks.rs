@@ -1,0 +1,58 @@
+//! Field checks that several questions share: the size of a list, a tolerance, and the largest count served
+//! with a Poisson part. Each names the offending field by JSON pointer.
+
+use super::error::Error;
+use super::scenario::MAX_UNBOUNDED_COUNT;
+use crate::engine::Tolerance;
+use crate::portfolio::{Model, Violation};
+
+/// A list that must hold at least one item and at most `max` (`noun`: the item's name, singular and plural).
+pub fn list_size(at: &str, noun: (&str, &str), len: usize, max: usize, errs: &mut Vec<Violation>) {
+    if len == 0 {
+        errs.push(Violation::new(at, format!("at least one {} is required", noun.0)));
+    }
+    if len > max {
+        errs.push(Violation::new(at, format!("{len} {} exceed the limit of {max}", noun.1)));
+    }
+}
+
+/// Check a tolerance's value, at its pointer.
+pub fn check_tolerance(tol: Option<Tolerance>, errs: &mut Vec<Violation>) {
+    if let Some(t) = tol {
+        let (v, field) = match t {
+            Tolerance::Absolute(a) => (a, "/tolerance/absolute"),
+            Tolerance::Relative(r) => (r, "/tolerance/relative"),
+        };
+        if !(v.is_finite() && v > 0.0) {
+            errs.push(Violation::new(field, format!("must be a finite number > 0, got {v}")));
+        }
+    }
+}
+
+/// Counts (thresholds, range ends) over the largest one served with a Poisson part, as violations at the
+/// given pointers; none when the model has no Poisson part.
+pub fn unbounded_counts(
+    model: &Model,
+    counts: impl IntoIterator<Item = (String, u64)>,
+    what: &str,
+) -> Result<(), Error> {
+    if model.poisson <= 0.0 {
+        return Ok(());
+    }
+    let bad: Vec<Violation> = counts
+        .into_iter()
+        .filter(|(_, k)| *k > MAX_UNBOUNDED_COUNT)
+        .take(20)
+        .map(|(at, k)| {
+            Violation::new(
+                at,
+                format!("{k} exceeds {MAX_UNBOUNDED_COUNT}, the largest {what} served with a Poisson part"),
+            )
+        })
+        .collect();
+    if bad.is_empty() {
+        Ok(())
+    } else {
+        Err(Error::Invalid(bad))
+    }
+}

@@ -1,0 +1,184 @@
+//! The distribution question: the whole law over a range of counts, pmf, cdf P(S <= k) and survival P(S > k), each exact with
+//! its bound and logarithm, and the range that holds all but a given mass.
+//!
+//! Every value comes from the exact engine's tilted laws (one per cluster of nearby counts), so far-tail
+//! values keep their relative accuracy and their logarithms stay finite where the values underflow.
+
+use super::checks::unbounded_counts;
+use super::dependence::Dependence;
+use super::error::Error;
+use super::law::{Law, Summary};
+use super::pipeline::{Analytic, Ctx, Inputs};
+use super::quantiles::quantiles;
+use super::scenario::{assumptions, ModelOut};
+use crate::config::ServiceLimits;
+use crate::engine::{BoundKind, MethodId, Side, Value};
+use crate::portfolio::stress::Stress;
+use crate::portfolio::{Model, PortfolioSpec, Violation};
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
+
+pub struct Table {
+    pub from: u64,
+    pub to: u64,
+    pub pmf: Vec<Value>,
+    pub cdf: Vec<Value>,
+    /// P(S > k).
+    pub sf: Vec<Value>,
+}
+
+pub fn table(law: &Law, from: u64, to: u64) -> Table {
+    let mut queries = Vec::with_capacity(3 * (to - from + 1) as usize);
+    for k in from..=to {
+        queries.push((k, Side::Point));
+        queries.push((k, Side::Lower));
+        queries.push((k.saturating_add(1), Side::Upper));
+    }
+    let vals = law.exact(&queries);
+    let pick = |o: usize| vals.iter().skip(o).step_by(3).copied().collect::<Vec<_>>();
+    Table { from, to, pmf: pick(0), cdf: pick(1), sf: pick(2) }
+}
+
+/// The smallest range [a, b] with P(S < a) <= mass / 2 and P(S > b) <= mass / 2 (by exact values).
+pub fn central_range(law: &Law, mass: f64) -> (u64, u64) {
+    let q = quantiles(law, &[mass / 2.0, 1.0 - mass / 2.0], MethodId::Exact, None);
+    // P(S <= a - 1) < mass/2 at the lower quantile a; the upper quantile b has P(S <= b) >= 1 - mass/2.
+    (q[0].count, q[1].count)
+}
+
+/// Mass left outside the range when neither `from`/`to` nor `mass` is given.
+pub const DEFAULT_MASS: f64 = 1e-12;
+
+/// POST /v1/distribution request: `from` and `to` (inclusive), or `mass` (default 1e-12).
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct DistributionRequest {
+    pub portfolio: PortfolioSpec,
+    pub from: Option<u64>,
+    pub to: Option<u64>,
+    /// Probability mass allowed outside the range (half on each side), in (0, 1).
+    pub mass: Option<f64>,
+    #[serde(default)]
+    pub stress: Option<Stress>,
+    #[serde(default)]
+    pub dependence: Option<Dependence>,
+}
+
+/// POST /v1/distribution response (arrays over the counts from..=to).
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct DistributionResponse {
+    pub summary: Summary,
+    pub model: ModelOut,
+    pub from: u64,
+    pub to: u64,
+    pub pmf: Vec<f64>,
+    /// P(S <= k).
+    pub cdf: Vec<f64>,
+    /// P(S > k).
+    pub sf: Vec<f64>,
+    /// ln P(S = k) (null where the probability is 0).
+    pub ln_pmf: Vec<Option<f64>>,
+    pub ln_cdf: Vec<Option<f64>>,
+    pub ln_sf: Vec<Option<f64>>,
+    /// Bound on |pmf - truth| per count.
+    pub pmf_error_bound: Vec<f64>,
+    /// Largest error bound of any cdf or sf value.
+    pub cdf_sf_max_error_bound: f64,
+    pub bound_kind: BoundKind,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schema(no_recursion)]
+    pub base: Option<Box<DistributionResponse>>,
+    pub assumptions: Vec<String>,
+}
+
+pub struct Distribution;
+
+impl Analytic for Distribution {
+    type Request = DistributionRequest;
+    type Answer = DistributionResponse;
+
+    fn inputs(req: &DistributionRequest) -> Inputs<'_> {
+        Inputs { portfolio: &req.portfolio, stress: req.stress, dependence: req.dependence }
+    }
+
+    fn check(req: &DistributionRequest, limits: &ServiceLimits, errs: &mut Vec<Violation>) {
+        match (req.from, req.to, req.mass) {
+            (Some(a), Some(b), None) => {
+                if b < a {
+                    errs.push(Violation::new("/to", format!("must be >= from ({a}), got {b}")));
+                } else if b - a >= limits.max_thresholds as u64 {
+                    errs.push(Violation::new(
+                        "/to",
+                        format!("the range holds {} counts, over the limit of {}", b - a + 1, limits.max_thresholds),
+                    ));
+                }
+            }
+            (None, None, Some(m)) => {
+                if !(m > 0.0 && m < 1.0) {
+                    errs.push(Violation::new("/mass", format!("must be strictly between 0 and 1, got {m}")));
+                }
+            }
+            (None, None, None) => {}
+            (_, _, Some(_)) => errs.push(Violation::new("/mass", "give either from and to, or mass, not both")),
+            (None, _, _) => errs.push(Violation::new("/from", "from and to go together")),
+            (_, None, _) => errs.push(Violation::new("/to", "from and to go together")),
+        }
+    }
+
+    fn check_model(req: &DistributionRequest, model: &Model) -> Result<(), Error> {
+        // With a Poisson part the support is unbounded and the exact engine's window grows with the count (the
+        // tilted Poisson window is about 25 sqrt(k) long): an explicit range meets the same limit as a
+        // threshold, before any window is built.
+        let ends = [("/from", req.from), ("/to", req.to)];
+        unbounded_counts(model, ends.into_iter().filter_map(|(at, k)| k.map(|k| (at.to_string(), k))), "count")
+    }
+
+    fn evaluations(_req: &DistributionRequest) -> Option<f64> {
+        // A range of counts costs about one tilted law per 1.5 standard deviations; the pmf cells are cheap.
+        Some(64.0)
+    }
+
+    fn answer(
+        req: &DistributionRequest,
+        law: &Law,
+        stress: Option<Stress>,
+        ctx: &Ctx,
+    ) -> Result<DistributionResponse, Error> {
+        let max_counts = ctx.limits.max_thresholds;
+        let (from, to) = match (req.from, req.to) {
+            (Some(a), Some(b)) => (a, b),
+            _ => central_range(law, req.mass.unwrap_or(DEFAULT_MASS)),
+        };
+        if to - from >= max_counts as u64 {
+            return Err(Error::TooLarge(format!(
+                "the range {from}..{to} that holds the requested mass has {} counts, over the limit of {} (see --max-thresholds); ask for a larger mass or an explicit range",
+                to - from + 1,
+                max_counts
+            )));
+        }
+        let t = table(law, from, to);
+        let ln = |v: &[Value]| v.iter().map(Value::ln).collect::<Vec<_>>();
+        let kind = t.pmf.iter().chain(&t.cdf).chain(&t.sf).fold(BoundKind::Rigorous, |k, v| k.and(v.kind));
+        Ok(DistributionResponse {
+            summary: Summary::of_law(law),
+            model: ModelOut::of(law, stress),
+            from,
+            to,
+            pmf: t.pmf.iter().map(|v| v.value).collect(),
+            cdf: t.cdf.iter().map(|v| v.value).collect(),
+            sf: t.sf.iter().map(|v| v.value).collect(),
+            ln_pmf: ln(&t.pmf),
+            ln_cdf: ln(&t.cdf),
+            ln_sf: ln(&t.sf),
+            pmf_error_bound: t.pmf.iter().map(|v| v.abs_err).collect(),
+            cdf_sf_max_error_bound: t.cdf.iter().chain(&t.sf).map(|v| v.abs_err).fold(0.0, f64::max),
+            bound_kind: kind,
+            base: None,
+            assumptions: assumptions(),
+        })
+    }
+
+    fn with_base(answer: &mut DistributionResponse, base: DistributionResponse) {
+        answer.base = Some(Box::new(base));
+    }
+}

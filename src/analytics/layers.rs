@@ -1,0 +1,235 @@
+//! The layers question. Count layers and the tail expectation: for a layer (a, a + l], the expected number of events in it
+//! E[min((S - a)+, l)], the probability that it is touched P(S > a) and that it is exhausted P(S >= a + l);
+//! and the expected count beyond a quantile, E[S | S > q_level].
+//!
+//! The expectations come from the exact engine's weighted tilted sums (`exact::layer_expectation`), so a layer
+//! far in the tail keeps its relative accuracy; the probabilities are ordinary exact tails.
+
+use super::dependence::Dependence;
+use super::error::Error;
+use super::law::{Law, Summary, ValueOut};
+use super::pipeline::{Analytic, Ctx, Inputs};
+use super::quantiles::quantiles;
+use super::scenario::{assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
+use crate::config::ServiceLimits;
+use crate::engine::numerics::float::{up, U};
+use crate::engine::{BoundKind, MethodId, Side, Value};
+use crate::portfolio::stress::Stress;
+use crate::portfolio::{PortfolioSpec, Violation};
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
+
+pub struct Layer {
+    pub attachment: u64,
+    pub limit: Option<u64>,
+    pub expected_count: Value,
+    pub probability_touched: Value,
+    pub probability_exhausted: Value,
+}
+
+pub fn layer(law: &Law, attachment: u64, limit: Option<u64>) -> Layer {
+    let expected_count = law.layer_expectation(attachment, limit);
+    let mut qs = vec![(attachment.saturating_add(1), Side::Upper)];
+    if let Some(l) = limit {
+        qs.push((attachment.saturating_add(l), Side::Upper));
+    }
+    let v = law.exact(&qs);
+    let exhausted = if limit.is_some() { v[1] } else { Value::default() };
+    Layer { attachment, limit, expected_count, probability_touched: v[0], probability_exhausted: exhausted }
+}
+
+pub struct TailExpectation {
+    pub level: f64,
+    /// The quantile q at the level (smallest k with P(S <= k) >= level).
+    pub quantile: u64,
+    /// E[S | S > q], or q when nothing lies beyond it.
+    pub expected_count: Value,
+    /// P(S > q).
+    pub probability_beyond: Value,
+}
+
+pub fn tail_expectation(law: &Law, level: f64) -> TailExpectation {
+    let q = quantiles(law, &[level], MethodId::Exact, None).remove(0).count;
+    let beyond = law.exact(&[(q.saturating_add(1), Side::Upper)])[0];
+    if beyond.value <= 0.0 {
+        let v =
+            Value { value: q as f64, ln_value: (q as f64).ln(), abs_err: 0.0, rel_err: 0.0, kind: BoundKind::Rigorous };
+        return TailExpectation { level, quantile: q, expected_count: v, probability_beyond: beyond };
+    }
+    let excess = law.layer_expectation(q, None);
+    // E[S | S > q] = q + E[(S - q)+] / P(S > q); relative errors of the ratio add to first order.
+    let ratio = excess.value / beyond.value;
+    let rel = up(excess.rel_err + beyond.rel_err + excess.rel_err * beyond.rel_err);
+    let value = q as f64 + ratio;
+    let abs_err = up(ratio * rel + 2.0 * U * value);
+    let kind = excess.kind.and(beyond.kind);
+    let expected_count = Value { value, ln_value: value.ln(), abs_err, rel_err: up(abs_err / value), kind };
+    TailExpectation { level, quantile: q, expected_count, probability_beyond: beyond }
+}
+
+/// A count layer (attachment, attachment + limit]; no `limit` means unlimited.
+#[derive(Debug, Clone, Copy, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct LayerSpec {
+    #[schema(example = 20)]
+    pub attachment: u64,
+    #[schema(example = 10)]
+    pub limit: Option<u64>,
+}
+
+/// POST /v1/layers request.
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct LayersRequest {
+    pub portfolio: PortfolioSpec,
+    #[serde(default)]
+    pub layers: Vec<LayerSpec>,
+    /// Levels in (0, 1) at which to report E[S | S > q_level].
+    #[serde(default)]
+    #[schema(example = json!([0.99]))]
+    pub tail_levels: Vec<f64>,
+    #[serde(default)]
+    pub stress: Option<Stress>,
+    #[serde(default)]
+    pub dependence: Option<Dependence>,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct LayerOut {
+    pub attachment: u64,
+    pub limit: Option<u64>,
+    /// E[min((S - attachment)+, limit)].
+    pub expected_count: f64,
+    /// P(S > attachment).
+    pub probability_touched: f64,
+    /// P(S >= attachment + limit) (0 for an unlimited layer).
+    pub probability_exhausted: f64,
+    /// The same three values with logarithms and error bounds.
+    pub detail: LayerDetail,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct LayerDetail {
+    pub expected_count: ValueOut,
+    pub probability_touched: ValueOut,
+    pub probability_exhausted: ValueOut,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct TailExpectationOut {
+    pub level: f64,
+    /// q: the smallest count with P(S <= q) >= level.
+    pub quantile: u64,
+    /// E[S | S > q] (q itself when nothing lies beyond it).
+    pub expected_count: ValueOut,
+    /// P(S > q).
+    pub probability_beyond: ValueOut,
+}
+
+/// POST /v1/layers response.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct LayersResponse {
+    pub summary: Summary,
+    pub model: ModelOut,
+    pub layers: Vec<LayerOut>,
+    pub tail_expectations: Vec<TailExpectationOut>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schema(no_recursion)]
+    pub base: Option<Box<LayersResponse>>,
+    pub assumptions: Vec<String>,
+}
+
+pub struct Layers;
+
+impl Analytic for Layers {
+    type Request = LayersRequest;
+    type Answer = LayersResponse;
+
+    fn inputs(req: &LayersRequest) -> Inputs<'_> {
+        Inputs { portfolio: &req.portfolio, stress: req.stress, dependence: req.dependence }
+    }
+
+    fn check(req: &LayersRequest, limits: &ServiceLimits, errs: &mut Vec<Violation>) {
+        if req.layers.is_empty() && req.tail_levels.is_empty() {
+            errs.push(Violation::new("/layers", "give at least one layer or one tail level"));
+        }
+        if req.layers.len() + req.tail_levels.len() > limits.max_thresholds {
+            errs.push(Violation::new("/layers", format!("more than {} layers and levels", limits.max_thresholds)));
+        }
+        for (i, l) in req.layers.iter().enumerate().take(limits.max_thresholds) {
+            if l.attachment > MAX_UNBOUNDED_COUNT {
+                errs.push(Violation::new(
+                    format!("/layers/{i}/attachment"),
+                    format!("must be at most {MAX_UNBOUNDED_COUNT}"),
+                ));
+            }
+            if l.limit.is_some_and(|x| x > MAX_UNBOUNDED_COUNT) {
+                errs.push(Violation::new(
+                    format!("/layers/{i}/limit"),
+                    format!("must be at most {MAX_UNBOUNDED_COUNT}"),
+                ));
+            }
+        }
+        for (i, &l) in req.tail_levels.iter().enumerate().take(limits.max_thresholds) {
+            if !(l > 0.0 && l < 1.0) {
+                errs.push(Violation::new(
+                    format!("/tail_levels/{i}"),
+                    format!("must be strictly between 0 and 1, got {l}"),
+                ));
+            }
+        }
+    }
+
+    fn evaluations(req: &LayersRequest) -> Option<f64> {
+        Some(req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0)
+    }
+
+    fn answer(req: &LayersRequest, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<LayersResponse, Error> {
+        let layers = req
+            .layers
+            .iter()
+            .map(|l| {
+                ctx.cancel.check()?;
+                let r = layer(law, l.attachment, l.limit);
+                Ok(LayerOut {
+                    attachment: l.attachment,
+                    limit: l.limit,
+                    expected_count: r.expected_count.value,
+                    probability_touched: r.probability_touched.value,
+                    probability_exhausted: r.probability_exhausted.value,
+                    detail: LayerDetail {
+                        expected_count: r.expected_count.into(),
+                        probability_touched: r.probability_touched.into(),
+                        probability_exhausted: r.probability_exhausted.into(),
+                    },
+                })
+            })
+            .collect::<Result<Vec<_>, Error>>()?;
+        let tail_expectations = req
+            .tail_levels
+            .iter()
+            .map(|&lvl| {
+                ctx.cancel.check()?;
+                let t = tail_expectation(law, lvl);
+                Ok(TailExpectationOut {
+                    level: lvl,
+                    quantile: t.quantile,
+                    expected_count: t.expected_count.into(),
+                    probability_beyond: t.probability_beyond.into(),
+                })
+            })
+            .collect::<Result<Vec<_>, Error>>()?;
+        Ok(LayersResponse {
+            summary: Summary::of_law(law),
+            model: ModelOut::of(law, stress),
+            layers,
+            tail_expectations,
+            base: None,
+            assumptions: assumptions(),
+        })
+    }
+
+    fn with_base(answer: &mut LayersResponse, base: LayersResponse) {
+        answer.base = Some(Box::new(base));
+    }
+}

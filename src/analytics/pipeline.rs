@@ -1,0 +1,75 @@
+//! The one trait every question implements, and the one pipeline that runs them all: check -> model ->
+//! budget -> answer -> base answer under stress (the steps are listed in the module above).
+
+use super::cancel::Cancel;
+use super::dependence::Dependence;
+use super::error::Error;
+use super::law::Law;
+use super::scenario;
+use crate::config::ServiceLimits;
+use crate::portfolio::stress::Stress;
+use crate::portfolio::{Model, PortfolioSpec, Violation};
+
+/// The parts of a request that every question shares: the portfolio and the scenario.
+pub struct Inputs<'a> {
+    pub portfolio: &'a PortfolioSpec,
+    pub stress: Option<Stress>,
+    pub dependence: Option<Dependence>,
+}
+
+/// What a question needs besides its request and law: the service's limits and the cancellation flag.
+pub struct Ctx<'a> {
+    pub limits: &'a ServiceLimits,
+    pub cancel: &'a Cancel,
+}
+
+/// One question asked of a portfolio's law.
+pub trait Analytic {
+    type Request;
+    type Answer;
+
+    /// The portfolio and scenario of the request.
+    fn inputs(req: &Self::Request) -> Inputs<'_>;
+
+    /// The question's own fields (besides portfolio, stress and dependence), in the order they are reported.
+    fn check(req: &Self::Request, limits: &ServiceLimits, errs: &mut Vec<Violation>);
+
+    /// Rules that need the validated model.
+    fn check_model(_req: &Self::Request, _model: &Model) -> Result<(), Error> {
+        Ok(())
+    }
+
+    /// Independent evaluations the question costs (in units of one exact tail), for the work budget; `None`
+    /// when the question checks its budget itself (it needs the law's moments to know its size).
+    fn evaluations(req: &Self::Request) -> Option<f64>;
+
+    /// The answer on one law (stressed when `stress` is named, the base law otherwise).
+    fn answer(req: &Self::Request, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<Self::Answer, Error>;
+
+    /// Attach the unstressed answer to the stressed one.
+    fn with_base(answer: &mut Self::Answer, base: Self::Answer);
+}
+
+/// The one pipeline: check -> model -> budget -> answer -> base answer under stress.
+pub fn run<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel) -> Result<A::Answer, Error> {
+    let mut errs = Vec::new();
+    A::check(req, limits, &mut errs);
+    let inputs = A::inputs(req);
+    scenario::check(&inputs.stress, &inputs.dependence, &mut errs);
+    let model = scenario::model(inputs.portfolio, &inputs.stress, limits, errs)?;
+    A::check_model(req, &model)?;
+    if let Some(evaluations) = A::evaluations(req) {
+        let factor = scenario::work_factor(&inputs.stress, &inputs.dependence);
+        scenario::check_work(&model, evaluations, factor, limits)?;
+    }
+    let laws = scenario::build(model, inputs.stress, inputs.dependence);
+    let ctx = Ctx { limits, cancel };
+    cancel.check()?;
+    let mut out = A::answer(req, &laws.law, laws.stress, &ctx)?;
+    if let Some(base) = &laws.base {
+        cancel.check()?;
+        let b = A::answer(req, base, None, &ctx)?;
+        A::with_base(&mut out, b);
+    }
+    Ok(out)
+}

@@ -1,0 +1,297 @@
+//! The quantile question. Quantiles of the count: the smallest k with P(S <= k) >= level, with P(S <= k) and P(S <= k - 1) so that
+//! a client sees the bracket, and for an approximate method the range of counts consistent with its bound.
+//!
+//! How. P(S <= k) is monotone in k, so each answer is an integer search: a first guess from the normal law
+//! with the Cornish-Fisher skewness term (a normal mixture under dependence), then galloping outwards in
+//! doubling steps until the level is bracketed, then bisection. Every probe is one evaluation of the chosen
+//! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
+//! count itself and the two ends of the range that the error bound allows).
+
+use super::checks::list_size;
+use super::dependence::Dependence;
+use super::error::Error;
+use super::law::{Law, Summary};
+use super::pipeline::{Analytic, Ctx, Inputs};
+use super::scenario::{assumptions, ModelOut};
+use super::tail::default_methods;
+use crate::config::ServiceLimits;
+use crate::engine::numerics::normal_law;
+use crate::engine::Tolerance;
+use crate::engine::{BoundKind, MethodId, Side, Value};
+use crate::portfolio::stress::Stress;
+use crate::portfolio::{PortfolioSpec, Violation};
+use serde::{Deserialize, Serialize};
+use std::collections::HashMap;
+use utoipa::ToSchema;
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct Quantile {
+    pub level: f64,
+    pub method: MethodId,
+    /// Smallest k with P(S <= k) >= level by the method's value.
+    pub count: u64,
+    pub cdf_at_count: Value,
+    /// P(S <= k - 1) (0 when k is the support's minimum).
+    pub cdf_below: Value,
+    /// Smallest and largest count that the error bound leaves possible (None: unbounded above).
+    pub count_range: (u64, Option<u64>),
+}
+
+struct Cdf<'a> {
+    law: &'a Law,
+    method: MethodId,
+    tol: Option<Tolerance>,
+    cache: HashMap<u64, Value>,
+    min: u64,
+    max: Option<u64>,
+    /// Largest count probed when the support is unbounded: every level below 1 in f64 (1 - 2^-53 at most)
+    /// has its quantile far below mean + 60 sd + 100, and an approximate bound that has not reached the
+    /// level by then is reported as unbounded rather than chased further.
+    top: u64,
+}
+
+impl Cdf<'_> {
+    fn at(&mut self, k: u64) -> Value {
+        if k < self.min {
+            return Value::default();
+        }
+        if self.max.is_some_and(|m| k >= m) {
+            return Value { value: 1.0, ln_value: 0.0, ..Value::default() };
+        }
+        if let Some(v) = self.cache.get(&k) {
+            return *v;
+        }
+        let v = if self.method == MethodId::Exact {
+            self.law.exact(&[(k, Side::Lower)])[0]
+        } else {
+            self.law.estimates(self.method, &[(k, Side::Lower)], self.tol)[0].value()
+        };
+        self.cache.insert(k, v);
+        v
+    }
+
+    /// Smallest k >= min with pred(F(k)), None if no count qualifies (only possible for bounds that never
+    /// reach the level).
+    fn search(&mut self, guess: u64, pred: impl Fn(&Value) -> bool) -> Option<u64> {
+        let top = self.max.unwrap_or(self.top);
+        let guess = guess.clamp(self.min, top);
+        let (mut lo, mut hi); // pred false at lo (or lo < min), true at hi
+        if pred(&self.at(guess)) {
+            hi = guess;
+            let mut step = 1u64;
+            loop {
+                if hi == self.min {
+                    return Some(hi);
+                }
+                let k = hi.saturating_sub(step).max(self.min);
+                if pred(&self.at(k)) {
+                    hi = k;
+                    step = step.saturating_mul(2);
+                } else {
+                    lo = k;
+                    break;
+                }
+            }
+        } else {
+            lo = guess;
+            let mut step = 1u64;
+            loop {
+                if lo >= top {
+                    return None;
+                }
+                let k = lo.saturating_add(step).min(top);
+                if pred(&self.at(k)) {
+                    hi = k;
+                    break;
+                }
+                lo = k;
+                step = step.saturating_mul(2);
+            }
+        }
+        while hi - lo > 1 {
+            let mid = lo + (hi - lo) / 2;
+            if pred(&self.at(mid)) {
+                hi = mid;
+            } else {
+                lo = mid;
+            }
+        }
+        Some(hi)
+    }
+}
+
+/// First guess: the smallest k whose continuity-corrected normal (Cornish-Fisher) cdf reaches the level,
+/// mixed over the factor under dependence.
+fn guess(law: &Law, level: f64) -> u64 {
+    let comps = law.component_moments();
+    let skew = law.moments().skewness();
+    let z = normal_law::normal_quantile(level);
+    let cf = z + (z * z - 1.0) * skew / 6.0;
+    if comps.len() == 1 {
+        let (_, mean, sd) = comps[0];
+        return (mean + sd * cf - 0.5).ceil().max(0.0) as u64;
+    }
+    let f = |k: f64| -> f64 {
+        comps
+            .iter()
+            .map(|&(w, m, s)| w * if s > 0.0 { normal_law::cdf((k + 0.5 - m) / s) } else { (k >= m) as u8 as f64 })
+            .sum()
+    };
+    let (mut lo, mut hi) = (0.0f64, comps.iter().map(|c| c.1 + 40.0 * c.2 + 1.0).fold(1.0, f64::max));
+    for _ in 0..200 {
+        let mid = 0.5 * (lo + hi);
+        if f(mid.floor()) >= level {
+            hi = mid;
+        } else {
+            lo = mid;
+        }
+    }
+    hi.floor() as u64
+}
+
+pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolerance>) -> Vec<Quantile> {
+    let (min, max) = law.support();
+    let m = law.moments();
+    let top = (m.mean + 60.0 * m.sd() + 100.0).min(1e15) as u64;
+    let mut cdf = Cdf { law, method, tol, cache: HashMap::new(), min, max, top };
+    levels
+        .iter()
+        .map(|&level| {
+            let g = guess(law, level);
+            let count = cdf.search(g, |v| v.value >= level).unwrap_or(max.unwrap_or(u64::MAX));
+            let lo = cdf.search(count, |v| v.value + v.abs_err >= level).unwrap_or(count);
+            let hi = cdf.search(count, |v| v.value - v.abs_err >= level).filter(|&h| max.is_some() || h < top);
+            let cdf_at_count = cdf.at(count);
+            let cdf_below = if count == 0 { Value::default() } else { cdf.at(count - 1) };
+            Quantile { level, method, count, cdf_at_count, cdf_below, count_range: (lo, hi.or(max)) }
+        })
+        .collect()
+}
+
+/// POST /v1/quantiles request.
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct QuantilesRequest {
+    pub portfolio: PortfolioSpec,
+    /// Levels strictly inside (0, 1).
+    #[schema(example = json!([0.95, 0.99, 0.995]), min_items = 1)]
+    pub levels: Vec<f64>,
+    /// Methods; each level gets one quantile per method (default `exact`).
+    #[serde(default = "default_methods")]
+    #[schema(min_items = 1)]
+    pub methods: Vec<MethodId>,
+    #[serde(default)]
+    pub tolerance: Option<Tolerance>,
+    #[serde(default)]
+    pub stress: Option<Stress>,
+    #[serde(default)]
+    pub dependence: Option<Dependence>,
+}
+
+/// One quantile.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct QuantileOut {
+    pub level: f64,
+    pub method: MethodId,
+    /// The smallest count k with P(S <= k) >= level (by the method's value).
+    pub count: u64,
+    /// P(S <= count).
+    pub cdf_at_count: f64,
+    /// P(S <= count - 1).
+    pub cdf_below: f64,
+    pub ln_cdf_at_count: Option<f64>,
+    pub ln_cdf_below: Option<f64>,
+    /// Error bounds of `cdf_at_count` and `cdf_below`.
+    pub cdf_error_bounds: [f64; 2],
+    pub bound_kind: BoundKind,
+    /// [lo, hi]: every count that the error bound leaves possible as the quantile (hi null: unbounded).
+    pub count_range: [Option<u64>; 2],
+}
+
+/// POST /v1/quantiles response.
+#[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
+pub struct QuantilesResponse {
+    pub summary: Summary,
+    pub model: ModelOut,
+    pub quantiles: Vec<QuantileOut>,
+    /// Under `stress`: the same figures for the unstressed portfolio.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schema(no_recursion)]
+    pub base: Option<Box<QuantilesResponse>>,
+    pub assumptions: Vec<String>,
+}
+
+/// Probes a quantile search may need (guess, gallop and bisection of three searches), for the work budget.
+const PROBES_PER_LEVEL: f64 = 40.0;
+
+pub struct Quantiles;
+
+impl Analytic for Quantiles {
+    type Request = QuantilesRequest;
+    type Answer = QuantilesResponse;
+
+    fn inputs(req: &QuantilesRequest) -> Inputs<'_> {
+        Inputs { portfolio: &req.portfolio, stress: req.stress, dependence: req.dependence }
+    }
+
+    fn check(req: &QuantilesRequest, limits: &ServiceLimits, errs: &mut Vec<Violation>) {
+        list_size("/levels", ("level", "levels"), req.levels.len(), limits.max_thresholds, errs);
+        for (i, &l) in req.levels.iter().enumerate().take(limits.max_thresholds) {
+            if !(l > 0.0 && l < 1.0) {
+                errs.push(Violation::new(format!("/levels/{i}"), format!("must be strictly between 0 and 1, got {l}")));
+            }
+        }
+        if req.methods.is_empty() {
+            errs.push(Violation::new("/methods", "at least one method is required"));
+        }
+    }
+
+    fn evaluations(req: &QuantilesRequest) -> Option<f64> {
+        Some(req.levels.len() as f64 * req.methods.len() as f64 * PROBES_PER_LEVEL)
+    }
+
+    fn answer(
+        req: &QuantilesRequest,
+        law: &Law,
+        stress: Option<Stress>,
+        ctx: &Ctx,
+    ) -> Result<QuantilesResponse, Error> {
+        // Checked between methods: the search handles a method's levels together.
+        let per_method = req
+            .methods
+            .iter()
+            .map(|&m| ctx.cancel.check().map(|()| quantiles(law, &req.levels, m, req.tolerance)))
+            .collect::<Result<Vec<_>, Error>>()?;
+        let mut out = Vec::new();
+        // Levels in the order asked, and for each level the methods in the order asked.
+        for i in 0..req.levels.len() {
+            for (qs, &m) in per_method.iter().zip(&req.methods) {
+                let q = &qs[i];
+                let (a, b) = (q.cdf_at_count, q.cdf_below);
+                out.push(QuantileOut {
+                    level: q.level,
+                    method: m,
+                    count: q.count,
+                    cdf_at_count: a.value,
+                    cdf_below: b.value,
+                    ln_cdf_at_count: a.ln(),
+                    ln_cdf_below: b.ln(),
+                    cdf_error_bounds: [a.abs_err, b.abs_err],
+                    bound_kind: a.kind.and(b.kind),
+                    count_range: [Some(q.count_range.0), q.count_range.1],
+                });
+            }
+        }
+        Ok(QuantilesResponse {
+            summary: Summary::of_law(law),
+            model: ModelOut::of(law, stress),
+            quantiles: out,
+            base: None,
+            assumptions: assumptions(),
+        })
+    }
+
+    fn with_base(answer: &mut QuantilesResponse, base: QuantilesResponse) {
+        answer.base = Some(Box::new(base));
+    }
+}

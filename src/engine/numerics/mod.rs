@@ -1,0 +1,9 @@
+//! Numerical tools the methods share: the floating-point model and compensated sums (`float`), one-pass
+//! moments (`moments`), the cumulant generating function and the tilt (`cgf`), the standard normal law
+//! (`normal_law`) and Gauss-Hermite rules (`quadrature`).
+
+pub mod cgf;
+pub mod float;
+pub mod moments;
+pub mod normal_law;
+pub mod quadrature;
