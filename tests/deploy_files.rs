@@ -235,7 +235,7 @@ fn manifest_targets() -> Vec<PathBuf> {
     let flush = |section: &str, name: &mut Option<String>, path: &mut Option<String>, out: &mut Vec<PathBuf>| {
         let default = match (section, name.as_deref()) {
             ("lib", _) => Some("src/lib.rs".to_string()),
-            ("bin", Some(n)) if n == env!("CARGO_PKG_NAME") => Some("src/main.rs".to_string()),
+            ("bin", Some(env!("CARGO_PKG_NAME"))) => Some("src/main.rs".to_string()),
             ("bin", Some(n)) => Some(format!("src/bin/{n}.rs")),
             ("bench", Some(n)) => Some(format!("benches/{n}.rs")),
             ("test", Some(n)) => Some(format!("tests/{n}.rs")),
