@@ -3,6 +3,8 @@ FROM rust:1.95-slim-bookworm AS build
 WORKDIR /src
 COPY Cargo.toml Cargo.lock ./
 COPY src ./src
+# src/api/routes/page.rs includes the explorer page at compile time (tests/deploy_files.rs checks every include).
+COPY assets ./assets
 COPY benches ./benches
 RUN cargo build --release --locked --bin tailtally
 

@@ -9,10 +9,7 @@ use tailtally::{server, telemetry};
 async fn main() -> std::process::ExitCode {
     let cli = Cli::parse();
     match cli.command.unwrap_or(Command::Serve) {
-        Command::Openapi => {
-            print!("{}", tailtally::api::openapi::pretty_json());
-            std::process::ExitCode::SUCCESS
-        }
+        Command::Openapi => write_document(tailtally::api::openapi::pretty_json().as_bytes()),
         Command::Eval { file } => eval(file, &cli.options).await,
         Command::Serve => {
             telemetry::init(cli.options.log_format);
@@ -34,6 +31,22 @@ async fn main() -> std::process::ExitCode {
                     std::process::ExitCode::FAILURE
                 }
             }
+        }
+    }
+}
+
+/// `tailtally openapi`: the document to standard output. A reader that leaves early (`tailtally openapi | head`)
+/// wants no more of it, so a broken pipe ends the command quietly with exit 0 (`print!` would panic there);
+/// any other write failure is reported, exit 1.
+fn write_document(doc: &[u8]) -> std::process::ExitCode {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(doc).and_then(|()| out.flush()) {
+        Ok(()) => std::process::ExitCode::SUCCESS,
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => std::process::ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("tailtally: cannot write the document: {e}");
+            std::process::ExitCode::FAILURE
         }
     }
 }
