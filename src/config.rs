@@ -53,6 +53,13 @@ pub struct Options {
     /// Work budget per request: exposures x thresholds (the exact method's cost scale).
     #[arg(long, env = "TAILTALLY_MAX_WORK", default_value_t = 2e9, global = true)]
     pub max_work: f64,
+    /// Memory one request may hold, in bytes: its model, the exact engine's windows, the factor model's
+    /// components and its answer are estimated before anything is built, and a request over it gets a 413
+    /// that says which part is too large. Default: 60% of the memory this process may use (the cgroup limit
+    /// where there is one, else the machine's memory) shared by --max-concurrency requests, within 128 MiB
+    /// and 8 GiB.
+    #[arg(long, env = "TAILTALLY_MAX_REQUEST_MEMORY", global = true)]
+    pub max_request_memory: Option<u64>,
     /// Most lines in one batch (POST /v1/batch, `tailtally eval`); the answer stream ends with one 413
     /// problem line where the next line would begin.
     #[arg(long, env = "TAILTALLY_MAX_BATCH_LINES", default_value_t = 100_000, global = true)]
@@ -100,6 +107,34 @@ pub struct ServiceLimits {
     pub portfolio: Limits,
     pub max_thresholds: usize,
     pub max_work: f64,
+    /// Bytes one request may hold (see `--max-request-memory`).
+    pub max_request_bytes: f64,
+}
+
+/// Memory this process may use: the cgroup v2 or v1 limit where one is set, else the machine's memory
+/// (`MemTotal` of /proc/meminfo); None where neither can be read.
+pub fn memory_available() -> Option<u64> {
+    let read = |p: &str| std::fs::read_to_string(p).ok();
+    let cgroup = read("/sys/fs/cgroup/memory.max")
+        .or_else(|| read("/sys/fs/cgroup/memory/memory.limit_in_bytes"))
+        .and_then(|s| s.trim().parse::<u64>().ok())
+        // cgroup v1 reports "no limit" as a huge number.
+        .filter(|&b| b < (1u64 << 60));
+    let total = read("/proc/meminfo").and_then(|m| {
+        let line = m.lines().find(|l| l.starts_with("MemTotal:"))?;
+        line.split_whitespace().nth(1)?.parse::<u64>().ok().map(|kib| kib * 1024)
+    });
+    match (cgroup, total) {
+        (Some(c), Some(t)) => Some(c.min(t)),
+        (c, t) => c.or(t),
+    }
+}
+
+/// The default of `--max-request-memory` for this machine and concurrency.
+pub fn default_request_memory(max_concurrency: usize) -> u64 {
+    const MIB: u64 = 1 << 20;
+    let avail = memory_available().unwrap_or(4096 * MIB);
+    (avail as f64 * 0.6 / max_concurrency.max(1) as f64).clamp((128 * MIB) as f64, (8192 * MIB) as f64) as u64
 }
 
 /// Limits of a batch (POST /v1/batch and `tailtally eval`) beyond those of each line's request.
@@ -144,6 +179,7 @@ impl ServiceLimits {
             },
             max_thresholds: o.max_thresholds,
             max_work: o.max_work,
+            max_request_bytes: o.max_request_memory.unwrap_or_else(|| default_request_memory(o.max_concurrency)) as f64,
         }
     }
 }

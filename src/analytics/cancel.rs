@@ -1,7 +1,8 @@
 //! Cancellation of abandoned computations. A blocking computation cannot be interrupted from outside, so
-//! the questions check a shared flag between their units of work (methods, levels, layers, the base and
-//! stressed laws) and give up early once nobody waits for the answer: the request timed out, the client went
-//! away, or a batch line ran over its time.
+//! it checks a shared flag and gives up early once nobody waits for the answer: the request timed out, the
+//! client went away, or a batch line ran over its time. The questions check it between their units of work
+//! (methods, levels, layers, the base and stressed laws); the pipeline also hands it to the engine
+//! (`engine::interrupt`), whose long loops check it inside one evaluation.
 
 use super::error::Error;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -26,6 +27,11 @@ impl Cancel {
     pub fn pair() -> (Cancel, CancelOnDrop) {
         let flag = Arc::new(AtomicBool::new(false));
         (Cancel(Some(flag.clone())), CancelOnDrop(flag))
+    }
+
+    /// The shared flag, for the engine's loops (None for [`Cancel::never`]).
+    pub fn flag(&self) -> Option<Arc<AtomicBool>> {
+        self.0.clone()
     }
 
     pub fn is_cancelled(&self) -> bool {

@@ -4,6 +4,7 @@
 //! the tail question; the choice of counts ([`plot_counts`]) is the one the explorer page applies too.
 
 use super::checks::unbounded_counts;
+use super::cost::{self, Footprint};
 use super::error::Error;
 use super::law::Law;
 use super::pipeline::{Analytic, Ctx, Inputs};
@@ -121,6 +122,12 @@ impl Analytic for Chart {
     /// The plotted counts depend on the law's moments, so the budget is checked in `answer`.
     fn evaluations(_req: &ChartRequest) -> Option<f64> {
         None
+    }
+
+    fn footprint(req: &ChartRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
+        // At most MAX_POINTS bars and as many points per line, drawn as about 100 bytes each.
+        let answer = 100.0 * MAX_POINTS as f64 * (2 + req.methods.len()) as f64;
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, req.threshold), working: 0.0, answer }
     }
 
     fn answer(req: &ChartRequest, law: &Law, _stress: Option<Stress>, ctx: &Ctx) -> Result<ChartData, Error> {

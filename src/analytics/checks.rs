@@ -3,7 +3,7 @@
 
 use super::error::Error;
 use super::scenario::MAX_UNBOUNDED_COUNT;
-use crate::engine::Tolerance;
+use crate::engine::{MethodId, Tolerance};
 use crate::portfolio::{Model, Violation};
 
 /// A list that must hold at least one item and at most `max` (`noun`: the item's name, singular and plural).
@@ -13,6 +13,19 @@ pub fn list_size(at: &str, noun: (&str, &str), len: usize, max: usize, errs: &mu
     }
     if len > max {
         errs.push(Violation::new(at, format!("{len} {} exceed the limit of {max}", noun.1)));
+    }
+}
+
+/// Methods asked at most once each: a repeat would only repeat work and answer (and the list is then
+/// bounded by the number of methods).
+pub fn distinct_methods(methods: &[MethodId], errs: &mut Vec<Violation>) {
+    for (i, m) in methods.iter().enumerate() {
+        if let Some(j) = methods[..i].iter().position(|x| x == m) {
+            errs.push(Violation::new(
+                format!("/methods/{i}"),
+                format!("repeats /methods/{j}; ask for each method once"),
+            ));
+        }
     }
 }
 

@@ -5,17 +5,20 @@
 //! product tree (`engine::exact::leave_one_out`); exposures with p = 0 or 1 are not in the model, and their
 //! figures are those of S itself.
 
+use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary, ValueOut};
 use super::pipeline::{Analytic, Ctx, Inputs};
 use super::scenario::{assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
 use crate::config::ServiceLimits;
+use crate::engine::exact::leaf::BLOCK;
+use crate::engine::exact::window::Window;
 use crate::engine::exact::{self, leave_one_out};
 use crate::engine::{Side, Value};
-use crate::portfolio::families::listed_probabilities;
+use crate::portfolio::families::{expected_len, listed_probabilities};
 use crate::portfolio::stress::Stress;
-use crate::portfolio::{PortfolioSpec, Violation};
+use crate::portfolio::{Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
 
@@ -87,6 +90,11 @@ pub struct ContributionsResponse {
     pub assumptions: Vec<String>,
 }
 
+/// Listed and generated exposures, counted without expanding the families.
+fn listed_count(spec: &PortfolioSpec) -> u64 {
+    spec.probabilities.len() as u64 + spec.families.iter().map(expected_len).sum::<u64>()
+}
+
 /// Work of the contribution tree in units of one exact evaluation (log2 of the blocks times a full product,
 /// plus the per-exposure block sums).
 const EVALUATIONS: f64 = 40.0;
@@ -118,6 +126,25 @@ impl Analytic for Contributions {
         Some(EVALUATIONS)
     }
 
+    /// The leave-one-out tree holds its nodes' windows (the leaves' doubles on each of its levels) and, on
+    /// the way down, two complements per level, each as wide as the whole law; then 24 bytes per listed
+    /// exposure to rank them, 80 for their figures, and about 450 per row answered.
+    fn footprint(req: &ContributionsRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
+        let leaves = cost::exact_window_doubles(model, req.threshold) / 2.0;
+        let blocks = (model.bernoulli.len() as f64 / BLOCK as f64).ceil().max(1.0);
+        let depth = blocks.log2().ceil() + 1.0;
+        let var: f64 = model.bernoulli.iter().map(|p| p * (1.0 - p)).sum::<f64>()
+            + model.binomials.iter().map(|b| b.size as f64 * b.p * (1.0 - b.p)).sum::<f64>()
+            + model.poisson.max(req.threshold.min(MAX_UNBOUNDED_COUNT) as f64);
+        let law = 2.0 * Window::bernstein_radius(var) + 4.0;
+        let listed = listed_count(&req.portfolio) as f64;
+        Footprint {
+            windows: 8.0 * (depth * leaves + 2.0 * depth * law),
+            working: 112.0 * listed,
+            answer: 450.0 * req.top.map_or(listed, |t| (t as f64).min(listed)),
+        }
+    }
+
     fn answer(
         req: &ContributionsRequest,
         law: &Law,
@@ -145,20 +172,44 @@ impl Analytic for Contributions {
         .0;
         let (tail, point_below, point_at, tail_above) = (fixed[0], fixed[1], fixed[2], fixed[3]);
         let point_below = if k == 0 { Value::certain(0.0) } else { point_below };
-        let mut next = 0;
-        let mut rows: Vec<ContributionOut> = listed
+        // Rank first, then build the rows kept: the figures of exposure i are the model's next entry, or
+        // those of S itself for an impossible or certain exposure.
+        const IMPOSSIBLE: usize = usize::MAX;
+        const CERTAIN: usize = usize::MAX - 1;
+        let figures = |slot: usize| match slot {
+            IMPOSSIBLE => (point_below, tail),
+            CERTAIN => (point_at, tail_above),
+            i => (per[i].sensitivity, per[i].tail_without),
+        };
+        let mut next = 0usize;
+        let mut order: Vec<(f64, usize, usize)> = listed
             .iter()
             .enumerate()
             .map(|(index, &p)| {
-                let (s, t) = if p <= 0.0 {
-                    (point_below, tail)
+                let slot = if p <= 0.0 {
+                    IMPOSSIBLE
                 } else if p >= 1.0 {
-                    (point_at, tail_above)
+                    CERTAIN
                 } else {
-                    let c = per[next];
                     next += 1;
-                    (c.sensitivity, c.tail_without)
+                    next - 1
                 };
+                let sensitivity = figures(slot).0.value;
+                let key = match req.rank_by {
+                    RankBy::Sensitivity => sensitivity,
+                    RankBy::Impact => p * sensitivity,
+                };
+                (key, index, slot)
+            })
+            .collect();
+        order.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
+        let ranked = order.len();
+        order.truncate(req.top.unwrap_or(ranked));
+        let rows: Vec<ContributionOut> = order
+            .iter()
+            .map(|&(_, index, slot)| {
+                let p = listed[index];
+                let (s, t) = figures(slot);
                 ContributionOut {
                     index,
                     probability: p,
@@ -169,15 +220,6 @@ impl Analytic for Contributions {
                 }
             })
             .collect();
-        let key = |c: &ContributionOut| match req.rank_by {
-            RankBy::Sensitivity => c.sensitivity,
-            RankBy::Impact => c.impact,
-        };
-        rows.sort_by(|a, b| key(b).total_cmp(&key(a)).then(a.index.cmp(&b.index)));
-        let ranked = rows.len();
-        if let Some(n) = req.top {
-            rows.truncate(n);
-        }
         Ok(ContributionsResponse {
             summary: Summary::of_law(law),
             model: ModelOut::of(law, stress),

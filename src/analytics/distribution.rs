@@ -5,6 +5,7 @@
 //! values keep their relative accuracy and their logarithms stay finite where the values underflow.
 
 use super::checks::unbounded_counts;
+use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary};
@@ -136,6 +137,16 @@ impl Analytic for Distribution {
     fn evaluations(_req: &DistributionRequest) -> Option<f64> {
         // A range of counts costs about one tilted law per 1.5 standard deviations; the pmf cells are cheap.
         Some(64.0)
+    }
+
+    fn footprint(req: &DistributionRequest, model: &Model, limits: &ServiceLimits) -> Footprint {
+        let counts = match (req.from, req.to) {
+            (Some(a), Some(b)) => b.saturating_sub(a) + 1,
+            _ => limits.max_thresholds as u64,
+        };
+        // Three values per count with their bounds, and seven JSON arrays.
+        let answer = 250.0 * counts as f64;
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, req.to.unwrap_or(0)), working: 0.0, answer }
     }
 
     fn answer(

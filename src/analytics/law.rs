@@ -14,11 +14,11 @@
 //! Because that last term is an estimate, every answer under dependence has bound kind `estimated`.
 
 use super::dependence::{conditional, Dependence, Thresholds};
-use crate::engine::exact;
 use crate::engine::numerics::float::{up, Sum, U};
 use crate::engine::numerics::moments::Moments;
 use crate::engine::numerics::quadrature::Rule;
 use crate::engine::Tolerance;
+use crate::engine::{exact, interrupt};
 use crate::engine::{BoundKind, Estimate, MethodId, Prepared, Side, Value};
 use crate::portfolio::Model;
 use serde::{Deserialize, Serialize};
@@ -61,8 +61,17 @@ fn par_map<T: Sync, R: Send>(items: &[T], f: impl Fn(&T) -> R + Sync) -> Vec<R> 
         return items.iter().map(f).collect();
     }
     let chunk = items.len().div_ceil(threads);
+    // The workers share the caller's stop flag, so an abandoned mixture stops on every thread.
+    let flag = interrupt::current();
     std::thread::scope(|s| {
-        let handles: Vec<_> = items.chunks(chunk).map(|c| s.spawn(|| c.iter().map(&f).collect::<Vec<R>>())).collect();
+        let handles: Vec<_> = items
+            .chunks(chunk)
+            .map(|c| {
+                let flag = flag.clone();
+                let f = &f;
+                s.spawn(move || interrupt::with(flag, || c.iter().map(f).collect::<Vec<R>>()))
+            })
+            .collect();
         handles.into_iter().flat_map(|h| h.join().expect("component computation panicked")).collect()
     })
 }
@@ -125,7 +134,12 @@ impl Law {
                         .map(|(&z, &w)| (z, w))
                         .collect();
                     let pruned: f64 = rule.weights.iter().filter(|&&w| w < PRUNE_WEIGHT).sum();
-                    let comps = par_map(&kept, |&(z, w)| Component::new(w, conditional(&model, &th, rho, z)));
+                    let comps = par_map(&kept, |&(z, w)| {
+                        // Once stopped, empty components stand in (the answer is thrown away).
+                        let m =
+                            if interrupt::requested() { Model::default() } else { conditional(&model, &th, rho, z) };
+                        Component::new(w, m)
+                    });
                     (comps, pruned)
                 };
                 // The answer comes from the larger rule; the smaller one (the requested node count) is the check,

@@ -5,6 +5,7 @@
 //! The expectations come from the exact engine's weighted tilted sums (`exact::layer_expectation`), so a layer
 //! far in the tail keeps its relative accuracy; the probabilities are ordinary exact tails.
 
+use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary, ValueOut};
@@ -15,7 +16,7 @@ use crate::config::ServiceLimits;
 use crate::engine::numerics::float::{up, U};
 use crate::engine::{BoundKind, MethodId, Side, Value};
 use crate::portfolio::stress::Stress;
-use crate::portfolio::{PortfolioSpec, Violation};
+use crate::portfolio::{Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
 
@@ -182,6 +183,12 @@ impl Analytic for Layers {
 
     fn evaluations(req: &LayersRequest) -> Option<f64> {
         Some(req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0)
+    }
+
+    fn footprint(req: &LayersRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
+        let top = req.layers.iter().map(|l| l.attachment.saturating_add(l.limit.unwrap_or(0))).max().unwrap_or(0);
+        let answer = 800.0 * (req.layers.len() + req.tail_levels.len()) as f64;
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, top), working: 0.0, answer }
     }
 
     fn answer(req: &LayersRequest, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<LayersResponse, Error> {

@@ -6,7 +6,8 @@
 //! 1. `check`: the question's own fields, with JSON pointers;
 //! 2. the scenario's fields (stress, dependence) and the portfolio, validated into a model (`scenario`);
 //! 3. `check_model`: rules that need the model (e.g. the largest count served with a Poisson part);
-//! 4. the work budget, from the question's `evaluations` and the scenario's multiplier;
+//! 4. the work budget, from the question's `evaluations` and the scenario's multiplier, and the memory
+//!    ceiling, from the question's `footprint` (`cost`);
 //! 5. `answer` on the law (stressed when a stress is named), then again on the base law under stress.
 //!
 //! The question's request and answer types live beside it (they are the wire format: serde and utoipa
@@ -18,6 +19,7 @@ pub mod cancel;
 pub mod chart;
 pub mod checks;
 pub mod contributions;
+pub mod cost;
 pub mod dependence;
 pub mod distribution;
 pub mod error;

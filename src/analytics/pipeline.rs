@@ -1,12 +1,14 @@
 //! The one trait every question implements, and the one pipeline that runs them all: check -> model ->
-//! budget -> answer -> base answer under stress (the steps are listed in the module above).
+//! budget (work and memory) -> answer -> base answer under stress (the steps are listed in the module above).
 
 use super::cancel::Cancel;
+use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
 use super::law::Law;
 use super::scenario;
 use crate::config::ServiceLimits;
+use crate::engine::interrupt;
 use crate::portfolio::stress::Stress;
 use crate::portfolio::{Model, PortfolioSpec, Violation};
 
@@ -43,6 +45,10 @@ pub trait Analytic {
     /// when the question checks its budget itself (it needs the law's moments to know its size).
     fn evaluations(req: &Self::Request) -> Option<f64>;
 
+    /// The memory the question will hold on this model (one law, independent, unstressed: the pipeline
+    /// scales it by the scenario), for the per-request ceiling.
+    fn footprint(req: &Self::Request, model: &Model, limits: &ServiceLimits) -> Footprint;
+
     /// The answer on one law (stressed when `stress` is named, the base law otherwise).
     fn answer(req: &Self::Request, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<Self::Answer, Error>;
 
@@ -50,8 +56,17 @@ pub trait Analytic {
     fn with_base(answer: &mut Self::Answer, base: Self::Answer);
 }
 
-/// The one pipeline: check -> model -> budget -> answer -> base answer under stress.
+/// The one pipeline: check -> model -> budget -> answer -> base answer under stress. The engine sees the
+/// cancellation flag throughout, and an answer finished after the flag was set is never returned.
 pub fn run<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel) -> Result<A::Answer, Error> {
+    interrupt::with(cancel.flag(), || {
+        let out = steps::<A>(req, limits, cancel)?;
+        cancel.check()?;
+        Ok(out)
+    })
+}
+
+fn steps<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel) -> Result<A::Answer, Error> {
     let mut errs = Vec::new();
     A::check(req, limits, &mut errs);
     let inputs = A::inputs(req);
@@ -62,6 +77,11 @@ pub fn run<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cance
         let factor = scenario::work_factor(&inputs.stress, &inputs.dependence);
         scenario::check_work(&model, evaluations, factor, limits)?;
     }
+    let footprint = A::footprint(req, &model, limits);
+    cost::check(
+        &cost::under_scenario(footprint, &model, inputs.stress.is_some(), &inputs.dependence),
+        limits.max_request_bytes,
+    )?;
     let laws = scenario::build(model, inputs.stress, inputs.dependence);
     let ctx = Ctx { limits, cancel };
     cancel.check()?;

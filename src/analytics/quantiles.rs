@@ -7,7 +7,8 @@
 //! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
 //! count itself and the two ends of the range that the error bound allows).
 
-use super::checks::list_size;
+use super::checks::{distinct_methods, list_size};
+use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary};
@@ -19,7 +20,7 @@ use crate::engine::numerics::normal_law;
 use crate::engine::Tolerance;
 use crate::engine::{BoundKind, MethodId, Side, Value};
 use crate::portfolio::stress::Stress;
-use crate::portfolio::{PortfolioSpec, Violation};
+use crate::portfolio::{Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
 use utoipa::ToSchema;
@@ -52,7 +53,8 @@ struct Cdf<'a> {
 
 impl Cdf<'_> {
     fn at(&mut self, k: u64) -> Value {
-        if k < self.min {
+        // A stopped search ends at once: every probe reads 0 and the answer is thrown away.
+        if k < self.min || crate::engine::interrupt::requested() {
             return Value::default();
         }
         if self.max.is_some_and(|m| k >= m) {
@@ -244,10 +246,16 @@ impl Analytic for Quantiles {
         if req.methods.is_empty() {
             errs.push(Violation::new("/methods", "at least one method is required"));
         }
+        distinct_methods(&req.methods, errs);
     }
 
     fn evaluations(req: &QuantilesRequest) -> Option<f64> {
         Some(req.levels.len() as f64 * req.methods.len() as f64 * PROBES_PER_LEVEL)
+    }
+
+    fn footprint(req: &QuantilesRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
+        let answer = 400.0 * req.levels.len() as f64 * req.methods.len() as f64;
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, 0), working: 0.0, answer }
     }
 
     fn answer(

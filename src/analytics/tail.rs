@@ -1,6 +1,7 @@
 //! The tail question: P(S >= k), P(S <= k) or P(S = k) at a list of thresholds, one estimate per method.
 
-use super::checks::{check_tolerance, list_size, unbounded_counts};
+use super::checks::{check_tolerance, distinct_methods, list_size, unbounded_counts};
+use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary};
@@ -125,6 +126,7 @@ impl Analytic for Tail {
         if req.methods.is_empty() {
             errs.push(Violation::new("/methods", "at least one method is required"));
         }
+        distinct_methods(&req.methods, errs);
     }
 
     fn check_model(req: &TailRequest, model: &Model) -> Result<(), Error> {
@@ -136,6 +138,13 @@ impl Analytic for Tail {
 
     fn evaluations(req: &TailRequest) -> Option<f64> {
         Some(req.thresholds.len() as f64)
+    }
+
+    fn footprint(req: &TailRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
+        let top = req.thresholds.iter().copied().max().unwrap_or(0);
+        // One estimate is about 600 bytes as a structure and as JSON.
+        let answer = 600.0 * req.thresholds.len() as f64 * req.methods.len() as f64;
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, top), working: 0.0, answer }
     }
 
     fn answer(req: &TailRequest, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<TailResponse, Error> {

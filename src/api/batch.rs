@@ -425,7 +425,7 @@ fn parse_envelope(no: u64, line: &[u8]) -> Result<Envelope<'_>, Rejected> {
     let mut id = None;
     let mut kind: Option<(Kind, &RawValue)> = None;
     for (i, (k, v)) in members.0.iter().enumerate() {
-        let ptr = format!("/{}", crate::api::problem::escape_token(k));
+        let ptr = format!("/{}", crate::api::problem::escape_token(&extract::shorten(k, extract::MAX_ECHO)));
         if members.0[..i].iter().any(|(prev, _)| prev == k) {
             errs.push(Violation::new(ptr, "duplicate key"));
             continue;

@@ -66,9 +66,25 @@ pub fn parse<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, Problem> {
 
 fn strip_position(s: &str) -> String {
     match s.rfind(" at line ") {
-        Some(i) => s[..i].to_string(),
-        None => s.to_string(),
+        Some(i) => shorten(&s[..i], MAX_ECHO),
+        None => shorten(s, MAX_ECHO),
     }
+}
+
+/// Longest piece of a client's input (a key, a value) echoed in a problem: an unknown key of 50 MB must not
+/// come back four times over.
+pub const MAX_ECHO: usize = 256;
+
+/// `s` cut to at most `max` bytes (on a character boundary), marked with an ellipsis where cut.
+pub fn shorten(s: &str, max: usize) -> String {
+    if s.len() <= max {
+        return s.to_string();
+    }
+    let mut end = max;
+    while !s.is_char_boundary(end) {
+        end -= 1;
+    }
+    format!("{}\u{2026}", &s[..end])
 }
 
 fn pointer_of(path: &serde_path_to_error::Path) -> String {
@@ -77,7 +93,7 @@ fn pointer_of(path: &serde_path_to_error::Path) -> String {
     for seg in path.iter() {
         match seg {
             Segment::Seq { index } => out.push_str(&format!("/{index}")),
-            Segment::Map { key } => out.push_str(&format!("/{}", escape_token(key))),
+            Segment::Map { key } => out.push_str(&format!("/{}", escape_token(&shorten(key, MAX_ECHO)))),
             Segment::Enum { variant } => out.push_str(&format!("/{}", escape_token(variant))),
             Segment::Unknown => {}
         }

@@ -5,6 +5,7 @@
 use super::problem::Problem;
 use crate::analytics::cancel::Cancel;
 use crate::analytics::{self, Analytic};
+use crate::api::Admitted;
 use crate::config::ServiceLimits;
 use axum::http::StatusCode;
 use std::sync::Arc;
@@ -26,15 +27,25 @@ impl From<analytics::Error> for Problem {
     }
 }
 
-/// Answer `req` with the question `A` on the blocking pool.
-pub async fn answer<A>(req: A::Request, limits: Arc<ServiceLimits>) -> Result<A::Answer, Problem>
+/// Answer `req` with the question `A` on the blocking pool. The request's admission (its computing turn)
+/// moves into the blocking work and is given back only when that work has ended: a timed-out request is
+/// answered 408 at once, but its turn stays taken until its computation has stopped (within one unit of
+/// work of the engine's loops), so the admission limit counts every computation that runs.
+pub async fn answer<A>(
+    req: A::Request,
+    limits: Arc<ServiceLimits>,
+    admitted: Option<Admitted>,
+) -> Result<A::Answer, Problem>
 where
     A: Analytic,
     A::Request: Send + 'static,
     A::Answer: Send + 'static,
 {
     let (cancel, _guard) = Cancel::pair();
-    tokio::task::spawn_blocking(move || analytics::run::<A>(&req, &limits, &cancel).map_err(Problem::from))
-        .await
-        .map_err(|e| Problem::internal(format!("computation failed: {e}")))?
+    tokio::task::spawn_blocking(move || {
+        let _turn = admitted;
+        analytics::run::<A>(&req, &limits, &cancel).map_err(Problem::from)
+    })
+    .await
+    .map_err(|e| Problem::internal(format!("computation failed: {e}")))?
 }

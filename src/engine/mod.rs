@@ -10,6 +10,7 @@
 pub mod dispatch;
 pub mod edgeworth;
 pub mod exact;
+pub mod interrupt;
 pub mod normal;
 pub mod numerics;
 pub mod poisson;

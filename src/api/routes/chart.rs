@@ -7,10 +7,11 @@ use crate::api::offload::answer;
 use crate::api::problem::Problem;
 use crate::api::responses::ComputingProblems;
 use crate::api::svg;
-use crate::api::AppState;
+use crate::api::{Admitted, AppState};
 use axum::extract::State;
 use axum::http::{header, HeaderValue};
 use axum::response::{IntoResponse, Response};
+use axum::Extension;
 
 /// The pmf as bars with the tail shaded, the threshold marked and approximations overlaid, as SVG.
 #[utoipa::path(
@@ -21,8 +22,12 @@ use axum::response::{IntoResponse, Response};
         ComputingProblems,
     )
 )]
-pub async fn chart(State(state): State<AppState>, Body(req): Body<ChartRequest>) -> Result<Response, Problem> {
-    let data = answer::<Chart>(req, state.limits.clone()).await?;
+pub async fn chart(
+    State(state): State<AppState>,
+    admitted: Option<Extension<Admitted>>,
+    Body(req): Body<ChartRequest>,
+) -> Result<Response, Problem> {
+    let data = answer::<Chart>(req, state.limits.clone(), admitted.map(|Extension(a)| a)).await?;
     let mut res = svg::render(&data).into_response();
     res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static("image/svg+xml"));
     Ok(res)

@@ -7,10 +7,11 @@ use crate::api::extract::Body;
 use crate::api::offload::answer;
 use crate::api::problem::Problem;
 use crate::api::responses::ComputingProblems;
-use crate::api::AppState;
+use crate::api::{Admitted, AppState};
 use axum::extract::State;
 use axum::http::{header, HeaderMap, HeaderValue};
 use axum::response::{IntoResponse, Response};
+use axum::Extension;
 use axum::Json;
 use std::fmt::Write;
 
@@ -26,6 +27,7 @@ use std::fmt::Write;
 )]
 pub async fn distribution(
     State(state): State<AppState>,
+    admitted: Option<Extension<Admitted>>,
     headers: HeaderMap,
     Body(req): Body<DistributionRequest>,
 ) -> Result<Response, Problem> {
@@ -33,7 +35,7 @@ pub async fn distribution(
         .get(header::ACCEPT)
         .and_then(|v| v.to_str().ok())
         .is_some_and(|a| a.split(',').any(|m| m.trim().starts_with("text/csv")));
-    let out = answer::<Distribution>(req, state.limits.clone()).await?;
+    let out = answer::<Distribution>(req, state.limits.clone(), admitted.map(|Extension(a)| a)).await?;
     if csv {
         let mut res = to_csv(&out).into_response();
         res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static("text/csv; charset=utf-8"));

@@ -15,9 +15,11 @@ macro_rules! json_route {
         )]
         pub async fn $name(
             axum::extract::State(state): axum::extract::State<crate::api::AppState>,
+            admitted: Option<axum::Extension<crate::api::Admitted>>,
             crate::api::extract::Body(req): crate::api::extract::Body<$req>,
         ) -> Result<axum::Json<$resp>, crate::api::problem::Problem> {
-            Ok(axum::Json(crate::api::offload::answer::<$question>(req, state.limits.clone()).await?))
+            let admitted = admitted.map(|axum::Extension(a)| a);
+            Ok(axum::Json(crate::api::offload::answer::<$question>(req, state.limits.clone(), admitted).await?))
         }
     };
 }

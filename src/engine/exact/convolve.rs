@@ -93,6 +93,10 @@ pub fn product_all(mut parts: Vec<Window>) -> Window {
         slots.push(Some(w));
     }
     while heap.len() > 1 {
+        if crate::engine::interrupt::requested() {
+            // Stopped: any window will do, the result is thrown away.
+            return Window::point();
+        }
         let Reverse((_, i)) = heap.pop().unwrap();
         let Reverse((_, j)) = heap.pop().unwrap();
         let a = slots[i].take().unwrap();

@@ -46,19 +46,27 @@ fn build(leaves: &[Window], lo: usize, hi: usize, arena: &mut Vec<Node>) -> usiz
     }
     let mid = lo + (hi - lo) / 2;
     let (l, r) = (build(leaves, lo, mid, arena), build(leaves, mid, hi, arena));
-    let law = convolve::product(&arena[l].law, &arena[r].law);
+    // Once stopped, point masses stand in for the products (the answer is thrown away).
+    let stopped = crate::engine::interrupt::requested();
+    let law = if stopped { Window::point() } else { convolve::product(&arena[l].law, &arena[r].law) };
     arena.push(Node { law, children: Some((l, r)), blocks: (lo, hi) });
     arena.len() - 1
 }
 
-fn complements(arena: &[Node], node: usize, comp: Window, out: &mut [Option<Window>]) {
+/// Visit every leaf block with its complement (the law of all other blocks and parts), left to right. Each
+/// complement is used and dropped before the next is made, so at most one per tree level is alive at once.
+fn complements(arena: &[Node], node: usize, comp: Window, visit: &mut dyn FnMut(usize, Window)) {
     match arena[node].children {
-        None => out[arena[node].blocks.0] = Some(comp),
+        None => visit(arena[node].blocks.0, comp),
         Some((l, r)) => {
-            let cl = convolve::product(&comp, &arena[r].law);
-            let cr = convolve::product(&comp, &arena[l].law);
-            complements(arena, l, cl, out);
-            complements(arena, r, cr, out);
+            let (cl, cr) = if crate::engine::interrupt::requested() {
+                (Window::point(), Window::point())
+            } else {
+                (convolve::product(&comp, &arena[r].law), convolve::product(&comp, &arena[l].law))
+            };
+            drop(comp);
+            complements(arena, l, cl, visit);
+            complements(arena, r, cr, visit);
         }
     }
 }
@@ -109,10 +117,6 @@ pub fn contributions(model: &Model, moments: &Moments, k: u64) -> Vec<Contributi
     }
     let mut arena = Vec::with_capacity(2 * leaves.len());
     let root = build(&leaves, 0, leaves.len(), &mut arena);
-    let mut comps: Vec<Option<Window>> = vec![None; leaves.len()];
-    complements(&arena, root, convolve::product_all(others), &mut comps);
-    drop(arena);
-
     // k' = k - shift in the unshifted coordinates of the windows.
     let kk = k - shift;
     let rho = (-t.abs()).exp();
@@ -121,8 +125,13 @@ pub fn contributions(model: &Model, moments: &Moments, k: u64) -> Vec<Contributi
     let per = compose(cgf::TILT_REL, gamma(2.0));
     let h_rel = compose((1.0 + per).powi(leaf::BLOCK as i32) - 1.0, gamma(leaf::BLOCK as f64 + 1.0));
     let mut out = Vec::with_capacity(n);
-    for (bi, ps) in blocks.iter().enumerate() {
-        let cw = comps[bi].take().expect("every block has a complement");
+    let mut per_block = |bi: usize, cw: Window| {
+        let ps = blocks[bi];
+        if crate::engine::interrupt::requested() {
+            // Stopped: the caller throws the answer away, but it still gets one figure per exposure.
+            out.extend(std::iter::repeat_n(Contribution { sensitivity: zero, tail_without: zero }, ps.len()));
+            return;
+        }
         let (clo, chi) = (cw.lo, cw.hi());
         let at = |x: u64| if x >= clo && x <= chi { cw.w[(x - clo) as usize] } else { 0.0 };
         // Weighted partial sums of the complement: U (upwards, t >= 0) or L (downwards, t < 0).
@@ -215,7 +224,9 @@ pub fn contributions(model: &Model, moments: &Moments, k: u64) -> Vec<Contributi
             };
             out.push(Contribution { sensitivity, tail_without });
         }
-    }
+    };
+    complements(&arena, root, convolve::product_all(others), &mut per_block);
+    drop(arena);
     out
 }
 

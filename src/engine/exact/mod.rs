@@ -25,6 +25,7 @@ pub mod leaf;
 pub mod leave_one_out;
 pub mod window;
 
+use crate::engine::interrupt;
 use crate::engine::numerics::cgf::{self, TiltConsts};
 use crate::engine::numerics::float::{gamma, log1m_exp, up, U};
 use crate::engine::numerics::moments::Moments;
@@ -70,8 +71,19 @@ pub struct Tilted {
 /// Build the tilted law at t over its Bernstein window (support shifted by the certain exposures).
 pub fn tilted(model: &Model, t: f64) -> Tilted {
     let c = TiltConsts::new(t);
-    let mut parts: Vec<Window> = model.bernoulli.chunks(leaf::BLOCK).map(|ch| leaf::bernoulli_block(ch, &c)).collect();
-    for b in &model.binomials {
+    let mut parts: Vec<Window> =
+        Vec::with_capacity(model.bernoulli.len().div_ceil(leaf::BLOCK) + model.binomials.len() + 1);
+    for (i, ch) in model.bernoulli.chunks(leaf::BLOCK).enumerate() {
+        // A stopped computation's result is thrown away: a point mass keeps what follows well defined.
+        if i % 1024 == 0 && interrupt::requested() {
+            return Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default() };
+        }
+        parts.push(leaf::bernoulli_block(ch, &c));
+    }
+    for (i, b) in model.binomials.iter().enumerate() {
+        if i % 1024 == 0 && interrupt::requested() {
+            return Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default() };
+        }
         parts.push(leaf::binomial(b.size, b.p, &c));
     }
     if model.poisson > 0.0 {
@@ -144,6 +156,9 @@ pub fn evaluate(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (V
         js.sort_by_key(|j| j.target);
         let mut i = 0;
         while i < js.len() {
+            if interrupt::requested() {
+                break;
+            }
             let first = js[i].target;
             let t0 = solve_tilt(model, moments, first as f64, dir);
             let sd0 = cgf::eval_var(model, t0).sqrt();

@@ -115,7 +115,7 @@ pub fn tilt_qr(p: f64, c: &TiltConsts) -> (f64, f64) {
 pub const TILT_REL: f64 = 8.0 * super::float::U;
 
 /// ln M(t) summed with the dominant part taken out: K(t) = phi + t B.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone, Copy, Default)]
 pub struct Scale {
     pub phi: f64,
     /// Low part of phi as a double-double (phi + phi_lo is the compensated sum).

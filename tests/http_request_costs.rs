@@ -1,0 +1,107 @@
+//! What one request may cost is bounded before it is spent (the mechanism, with small limits set by flags):
+//! the memory a request would hold is estimated from its model and refused with a 413 before anything is
+//! built; repeated methods are refused; a problem never echoes a huge key; and a request that times out
+//! stops computing, its admission turn held until the computation has really ended.
+
+mod common;
+use common::{assert_problem, start, Process};
+use serde_json::json;
+
+/// 200,000 distinct groups of 500 at p = 0.5: each group's window is about 330 doubles, 1 GB in all before
+/// the first product (2,000,000 of them took 5.65 GB). With a 64 MiB ceiling the answer is a 413 naming the
+/// windows, and the process stays small.
+#[tokio::test]
+async fn windows_over_the_memory_ceiling_are_refused_before_they_are_built() {
+    let s = start(&["--max-request-memory", "67108864"]).await;
+    let groups: Vec<_> = (0..200_000).map(|i| json!({"size": 500, "probability": 0.5 - i as f64 * 1e-9})).collect();
+    let body = json!({"portfolio": {"groups": groups}, "thresholds": [50_000_000]});
+    let (st, ct, v) = s.post_json("/v1/tail", &body).await;
+    assert_problem(st, &ct, &v, 413, None);
+    let detail = v["detail"].as_str().unwrap();
+    assert!(detail.contains("exact windows") && detail.contains("--max-request-memory"), "{detail}");
+    // The same portfolio with fewer groups fits.
+    let groups: Vec<_> = (0..200).map(|i| json!({"size": 500, "probability": 0.5 - i as f64 * 1e-9})).collect();
+    let (st, _, v) = s.post_json("/v1/tail", &json!({"portfolio": {"groups": groups}, "thresholds": [50_000]})).await;
+    assert_eq!(st, 200, "{v}");
+    s.shutdown().await.unwrap();
+}
+
+/// The factor model's components (one conditional model per node of both rules) and the contributions'
+/// per-exposure figures are counted too.
+#[tokio::test]
+async fn factor_nodes_and_contribution_rows_count_against_the_ceiling() {
+    let s = start(&["--max-request-memory", "67108864"]).await;
+    let family = json!({"families": [{"kind": "constant", "n": 300_000, "probability": 0.01}]});
+    let body = json!({"portfolio": family, "thresholds": [3000],
+                      "dependence": {"model": "one_factor_gaussian", "rho": 0.1, "nodes": 256}});
+    let (st, ct, v) = s.post_json("/v1/tail", &body).await;
+    assert_problem(st, &ct, &v, 413, None);
+    assert!(v["detail"].as_str().unwrap().contains("working data"), "{v}");
+    let family = json!({"families": [{"kind": "constant", "n": 1_000_000, "probability": 0.01}]});
+    let (st, ct, v) = s.post_json("/v1/contributions", &json!({"portfolio": family, "threshold": 10_100})).await;
+    assert_problem(st, &ct, &v, 413, None);
+    // A small book is answered.
+    let body = json!({"portfolio": {"probabilities": [0.1, 0.2, 0.3]}, "threshold": 1, "top": 2});
+    let (st, _, v) = s.post_json("/v1/contributions", &body).await;
+    assert_eq!((st, v["contributions"].as_array().map(Vec::len)), (200, Some(2)), "{v}");
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn a_method_asked_twice_is_refused_at_its_position() {
+    let s = start(&[]).await;
+    let p = json!({"probabilities": [0.1, 0.2]});
+    let body = json!({"portfolio": p, "thresholds": [1], "methods": ["normal", "exact", "normal"]});
+    let (st, ct, v) = s.post_json("/v1/tail", &body).await;
+    assert_problem(st, &ct, &v, 422, Some("/methods/2"));
+    let body = json!({"portfolio": p, "levels": [0.5], "methods": ["exact", "exact"]});
+    let (st, ct, v) = s.post_json("/v1/quantiles", &body).await;
+    assert_problem(st, &ct, &v, 422, Some("/methods/1"));
+    s.shutdown().await.unwrap();
+}
+
+/// An unknown key of 1 MB once came back four times over (pointer and detail, twice each).
+#[tokio::test]
+async fn a_huge_unknown_key_is_not_echoed_back_in_full() {
+    let s = start(&[]).await;
+    let key = "k".repeat(1 << 20);
+    let body = format!(r#"{{"portfolio": {{"probabilities": [0.5]}}, "thresholds": [1], "{key}": 1}}"#);
+    let (st, ct, v) = s.post_raw("/v1/tail", "application/json", body.into_bytes()).await;
+    assert_problem(st, &ct, &v, 422, None);
+    let len = v.to_string().len();
+    assert!(len < 4096, "the problem is {len} bytes");
+    s.shutdown().await.unwrap();
+}
+
+/// CPU time of a process (user + system), from /proc.
+fn cpu_seconds(pid: u32) -> f64 {
+    let stat = std::fs::read_to_string(format!("/proc/{pid}/stat")).unwrap();
+    // Fields after the command name (which is in parentheses): utime and stime are the 12th and 13th.
+    let rest = &stat[stat.rfind(')').unwrap() + 2..];
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    let ticks: f64 = f[11].parse::<f64>().unwrap() + f[12].parse::<f64>().unwrap();
+    ticks / 100.0 // USER_HZ is 100 on Linux
+}
+
+/// A request that would compute for minutes (31,250 groups of 500 at p = 0.5, 999 thresholds 3,000 apart)
+/// gets its 408 at the timeout and stops computing: the process's CPU time stops growing, and
+/// compute_running falls back to 0 once the work has ended (the admission turn is held until then).
+#[test]
+fn a_timed_out_computation_stops_and_frees_its_turn() {
+    let p = Process::start(&["--request-timeout-ms", "1000", "--max-concurrency", "2"]);
+    let groups: Vec<_> = (0..31_250).map(|i| json!({"size": 500, "probability": 0.5 - i as f64 * 1e-9})).collect();
+    let thresholds: Vec<u64> = (0..999).map(|i| 7_812_500 + 3000 * i).collect();
+    let body = serde_json::to_vec(&json!({"portfolio": {"groups": groups}, "thresholds": thresholds})).unwrap();
+    let t0 = std::time::Instant::now();
+    let r = p.request("POST", "/v1/tail", Some(&body));
+    assert_eq!(r.status, 408, "{}", r.body);
+    // The computation stops at its next unit of work; allow a generous margin on a busy machine, then
+    // require that no more CPU is spent.
+    p.wait_for_metric("tailtally_compute_running", 0.0);
+    let stopped_after = t0.elapsed();
+    let a = cpu_seconds(p.child.id());
+    std::thread::sleep(std::time::Duration::from_millis(500));
+    let b = cpu_seconds(p.child.id());
+    assert!(b - a < 0.1, "CPU time still growing after the 408: {a} -> {b} s");
+    assert!(stopped_after < std::time::Duration::from_secs(10), "stopped after {stopped_after:?}");
+}
