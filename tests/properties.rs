@@ -64,7 +64,34 @@ fn portfolio() -> impl Strategy<Value = Value> {
         })
 }
 
-/// Either an answer or a problem with status 413 or 422 and at least one pointer for 422.
+/// Factors a client might send for a stress or a factor loading, at the extremes of f64 included.
+fn extreme() -> impl Strategy<Value = Value> {
+    prop_oneof![
+        8 => (0.0f64..3.0).prop_map(|x| json!(x)),
+        1 => prop_oneof![Just(0.0), Just(1e308), Just(f64::MAX), Just(f64::MIN_POSITIVE), Just(5e-324), Just(-1.0),
+            Just(0.999_999_999_999), Just(1.0), Just(1e-300)].prop_map(|x| json!(x)),
+        1 => Just(json!(u64::MAX)),
+    ]
+}
+
+/// A stress, a factor model, both or neither; with nodes from the edges of their range.
+fn scenario() -> impl Strategy<Value = Value> {
+    (
+        prop::option::of((any::<bool>(), extreme())),
+        prop::option::of((extreme(), prop_oneof![Just(2u64), Just(3), Just(256), Just(257), Just(0)])),
+    )
+        .prop_map(|(stress, dep)| {
+            let mut v = json!({});
+            if let Some((odds, f)) = stress {
+                v["stress"] = if odds { json!({"odds_factor": f}) } else { json!({"probability_factor": f}) };
+            }
+            if let Some((rho, nodes)) = dep {
+                v["dependence"] = json!({"model": "one_factor_gaussian", "rho": rho, "nodes": nodes});
+            }
+            v
+        })
+}
+
 /// The question's answer, or its refusal as the service would send it.
 fn compute<A: Analytic>(req: &A::Request, l: &ServiceLimits) -> Result<A::Answer, tailtally::api::problem::Problem> {
     tailtally::analytics::run::<A>(req, l, &Cancel::never()).map_err(Into::into)
@@ -122,6 +149,31 @@ proptest! {
         let c = json!({"portfolio": p, "threshold": 2});
         if let Ok(req) = serde_json::from_value::<contributions::ContributionsRequest>(c) {
             check(compute::<contributions::Contributions>(&req, &l));
+        }
+    }
+
+    /// Stress factors and factor loadings at the extremes of f64, with rates and sizes at theirs: an answer or
+    /// a 413/422, never a panic.
+    #[test]
+    fn extreme_stresses_and_factors_get_an_answer_or_a_problem(p in portfolio(), sc in scenario(),
+            ks in prop::collection::vec(count(), 1..3), levels in prop::collection::vec(number(), 1..3)) {
+        let l = limits();
+        let mut t = json!({"portfolio": p, "thresholds": ks, "methods": ["exact", "saddlepoint", "auto"]});
+        let mut q = json!({"portfolio": p, "levels": levels});
+        let mut y = json!({"portfolio": p, "layers": [{"attachment": 1}], "tail_levels": [0.9]});
+        for (k, v) in sc.as_object().unwrap() {
+            t[k] = v.clone();
+            q[k] = v.clone();
+            y[k] = v.clone();
+        }
+        if let Ok(req) = serde_json::from_value::<tail::TailRequest>(t) {
+            check(compute::<tail::Tail>(&req, &l));
+        }
+        if let Ok(req) = serde_json::from_value::<quantiles::QuantilesRequest>(q) {
+            check(compute::<quantiles::Quantiles>(&req, &l));
+        }
+        if let Ok(req) = serde_json::from_value::<layers::LayersRequest>(y) {
+            check(compute::<layers::Layers>(&req, &l));
         }
     }
 
