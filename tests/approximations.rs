@@ -66,6 +66,62 @@ fn rigorous_bounds_are_never_violated() {
     );
 }
 
+/// Coverage of the estimated bounds (Edgeworth, saddlepoint) over the same 10,000 random portfolios: an
+/// estimated bound must still cover the actual error in at least 99% of the cases (errors below 1e-15 of an
+/// absolute, the exact value's own bound included, count as covered). The rate and the worst ratio are
+/// printed for docs/accuracy.md.
+#[test]
+fn estimated_bounds_cover_the_error_in_at_least_99_percent_of_cases() {
+    let mut rng = ChaCha8Rng::seed_from_u64(7);
+    let mut stats = std::collections::BTreeMap::<&str, (usize, usize, f64)>::new();
+    for case in 0..10_000 {
+        let model = random_model(&mut rng);
+        let prep = Prepared::new(&model);
+        let (mean, sd) = (prep.moments.mean, prep.moments.sd());
+        let mut ks: Vec<u64> =
+            [-3.0, -1.0, 0.0, 1.0, 3.0, 6.0].iter().map(|z| (mean + z * sd).round().max(0.0) as u64).collect();
+        ks.push(model.support_min());
+        if let Some(m) = model.support_max() {
+            ks.push(m);
+        }
+        ks.sort();
+        ks.dedup();
+        let side = [Side::Upper, Side::Lower, Side::Point][case % 3];
+        let qs: Vec<(u64, Side)> = ks.iter().map(|&k| (k, side)).collect();
+        let exact = engine::run(MethodId::Exact, &prep, &qs, None);
+        for (id, name) in [(MethodId::Edgeworth, "edgeworth"), (MethodId::Saddlepoint, "saddlepoint")] {
+            for ((e, x), q) in engine::run(id, &prep, &qs, None).iter().zip(&exact).zip(&qs) {
+                assert_eq!(e.bound_kind, BoundKind::Estimated);
+                let err = (e.probability - x.probability).abs();
+                let entry = stats.entry(name).or_insert((0, 0, f64::INFINITY));
+                entry.0 += 1;
+                if err <= e.error_bound + x.error_bound + 1e-15 {
+                    entry.1 += 1;
+                } else if std::env::var("COVERAGE_DEBUG").is_ok() {
+                    let z = (q.0 as f64 - mean) / sd.max(1e-9);
+                    eprintln!(
+                        "MISS {name} n={} sd={sd:.2} side={side:?} z={:.2} exact={:e} est={:e} bound={:e}",
+                        model.exposures, z, x.probability, e.probability, e.error_bound
+                    );
+                }
+                if err > 1e-15 {
+                    entry.2 = entry.2.min(e.error_bound / err);
+                }
+            }
+        }
+    }
+    for (name, (n, covered, worst)) in &stats {
+        eprintln!(
+            "{name}: {covered} of {n} covered ({:.3}%), worst bound/error {worst:.3e}",
+            100.0 * *covered as f64 / *n as f64
+        );
+    }
+    for (name, (n, covered, _)) in &stats {
+        let rate = *covered as f64 / *n as f64;
+        assert!(rate >= 0.99, "{name}: the estimated bound covers only {:.2}% of {n} cases", 100.0 * rate);
+    }
+}
+
 /// Target: relative error under 0.5% in the upper tail beyond mean + 3 sd for portfolios of 50 or more exposures.
 #[test]
 fn saddlepoint_is_within_half_a_percent_in_the_upper_tail() {

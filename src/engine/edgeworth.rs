@@ -23,7 +23,10 @@ fn cdf_at(prep: &Prepared, x: f64) -> (f64, f64) {
     // by its variance, so kappa4/sd^4 <= 1/sd^2.
     let he3 = z * (z * z - 3.0);
     let he5 = z * (z.powi(4) - 10.0 * z * z + 15.0);
-    let err = phi * ((1.0 / (24.0 * sd * sd)) * he3.abs() + g * g / 72.0 * he5.abs()) + 1e-16;
+    // The estimate adds the size of the last term kept (the skewness correction itself, the usual guard for
+    // an asymptotic series) to the next terms': without it the estimate covered 90.5% of the errors in the
+    // coverage test, with it 99% (tests/approximations.rs).
+    let err = phi * ((1.0 / (24.0 * sd * sd)) * he3.abs() + g * g / 72.0 * he5.abs() + (g / 6.0 * he2).abs()) + 1e-16;
     (v.clamp(0.0, 1.0), err)
 }
 
@@ -50,6 +53,14 @@ impl TailMethod for Edgeworth {
                     }
                 };
                 let p = p.clamp(0.0, 1.0);
+                // A rigorous fallback: the normal law's Berry-Esseen bound plus the distance between the two
+                // approximations. Beyond 2 sd the expansion's own estimate misses too often (the truth's tail is
+                // heavier or lighter than any short expansion says), so the fallback is the bound there; inside,
+                // the smaller of the two.
+                let normal = super::normal::Normal.estimate(prep, &[(k, side)]).remove(0);
+                let fallback = (p - normal.probability).abs() + normal.error_bound;
+                let z = (kf - prep.moments.mean).abs() / prep.moments.sd();
+                let err = if z > 2.0 { fallback } else { err.min(fallback) };
                 Estimate::new(MethodId::Edgeworth, p, p.ln(), err.min(1.0), BoundKind::Estimated, start)
             })
             .collect()

@@ -68,7 +68,10 @@ fn point(prep: &Prepared, k: u64) -> (f64, f64) {
     let l4 = c.k4 / (c.k2 * c.k2);
     let corr = l4 / 8.0 - 5.0 * l3 * l3 / 24.0;
     let ln_p = ln_scale - LN_SQRT_2PI - 0.5 * c.k2.ln() + corr.max(-0.5).ln_1p();
-    (ln_p.min(0.0), corr * corr + 1e-15 + k_err.exp_m1())
+    // The estimate: the first correction's own size and 1 / K''(s), the order of the lattice terms the
+    // formula leaves out. With corr^2 alone it covered 89.6% of the errors of the coverage test
+    // (tests/approximations.rs), the point formula being off by 30% where K'' is about 3.
+    (ln_p.min(0.0), corr.abs() + corr * corr + 1.0 / c.k2 + 1e-15 + k_err.exp_m1())
 }
 
 impl TailMethod for Saddlepoint {
@@ -107,6 +110,9 @@ impl TailMethod for Saddlepoint {
                         .remove(0)
                         .renamed(MethodId::Saddlepoint);
                 };
+                // The tail is at most the Chernoff bound C: a formula above it (near the support's edge, where
+                // Lugannani-Rice is not accurate and can exceed 1) is replaced by C, whose error is at most C.
+                let (ln_t, rel) = if ln_t > ln_ch { (ln_ch, 1.0) } else { (ln_t, rel) };
                 let direct = far_is_upper == want_upper;
                 let (ln_p, p) = if direct {
                     (ln_t, ln_t.exp())
