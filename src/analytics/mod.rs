@@ -21,6 +21,7 @@ pub mod contributions;
 pub mod dependence;
 pub mod distribution;
 pub mod error;
+pub mod factor;
 pub mod law;
 pub mod layers;
 pub mod pipeline;

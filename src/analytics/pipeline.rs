@@ -56,13 +56,13 @@ pub fn run<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cance
     A::check(req, limits, &mut errs);
     let inputs = A::inputs(req);
     scenario::check(&inputs.stress, &inputs.dependence, &mut errs);
-    let model = scenario::model(inputs.portfolio, &inputs.stress, limits, errs)?;
+    let model = scenario::model(inputs.portfolio, &inputs.stress, &inputs.dependence, limits, errs)?;
     A::check_model(req, &model)?;
     if let Some(evaluations) = A::evaluations(req) {
         let factor = scenario::work_factor(&inputs.stress, &inputs.dependence);
         scenario::check_work(&model, evaluations, factor, limits)?;
     }
-    let laws = scenario::build(model, inputs.stress, inputs.dependence);
+    let laws = scenario::build(model, inputs.stress, inputs.dependence, cancel);
     let ctx = Ctx { limits, cancel };
     cancel.check()?;
     let mut out = A::answer(req, &laws.law, laws.stress, &ctx)?;
