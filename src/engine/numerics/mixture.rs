@@ -55,6 +55,7 @@ pub const MAX_GK_WIDTH: f64 = 2.0;
 /// entries 1, 3, 5 and 7), the Kronrod weights, and the weights of the 7-point Gauss rule at entries 1, 3, 5, 7.
 /// QUADPACK's QK15 constants (Piessens et al. 1983), recalled from memory; `rule_constants_are_exact` checks
 /// that they integrate every monomial up to degree 22 (Kronrod) and 13 (Gauss) exactly, which determines them.
+#[allow(clippy::excessive_precision)] // the published digits, kept as published
 const XGK: [f64; 8] = [
     0.991_455_371_120_812_639_206_854_697_526_329,
     0.949_107_912_342_758_524_526_189_684_047_851,
@@ -65,6 +66,7 @@ const XGK: [f64; 8] = [
     0.207_784_955_007_898_467_600_689_403_773_245,
     0.0,
 ];
+#[allow(clippy::excessive_precision)] // the published digits, kept as published
 const WGK: [f64; 8] = [
     0.022_935_322_010_529_224_963_732_008_058_970,
     0.063_092_092_629_978_553_290_700_663_189_204,
@@ -75,6 +77,7 @@ const WGK: [f64; 8] = [
     0.204_432_940_075_298_892_414_161_999_234_649,
     0.209_482_141_084_727_828_012_999_174_891_714,
 ];
+#[allow(clippy::excessive_precision)] // the published digits, kept as published
 const WG: [f64; 4] = [
     0.129_484_966_168_869_693_270_611_432_679_082,
     0.279_705_391_489_276_667_901_467_771_423_780,
@@ -479,7 +482,7 @@ where
         // Bisections, from the highest index so that the indices still to visit stay valid.
         let mut splits: Vec<(usize, f64, Vec<Value>)> =
             split_jobs.iter().zip(&mids).map(|(&i, &m)| (i, m, vals.next().expect("a value per node"))).collect();
-        splits.sort_by(|x, y| y.0.cmp(&x.0));
+        splits.sort_by_key(|y| std::cmp::Reverse(y.0));
         for (i, m, v) in splits {
             let p = &panels[i];
             if !(m > p.a && m < p.b) || (p.b - p.a) <= 1e-12 * (1.0 + m.abs()) {
