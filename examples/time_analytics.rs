@@ -60,8 +60,8 @@ fn main() {
         }),
     );
     row("contributions at k (every exposure)", median(|| drop(contributions(&model, &m, k))));
-    let dep = Dependence::OneFactorGaussian { rho: 0.1, nodes: 64 };
-    row("one-factor model, 64 nodes: building the mixture", median(|| drop(Law::new(model.clone(), dep))));
+    let dep = Dependence::one_factor(0.1);
+    row("one-factor model (rho 0.1): building the law", median(|| drop(Law::new(model.clone(), dep))));
     let mixed = Law::new(model.clone(), dep);
-    row("one-factor model, 64 nodes: exact tail at k", median(|| drop(mixed.exact(&[(k, Side::Upper)]))));
+    row("one-factor model (rho 0.1): exact tail at k", median(|| drop(mixed.exact(&[(k, Side::Upper)]))));
 }

@@ -161,8 +161,7 @@ fn one_factor_model_tends_to_independence_as_rho_vanishes() {
     let ps = portfolio(300, 7);
     let m = Model::from_parts(&ps, &[(50, 0.02)], 0.0);
     let ind = Law::independent(m.clone()).exact(&[(40, Side::Upper), (20, Side::Lower)]);
-    let dep = Law::new(m, Dependence::OneFactorGaussian { rho: 1e-8, nodes: 32 })
-        .exact(&[(40, Side::Upper), (20, Side::Lower)]);
+    let dep = Law::new(m, Dependence::one_factor(1e-8)).exact(&[(40, Side::Upper), (20, Side::Lower)]);
     for (a, b) in ind.iter().zip(&dep) {
         assert!((a.value / b.value - 1.0).abs() < 1e-3, "{} vs {}", a.value, b.value);
         assert_eq!(b.kind, BoundKind::Estimated);
@@ -178,8 +177,8 @@ fn one_factor_model_tends_to_independence_as_rho_vanishes() {
 fn homogeneous_one_factor_law_approaches_the_vasicek_limit() {
     let (n, p, rho) = (10_000u64, 0.01, 0.12);
     let model = Model::from_parts(&[], &[(n, p)], 0.0);
-    let law = Law::new(model.clone(), Dependence::OneFactorGaussian { rho, nodes: 64 });
-    let fine = Law::new(model, Dependence::OneFactorGaussian { rho, nodes: 256 });
+    let law = Law::new(model.clone(), Dependence::one_factor(rho));
+    let fine = Law::new(model, Dependence::one_factor_with(rho, 1e-11, 1e-16));
     let xs = [0.002, 0.005, 0.01, 0.02, 0.04];
     let qs: Vec<(u64, Side)> = xs.iter().map(|&x| ((x * n as f64) as u64, Side::Lower)).collect();
     for ((v, f), &x) in law.exact(&qs).iter().zip(fine.exact(&qs)).zip(&xs) {

@@ -44,6 +44,20 @@ async fn analytics_answer_their_documented_shapes() {
     assert_eq!(st, 200, "{v}");
     assert_eq!(v["model"]["dependence"]["model"], "one_factor_gaussian");
     assert_eq!(v["results"][0]["estimates"][0]["bound_kind"], "estimated");
+    // Every route that takes a dependence model answers under it.
+    let dep = json!({"model": "one_factor_gaussian", "rho": 0.2, "tolerance": {"relative": 1e-8}});
+    for (path, extra) in [
+        ("/v1/quantiles", json!({"levels": [0.5, 0.99]})),
+        ("/v1/distribution", json!({"from": 0, "to": 12})),
+        ("/v1/layers", json!({"layers": [{"attachment": 3, "limit": 2}], "tail_levels": [0.99]})),
+    ] {
+        let mut body = extra;
+        body["portfolio"] = portfolio();
+        body["dependence"] = dep.clone();
+        let (st, _, v) = s.post_json(path, &body).await;
+        assert_eq!(st, 200, "{path}: {v}");
+        assert_eq!(v["model"]["dependence"]["tolerance"]["relative"], 1e-8, "{path}");
+    }
     s.shutdown().await.unwrap();
 }
 
@@ -87,9 +101,27 @@ async fn bad_analytics_input_points_at_the_field() {
         ),
         (
             "/v1/quantiles",
-            json!({"portfolio": portfolio(), "levels": [0.5], "dependence": {"model": "one_factor_gaussian", "rho": 0.1, "nodes": 100000}}),
+            json!({"portfolio": portfolio(), "levels": [0.5], "dependence": {"model": "one_factor_gaussian", "rho": 0.1, "tolerance": {"relative": -1.0}}}),
             422,
-            "/dependence/nodes",
+            "/dependence/tolerance/relative",
+        ),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": {"probabilities": [0.1, 0.2], "loadings": [0.1, 1.5]}, "levels": [0.5], "dependence": {"model": "one_factor_gaussian", "rho": 0.1}}),
+            422,
+            "/portfolio/loadings/1",
+        ),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": {"probabilities": [0.1, 0.2], "loadings": [0.1]}, "levels": [0.5], "dependence": {"model": "one_factor_gaussian", "rho": 0.1}}),
+            422,
+            "/portfolio/loadings",
+        ),
+        (
+            "/v1/quantiles",
+            json!({"portfolio": {"groups": [{"size": 10, "probability": 0.1, "loading": -0.1}]}, "levels": [0.5], "dependence": {"model": "one_factor_gaussian", "rho": 0.1}}),
+            422,
+            "/portfolio/groups/0/loading",
         ),
         ("/v1/distribution", json!({"portfolio": portfolio(), "from": 5, "to": 2}), 422, "/to"),
         ("/v1/distribution", json!({"portfolio": portfolio(), "from": 0, "to": 1000}), 422, "/to"),
@@ -117,7 +149,7 @@ async fn bad_analytics_input_points_at_the_field() {
 }
 
 #[tokio::test]
-async fn contributions_rank_every_exposure_and_refuse_dependence() {
+async fn contributions_rank_every_exposure_and_answer_under_dependence() {
     let s = start(&[]).await;
     let body = json!({"portfolio": {"probabilities": [0.1, 0.0, 0.3, 1.0, 0.05], "families": [{"kind": "constant", "n": 3, "probability": 0.2}]},
         "threshold": 3, "rank_by": "impact"});
@@ -148,13 +180,23 @@ async fn contributions_rank_every_exposure_and_refuse_dependence() {
         .await;
     assert_eq!(st, 200);
     assert_eq!(v["contributions"].as_array().unwrap().len(), 1);
-    let (st, ct, v) = s
+    // Under the factor: every exposure ranked, estimated bounds, and a deprecated `nodes` still accepted.
+    let (st, _, v) = s
         .post_json(
             "/v1/contributions",
-            &json!({"portfolio": {"probabilities": [0.1]}, "threshold": 1,
-            "dependence": {"model": "one_factor_gaussian", "rho": 0.2}}),
+            &json!({"portfolio": {"probabilities": [0.1, 0.0, 0.3, 1.0], "loadings": [0.2, 0.2, 0.05, 0.3]}, "threshold": 2,
+            "dependence": {"model": "one_factor_gaussian", "rho": 0.2, "nodes": 64}}),
         )
         .await;
-    assert_problem(st, &ct, &v, 422, Some("/dependence"));
+    assert_eq!(st, 200, "{v}");
+    assert_eq!(v["exposures_ranked"], 4);
+    assert_eq!(v["tail_probability"]["bound_kind"], "estimated");
+    assert!(v["model"]["nodes_evaluated"][0].as_u64().unwrap() > 0, "{v}");
+    for r in v["contributions"].as_array().unwrap() {
+        assert!(
+            r["sensitivity"].as_f64().unwrap() >= 0.0 && r["detail"]["sensitivity"]["bound_kind"] == "estimated",
+            "{r}"
+        );
+    }
     s.shutdown().await.unwrap();
 }

@@ -26,14 +26,14 @@ async fn windows_over_the_memory_ceiling_are_refused_before_they_are_built() {
     s.shutdown().await.unwrap();
 }
 
-/// The factor model's components (one conditional model per node of both rules) and the contributions'
-/// per-exposure figures are counted too.
+/// The factor model's conditional models (one per worker thread at a time, beside the law's own) and the
+/// contributions' per-exposure figures are counted too.
 #[tokio::test]
 async fn factor_nodes_and_contribution_rows_count_against_the_ceiling() {
     let s = start(&["--max-request-memory", "67108864"]).await;
-    let family = json!({"families": [{"kind": "constant", "n": 300_000, "probability": 0.01}]});
-    let body = json!({"portfolio": family, "thresholds": [3000],
-                      "dependence": {"model": "one_factor_gaussian", "rho": 0.1, "nodes": 256}});
+    let family = json!({"families": [{"kind": "constant", "n": 3_000_000, "probability": 0.01}]});
+    let body = json!({"portfolio": family, "thresholds": [30_000],
+                      "dependence": {"model": "one_factor_gaussian", "rho": 0.1}});
     let (st, ct, v) = s.post_json("/v1/tail", &body).await;
     assert_problem(st, &ct, &v, 413, None);
     assert!(v["detail"].as_str().unwrap().contains("working data"), "{v}");

@@ -69,3 +69,21 @@ pub fn unbounded_counts(
         Err(Error::Invalid(bad))
     }
 }
+
+/// Check the factor model's quadrature tolerance, at its pointer: relative 0 or in [1e-13, 1), absolute finite
+/// and >= 0, not both 0.
+pub fn check_factor_tolerance(t: &super::dependence::FactorTolerance, at: &str, errs: &mut Vec<Violation>) {
+    if let Some(r) = t.relative {
+        if !(r == 0.0 || (r.is_finite() && (1e-13..1.0).contains(&r))) {
+            errs.push(Violation::new(format!("{at}/relative"), format!("must be 0 or in [1e-13, 1), got {r}")));
+        }
+    }
+    if let Some(a) = t.absolute {
+        if !(a.is_finite() && a >= 0.0) {
+            errs.push(Violation::new(format!("{at}/absolute"), format!("must be a finite number >= 0, got {a}")));
+        }
+    }
+    if t.relative == Some(0.0) && t.absolute == Some(0.0) {
+        errs.push(Violation::new(at, "relative and absolute cannot both be 0"));
+    }
+}

@@ -1,9 +1,20 @@
 //! The contributions question: which exposures drive a tail. For threshold k and every listed or generated
-//! exposure i: the sensitivity dP(S >= k)/dp_i = P(S without i = k - 1), the tail without it, and its impact
-//! p_i x sensitivity = P(S >= k) - P(S without i >= k) (formed as a product, so small impacts keep their
-//! accuracy); ranked, optionally only the top N. The per-exposure figures come from the exact engine's
-//! product tree (`engine::exact::leave_one_out`); exposures with p = 0 or 1 are not in the model, and their
-//! figures are those of S itself.
+//! exposure i: the sensitivity dP(S >= k)/dp_i, the tail without it P(S without i >= k), and its impact
+//! p_i x sensitivity; ranked, optionally only the top N. The per-exposure figures come from the exact engine's
+//! product tree (`engine::exact::leave_one_out`).
+//!
+//! Independent exposures: the sensitivity is P(S without i = k - 1) and the impact equals P(S >= k) - P(S
+//! without i >= k) (formed as a product, so small impacts keep their accuracy); exposures with p = 0 or 1 are
+//! not in the model, and their figures are those of S itself (S or S - 1).
+//!
+//! Under the one-factor model p_i(z) moves with p_i, so dP/dp_i = E[P(S_{-i} = k - 1 | Z) dp_i(Z)/dp_i], the
+//! conditional sensitivity averaged over the law of Z given the exposure's latent variable at its threshold
+//! (N(sqrt(rho_i) c_i, 1 - rho_i), c_i = Phi^-1(p_i)), and the tail without i is E[P(S_{-i} >= k | Z)]; both are
+//! integrated over the factor with the tree at every Gauss-Kronrod node (`factor`). The impact p_i x
+//! sensitivity is then a first-order share, no longer P(S >= k) minus the tail without i. An exposure with
+//! p = 0 or 1 and loading 0 is independent of the factor and its figures are those of S (or S - 1) averaged;
+//! with a positive loading its derivative is the limit where the factor given its latent variable goes to -inf
+//! (p = 0) or +inf (p = 1), taken at the end of the factor's range, +-37.
 
 use super::cost::{self, Footprint};
 use super::dependence::Dependence;
@@ -16,7 +27,7 @@ use crate::engine::exact::leaf::BLOCK;
 use crate::engine::exact::window::Window;
 use crate::engine::exact::{self, leave_one_out};
 use crate::engine::{Side, Value};
-use crate::portfolio::families::{expected_len, listed_probabilities};
+use crate::portfolio::families::{expected_len, listed_loadings, listed_probabilities};
 use crate::portfolio::stress::Stress;
 use crate::portfolio::{Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
@@ -47,7 +58,7 @@ pub struct ContributionsRequest {
     pub rank_by: RankBy,
     #[serde(default)]
     pub stress: Option<Stress>,
-    /// Only `independent` is served here: under a common factor the derivative in p_i also moves p_i(z).
+    /// Dependence between exposures; under the one-factor model the derivative in p_i also moves p_i(z).
     #[serde(default)]
     pub dependence: Option<Dependence>,
 }
@@ -57,11 +68,11 @@ pub struct ContributionOut {
     /// Position among `probabilities`, then the members of `families` in order.
     pub index: usize,
     pub probability: f64,
-    /// dP(S >= k)/dp_i = P(S without i = k - 1).
+    /// dP(S >= k)/dp_i (independent exposures: P(S without i = k - 1)).
     pub sensitivity: f64,
     /// P(S without i >= k).
     pub tail_without: f64,
-    /// p_i x sensitivity = P(S >= k) - tail_without.
+    /// p_i x sensitivity (independent exposures: = P(S >= k) - tail_without).
     pub impact: f64,
     /// The two values with logarithms and error bounds.
     pub detail: ContributionDetail,
@@ -101,22 +112,103 @@ const EVALUATIONS: f64 = 40.0;
 
 pub struct Contributions;
 
+/// Where exposure i's figures are: entry `Each(j)` of the per-exposure list (an exposure in the model), or
+/// entry `Fixed(j)` of the impossible-or-certain ones.
+#[derive(Clone, Copy)]
+enum Slot {
+    Each(usize),
+    Fixed(usize),
+}
+
+impl Contributions {
+    /// Rank first, then build only the rows kept (`top`): ranking needs 24 bytes per exposure, a row about
+    /// 450. `figures` gives an exposure's (sensitivity, tail without it) from its slot and probability.
+    fn respond(
+        req: &ContributionsRequest,
+        law: &Law,
+        stress: Option<Stress>,
+        tail: Value,
+        listed: &[f64],
+        figures: impl Fn(Slot, f64) -> (Value, Value),
+    ) -> ContributionsResponse {
+        let (mut each, mut fixed) = (0usize, 0usize);
+        let mut order: Vec<(f64, usize, Slot)> = listed
+            .iter()
+            .enumerate()
+            .map(|(index, &p)| {
+                let slot = if p <= 0.0 || p >= 1.0 {
+                    fixed += 1;
+                    Slot::Fixed(fixed - 1)
+                } else {
+                    each += 1;
+                    Slot::Each(each - 1)
+                };
+                let sensitivity = figures(slot, p).0.value;
+                let key = match req.rank_by {
+                    RankBy::Sensitivity => sensitivity,
+                    RankBy::Impact => p * sensitivity,
+                };
+                (key, index, slot)
+            })
+            .collect();
+        order.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
+        let ranked = order.len();
+        order.truncate(req.top.unwrap_or(ranked));
+        let rows = order
+            .iter()
+            .map(|&(_, index, slot)| {
+                let p = listed[index];
+                let (s, t) = figures(slot, p);
+                ContributionOut {
+                    index,
+                    probability: p,
+                    sensitivity: s.value,
+                    tail_without: t.value,
+                    impact: p * s.value,
+                    detail: ContributionDetail { sensitivity: s.into(), tail_without: t.into() },
+                }
+            })
+            .collect();
+        ContributionsResponse {
+            summary: Summary::of_law(law),
+            model: ModelOut::of(law, stress),
+            threshold: req.threshold,
+            tail_probability: tail.into(),
+            exposures_ranked: ranked,
+            contributions: rows,
+            base: None,
+            assumptions: assumptions(),
+        }
+    }
+
+    /// The figures under the one-factor model (`factor::Factor::contributions`).
+    fn under_factor(
+        req: &ContributionsRequest,
+        law: &Law,
+        stress: Option<Stress>,
+        listed: &[f64],
+    ) -> ContributionsResponse {
+        let f = law.factor().expect("a law under the factor");
+        let loads = listed_loadings(&req.portfolio, f.rho);
+        let fixed: Vec<(f64, f64)> =
+            listed.iter().zip(&loads).filter(|(&p, _)| p <= 0.0 || p >= 1.0).map(|(&p, &r)| (p, r)).collect();
+        let got = f.contributions(req.threshold, &fixed);
+        Self::respond(req, law, stress, got.tail, listed, |slot, _| match slot {
+            Slot::Each(j) => got.each[j],
+            Slot::Fixed(j) => got.fixed[j],
+        })
+    }
+}
+
 impl Analytic for Contributions {
     type Request = ContributionsRequest;
     type Answer = ContributionsResponse;
 
-    /// The dependence field is refused in `check`, so the scenario is always independent.
     fn inputs(req: &ContributionsRequest) -> Inputs<'_> {
-        Inputs { portfolio: &req.portfolio, stress: req.stress, dependence: None }
+        Inputs { portfolio: &req.portfolio, stress: req.stress, dependence: req.dependence }
     }
 
     fn check(req: &ContributionsRequest, _limits: &ServiceLimits, errs: &mut Vec<Violation>) {
-        if matches!(req.dependence, Some(Dependence::OneFactorGaussian { .. })) {
-            errs.push(Violation::new(
-                "/dependence",
-                "contributions are served for independent exposures only (under a common factor the derivative in p_i also moves every conditional p_i(z))",
-            ));
-        }
         if req.threshold > MAX_UNBOUNDED_COUNT {
             errs.push(Violation::new("/threshold", format!("must be at most {MAX_UNBOUNDED_COUNT}")));
         }
@@ -151,12 +243,14 @@ impl Analytic for Contributions {
         stress: Option<Stress>,
         _ctx: &Ctx,
     ) -> Result<ContributionsResponse, Error> {
-        let (model, moments) = law.single().expect("contributions are asked of an independent law");
         let mut listed = listed_probabilities(&req.portfolio);
         if let Some(s) = stress {
             listed.iter_mut().for_each(|p| *p = s.apply(*p));
         }
         let k = req.threshold;
+        let Some((model, moments)) = law.single() else {
+            return Ok(Self::under_factor(req, law, stress, &listed));
+        };
         let per = leave_one_out::contributions(model, moments, k);
         // Exposures that are impossible or certain are not in the model: S without them is S, or S - 1.
         let fixed = exact::evaluate(
@@ -172,64 +266,12 @@ impl Analytic for Contributions {
         .0;
         let (tail, point_below, point_at, tail_above) = (fixed[0], fixed[1], fixed[2], fixed[3]);
         let point_below = if k == 0 { Value::certain(0.0) } else { point_below };
-        // Rank first, then build the rows kept: the figures of exposure i are the model's next entry, or
-        // those of S itself for an impossible or certain exposure.
-        const IMPOSSIBLE: usize = usize::MAX;
-        const CERTAIN: usize = usize::MAX - 1;
-        let figures = |slot: usize| match slot {
-            IMPOSSIBLE => (point_below, tail),
-            CERTAIN => (point_at, tail_above),
-            i => (per[i].sensitivity, per[i].tail_without),
-        };
-        let mut next = 0usize;
-        let mut order: Vec<(f64, usize, usize)> = listed
-            .iter()
-            .enumerate()
-            .map(|(index, &p)| {
-                let slot = if p <= 0.0 {
-                    IMPOSSIBLE
-                } else if p >= 1.0 {
-                    CERTAIN
-                } else {
-                    next += 1;
-                    next - 1
-                };
-                let sensitivity = figures(slot).0.value;
-                let key = match req.rank_by {
-                    RankBy::Sensitivity => sensitivity,
-                    RankBy::Impact => p * sensitivity,
-                };
-                (key, index, slot)
-            })
-            .collect();
-        order.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
-        let ranked = order.len();
-        order.truncate(req.top.unwrap_or(ranked));
-        let rows: Vec<ContributionOut> = order
-            .iter()
-            .map(|&(_, index, slot)| {
-                let p = listed[index];
-                let (s, t) = figures(slot);
-                ContributionOut {
-                    index,
-                    probability: p,
-                    sensitivity: s.value,
-                    tail_without: t.value,
-                    impact: p * s.value,
-                    detail: ContributionDetail { sensitivity: s.into(), tail_without: t.into() },
-                }
-            })
-            .collect();
-        Ok(ContributionsResponse {
-            summary: Summary::of_law(law),
-            model: ModelOut::of(law, stress),
-            threshold: k,
-            tail_probability: tail.into(),
-            exposures_ranked: ranked,
-            contributions: rows,
-            base: None,
-            assumptions: assumptions(),
-        })
+        // Exposures that are impossible or certain are not in the model: S without them is S, or S - 1.
+        Ok(Self::respond(req, law, stress, tail, &listed, |slot, p| match slot {
+            Slot::Each(j) => (per[j].sensitivity, per[j].tail_without),
+            Slot::Fixed(_) if p <= 0.0 => (point_below, tail),
+            Slot::Fixed(_) => (point_at, tail_above),
+        }))
     }
 
     fn with_base(answer: &mut ContributionsResponse, base: ContributionsResponse) {

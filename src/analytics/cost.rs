@@ -57,10 +57,12 @@ pub fn model_bytes(model: &Model) -> f64 {
 /// The footprint under the scenario: the factor model keeps one conditional model per node of both rules
 /// and evaluates on every core at once; a stress keeps the base law and answers twice.
 pub fn under_scenario(mut f: Footprint, model: &Model, stressed: bool, dep: &Option<Dependence>) -> Footprint {
-    if let Some(Dependence::OneFactorGaussian { nodes, .. }) = dep {
+    let laws = if stressed { 2.0 } else { 1.0 };
+    if let Some(Dependence::OneFactorGaussian { .. }) = dep {
+        // The factor integration builds one conditional model per worker thread at a time (built, evaluated,
+        // dropped), each with its own exact windows; the law keeps its loadings and profile beside the model.
         let cores = std::thread::available_parallelism().map_or(1, |n| n.get()) as f64;
-        let laws = if stressed { 2.0 } else { 1.0 };
-        f.working += laws * 3.0 * *nodes as f64 * model_bytes(model);
+        f.working += laws * (cores + 1.0) * model_bytes(model);
         f.windows *= cores;
     }
     if stressed {
@@ -76,7 +78,7 @@ pub fn check(f: &Footprint, max_bytes: f64) -> Result<(), Error> {
         return Ok(());
     }
     Err(Error::TooLarge(format!(
-        "the request would hold about {:.0} MiB (exact windows {:.0} MiB, working data {:.0} MiB, answer {:.0} MiB), over the per-request memory ceiling of {:.0} MiB (see --max-request-memory); ask for fewer figures (e.g. `top` on contributions), fewer quadrature nodes, or split the portfolio's groups into fewer distinct ones",
+        "the request would hold about {:.0} MiB (exact windows {:.0} MiB, working data {:.0} MiB, answer {:.0} MiB), over the per-request memory ceiling of {:.0} MiB (see --max-request-memory); ask for fewer figures (e.g. `top` on contributions), a looser dependence tolerance, or split the portfolio's groups into fewer distinct ones",
         f.total() / MIB,
         f.windows / MIB,
         f.working / MIB,

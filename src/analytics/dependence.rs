@@ -2,20 +2,28 @@
 //! value", Risk 15 (2002); the large-portfolio limit is his "Probability of loss on loan portfolio", KMV 1987).
 //!
 //! Conditional on a standard normal factor Z, exposures are independent with
-//!   p_i(Z) = Phi((Phi^-1(p_i) - sqrt(rho) Z) / sqrt(1 - rho)),
+//!   p_i(Z) = Phi((Phi^-1(p_i) - sqrt(rho_i) Z) / sqrt(1 - rho_i)),
 //! so each exposure keeps its own probability on average (E p_i(Z) = p_i) while all of them move together
-//! with Z. The law of S is the mixture over Z, computed by Gauss-Hermite quadrature (`quadrature`): the
-//! conditional law at each node is an ordinary independent portfolio, so every method applies to it. Binomial
-//! groups move with the factor like their members; Poisson sources are taken as independent of the factor.
+//! with Z. The loading rho_i is the dependence model's `rho` unless the portfolio gives the exposure its own
+//! (`loadings`, a group's or a family's `loading`). Binomial groups move with the factor like their members;
+//! Poisson sources are taken as independent of the factor. The law of S is the mixture over Z, integrated by
+//! adaptive Gauss-Kronrod panels (`factor`): the conditional law at each node is an ordinary independent
+//! portfolio, so every method applies to it.
+//!
+//! This file holds the model: the wire form, the per-exposure constants of p_i(z), the conditional portfolio at
+//! a node, and a compressed profile of the conditional mean and variance that places the panels.
 
+use super::checks::check_factor_tolerance;
+use crate::engine::numerics::mixture::{Tol, LIMIT};
 use crate::engine::numerics::normal_law::{self, normal_quantile};
-use crate::portfolio::Model;
+use crate::portfolio::{Model, Violation};
 use serde::{Deserialize, Serialize};
+use std::collections::HashMap;
 use utoipa::ToSchema;
 
-/// Default and largest number of quadrature nodes.
-pub const DEFAULT_NODES: usize = 64;
-pub const MAX_NODES: usize = 256;
+/// Default quadrature tolerance under the factor: relative to the value, with an absolute floor.
+pub const DEFAULT_RELATIVE_TOLERANCE: f64 = 1e-7;
+pub const DEFAULT_ABSOLUTE_TOLERANCE: f64 = 1e-13;
 
 /// How exposures depend on each other.
 #[derive(Debug, Clone, Copy, PartialEq, Deserialize, Serialize, ToSchema)]
@@ -23,46 +31,158 @@ pub const MAX_NODES: usize = 256;
 pub enum Dependence {
     /// Mutually independent exposures (the default).
     Independent,
-    /// One common Gaussian factor with asset correlation `rho` in [0, 1); `nodes` Gauss-Hermite nodes (default
-    /// 64). The answer uses a rule with twice as many nodes and its error is estimated from the distance to
-    /// the `nodes` rule.
+    /// One common Gaussian factor with asset correlation `rho` in [0, 1) (the loading of every exposure that has
+    /// none of its own). The law is mixed over the factor by adaptive Gauss-Kronrod quadrature until the
+    /// embedded rules agree within `tolerance`.
     OneFactorGaussian {
         rho: f64,
-        #[serde(default = "default_nodes")]
-        nodes: usize,
+        /// Deprecated and ignored (it was the Gauss-Hermite node count); the quadrature now refines until it
+        /// meets `tolerance`. Accepted so that older requests keep working.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(deprecated)]
+        nodes: Option<u64>,
+        /// Quadrature tolerance over the factor; default relative 1e-7 with absolute 1e-13.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        tolerance: Option<FactorTolerance>,
     },
 }
 
-fn default_nodes() -> usize {
-    DEFAULT_NODES
+/// Refine the quadrature over the factor until its error estimate is at most max(absolute, relative x value)
+/// for every figure of the answer. Either field may be left out (its default then applies); `absolute: 0`
+/// asks for relative accuracy only, which far tails may need (and which costs more nodes).
+#[derive(Debug, Clone, Copy, PartialEq, Deserialize, Serialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct FactorTolerance {
+    /// In [1e-13, 1) or 0; default 1e-7.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schema(example = 1e-7)]
+    pub relative: Option<f64>,
+    /// At least 0; default 1e-13.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schema(example = 1e-13)]
+    pub absolute: Option<f64>,
 }
 
-/// The factor's per-exposure thresholds Phi^-1(p), computed once and reused at every node.
-pub struct Thresholds {
-    bernoulli: Vec<f64>,
-    binomial: Vec<f64>,
-}
+impl Dependence {
+    /// The one-factor model with loading rho and the default tolerance.
+    pub fn one_factor(rho: f64) -> Dependence {
+        Dependence::OneFactorGaussian { rho, nodes: None, tolerance: None }
+    }
 
-impl Thresholds {
-    pub fn of(model: &Model) -> Thresholds {
-        Thresholds {
-            bernoulli: model.bernoulli.iter().map(|&p| normal_quantile(p)).collect(),
-            binomial: model.binomials.iter().map(|b| normal_quantile(b.p)).collect(),
+    /// The one-factor model with loading rho and the given tolerance.
+    pub fn one_factor_with(rho: f64, relative: f64, absolute: f64) -> Dependence {
+        let tolerance = Some(FactorTolerance { relative: Some(relative), absolute: Some(absolute) });
+        Dependence::OneFactorGaussian { rho, nodes: None, tolerance }
+    }
+
+    /// The common loading, None when independent.
+    pub fn rho(&self) -> Option<f64> {
+        match *self {
+            Dependence::Independent => None,
+            Dependence::OneFactorGaussian { rho, .. } => Some(rho),
+        }
+    }
+
+    /// The quadrature tolerance (defaults filled in).
+    pub fn tolerance(&self) -> Tol {
+        let t = match *self {
+            Dependence::OneFactorGaussian { tolerance: Some(t), .. } => t,
+            _ => FactorTolerance { relative: None, absolute: None },
+        };
+        Tol {
+            rel: t.relative.unwrap_or(DEFAULT_RELATIVE_TOLERANCE),
+            abs: t.absolute.unwrap_or(DEFAULT_ABSOLUTE_TOLERANCE),
+        }
+    }
+
+    /// Check the fields (pointers under /dependence).
+    pub fn check(&self, errs: &mut Vec<Violation>) {
+        if let Dependence::OneFactorGaussian { rho, tolerance, .. } = self {
+            if !(rho.is_finite() && (0.0..1.0).contains(rho)) {
+                errs.push(Violation::new("/dependence/rho", format!("must be in [0, 1), got {rho}")));
+            }
+            if let Some(t) = tolerance {
+                check_factor_tolerance(t, "/dependence/tolerance", errs);
+            }
         }
     }
 }
 
+/// The constants of p_i(z) = Phi(alpha_i - beta_i z), alpha = Phi^-1(p) / sqrt(1 - rho), beta = sqrt(rho) /
+/// sqrt(1 - rho), for every Bernoulli exposure and every binomial group of a model, computed once and reused at
+/// every node.
+#[derive(Debug, Clone)]
+pub struct Loads {
+    pub alpha: Vec<f64>,
+    /// One beta for all Bernoulli exposures (one loading), or one each.
+    pub beta: Beta,
+    pub group_alpha: Vec<f64>,
+    pub group_beta: Vec<f64>,
+}
+
+#[derive(Debug, Clone)]
+pub enum Beta {
+    All(f64),
+    Each(Vec<f64>),
+}
+
+/// (alpha, beta) of an exposure with probability p and loading rho.
+pub fn constants(p: f64, rho: f64) -> (f64, f64) {
+    let b = (1.0 - rho).sqrt();
+    (normal_quantile(p) / b, rho.sqrt() / b)
+}
+
+impl Loads {
+    /// The constants of a model whose exposures carry their own loadings, or all take `rho`.
+    pub fn of(model: &Model, rho: f64) -> Loads {
+        let loaded = model.loaded();
+        let r = |i: usize, v: &Vec<f64>| if loaded { v[i] } else { rho };
+        let alpha = model.bernoulli.iter().enumerate().map(|(i, &p)| constants(p, r(i, &model.loadings)).0).collect();
+        let beta = if loaded {
+            Beta::Each(model.loadings.iter().map(|&x| constants(0.5, x).1).collect())
+        } else {
+            Beta::All(constants(0.5, rho).1)
+        };
+        let (group_alpha, group_beta) =
+            model.binomials.iter().enumerate().map(|(i, g)| constants(g.p, r(i, &model.group_loadings))).unzip();
+        Loads { alpha, beta, group_alpha, group_beta }
+    }
+
+    pub fn beta_of(&self, i: usize) -> f64 {
+        match &self.beta {
+            Beta::All(b) => *b,
+            Beta::Each(v) => v[i],
+        }
+    }
+
+    /// Whether every exposure ignores the factor (all loadings 0).
+    pub fn all_zero(&self) -> bool {
+        let bern = match &self.beta {
+            Beta::All(b) => *b == 0.0 || self.alpha.is_empty(),
+            Beta::Each(v) => v.iter().all(|&b| b == 0.0),
+        };
+        bern && self.group_beta.iter().all(|&b| b == 0.0)
+    }
+}
+
 /// The independent portfolio conditional on Z = z.
-pub fn conditional(model: &Model, th: &Thresholds, rho: f64, z: f64) -> Model {
-    let (a, b) = (rho.sqrt(), (1.0 - rho).sqrt());
-    let p_at = |c: f64| normal_law::cdf((c - a * z) / b);
+pub fn conditional(model: &Model, loads: &Loads, z: f64) -> Model {
     let mut m = Model { shift: model.shift, poisson: model.poisson, ..Model::default() };
     m.bernoulli.reserve(model.bernoulli.len());
-    for &c in &th.bernoulli {
-        m.push_bernoulli(p_at(c));
+    match &loads.beta {
+        Beta::All(b) => {
+            for &a in &loads.alpha {
+                m.push_bernoulli(normal_law::cdf(a - b * z));
+            }
+        }
+        Beta::Each(bs) => {
+            for (&a, &b) in loads.alpha.iter().zip(bs) {
+                m.push_bernoulli(normal_law::cdf(a - b * z));
+            }
+        }
     }
-    for (g, &c) in model.binomials.iter().zip(&th.binomial) {
-        m.push_group(g.size, p_at(c));
+    for ((g, &a), &b) in model.binomials.iter().zip(&loads.group_alpha).zip(&loads.group_beta) {
+        m.push_group(g.size, normal_law::cdf(a - b * z));
     }
     m.exposures = model.exposures;
     m
@@ -80,25 +200,132 @@ pub fn large_portfolio_cdf(x: f64, p: f64, rho: f64) -> f64 {
     normal_law::cdf(((1.0 - rho).sqrt() * normal_quantile(x) - normal_quantile(p)) / rho.sqrt())
 }
 
+/// The conditional mean and variance as functions of z on a compressed copy of the portfolio: groups as they
+/// are, listed exposures as they are up to `EXACT_PROFILE` of them and binned by (alpha, beta) beyond (bins of
+/// 1/16 in alpha and 1/32 in beta, each at its members' mean constants). Only the panels' placement and first
+/// guesses use it, never a value.
+#[derive(Debug, Clone)]
+pub struct Profile {
+    /// (count, alpha, beta)
+    buckets: Vec<(f64, f64, f64)>,
+    /// Shift plus the Poisson rate, and the Poisson rate (its variance).
+    constant_mean: f64,
+    constant_var: f64,
+}
+
+const EXACT_PROFILE: usize = 512;
+
+impl Profile {
+    pub fn of(model: &Model, loads: &Loads) -> Profile {
+        let mut buckets: Vec<(f64, f64, f64)> = Vec::new();
+        if model.bernoulli.len() <= EXACT_PROFILE {
+            for (i, &a) in loads.alpha.iter().enumerate() {
+                buckets.push((1.0, a, loads.beta_of(i)));
+            }
+        } else {
+            let mut bins: HashMap<(i64, i64), (f64, f64, f64)> = HashMap::new();
+            for (i, &a) in loads.alpha.iter().enumerate() {
+                let b = loads.beta_of(i);
+                let e = bins.entry(((a * 16.0).floor() as i64, (b * 32.0).floor() as i64)).or_insert((0.0, 0.0, 0.0));
+                e.0 += 1.0;
+                e.1 += a;
+                e.2 += b;
+            }
+            let mut v: Vec<_> = bins.into_iter().collect();
+            v.sort_by_key(|(k, _)| *k);
+            buckets.extend(v.into_iter().map(|(_, (n, a, b))| (n, a / n, b / n)));
+        }
+        for ((g, &a), &b) in model.binomials.iter().zip(&loads.group_alpha).zip(&loads.group_beta) {
+            buckets.push((g.size as f64, a, b));
+        }
+        Profile { buckets, constant_mean: model.shift as f64 + model.poisson, constant_var: model.poisson }
+    }
+
+    /// (mean, variance, d mean / dz) of the conditional law at z.
+    pub fn at(&self, z: f64) -> (f64, f64, f64) {
+        let (mut m, mut v, mut d) = (self.constant_mean, self.constant_var, 0.0);
+        for &(n, a, b) in &self.buckets {
+            let u = a - b * z;
+            let p = normal_law::cdf(u);
+            m += n * p;
+            v += n * p * (1.0 - p);
+            d -= n * b * (normal_law::ln_pdf(u)).exp();
+        }
+        (m, v, d)
+    }
+
+    /// The z in (-LIMIT, LIMIT) where the conditional mean equals x (it decreases in z), with the width of the
+    /// conditional law's step there, sd / |d mean / dz|; None when x is not crossed inside the range.
+    pub fn crossing(&self, x: f64) -> Option<(f64, f64)> {
+        let (mut lo, mut hi) = (-LIMIT, LIMIT);
+        if self.at(lo).0 <= x || self.at(hi).0 >= x {
+            return None;
+        }
+        // Safeguarded Newton: bisection whenever the step leaves the bracket.
+        let mut z = 0.0f64.clamp(lo, hi);
+        for _ in 0..100 {
+            let (m, _, d) = self.at(z);
+            if m > x {
+                lo = z;
+            } else {
+                hi = z;
+            }
+            let newton = if d < 0.0 { z - (m - x) / d } else { f64::NAN };
+            let next = if newton > lo && newton < hi { newton } else { 0.5 * (lo + hi) };
+            if (next - z).abs() <= 1e-10 * (1.0 + z.abs()) || hi - lo <= 1e-12 {
+                z = next;
+                break;
+            }
+            z = next;
+        }
+        let (_, v, d) = self.at(z);
+        let w = if d < 0.0 { v.sqrt().max(0.5) / -d } else { f64::INFINITY };
+        Some((z, w))
+    }
+
+    /// The large-pool guess of a quantile: m(z) at the factor's (1 - level) quantile (exact as the pool grows,
+    /// since S / n tends to the conditional mean's fraction).
+    pub fn quantile_guess(&self, level: f64) -> f64 {
+        self.at(normal_quantile(1.0 - level).clamp(-LIMIT, LIMIT)).0
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::engine::numerics::quadrature::Rule;
 
     /// The conditional probabilities average back to p over the factor (E p_i(Z) = p_i).
     #[test]
     fn conditional_probabilities_average_to_the_unconditional_ones() {
-        let rule = crate::engine::numerics::quadrature::Rule::new(96);
+        let rule = Rule::new(96);
         for p in [0.001, 0.05, 0.4] {
             let m = Model::from_parts(&[p], &[], 0.0);
-            let th = Thresholds::of(&m);
             for rho in [0.01, 0.2, 0.6] {
+                let loads = Loads::of(&m, rho);
                 // The conditional mean of the single exposure (p(z) may round to 0 or 1 at far nodes).
                 let avg = rule.expect(|z| {
-                    let c = conditional(&m, &th, rho, z);
+                    let c = conditional(&m, &loads, z);
                     c.shift as f64 + c.bernoulli.first().copied().unwrap_or(0.0)
                 });
                 assert!((avg / p - 1.0).abs() < 1e-6, "p = {p}, rho = {rho}: {avg}");
             }
         }
+    }
+
+    /// The profile's crossing of a homogeneous group is Vasicek's closed form z* = (Phi^-1(p) - sqrt(1 - rho)
+    /// Phi^-1(x / n)) / sqrt(rho).
+    #[test]
+    fn crossings_of_a_homogeneous_group_are_closed_form() {
+        let (n, p, rho) = (10_000u64, 0.01, 0.12);
+        let m = Model::from_parts(&[], &[(n, p)], 0.0);
+        let prof = Profile::of(&m, &Loads::of(&m, rho));
+        for x in [10.0, 100.0, 900.0] {
+            let (z, w) = prof.crossing(x).unwrap();
+            let want = (normal_quantile(p) - (1.0 - rho).sqrt() * normal_quantile(x / n as f64)) / rho.sqrt();
+            assert!((z - want).abs() < 1e-8, "x = {x}: {z} vs {want}");
+            assert!(w > 0.0 && w < 1.0);
+        }
+        assert!(prof.crossing(n as f64 + 1.0).is_none());
     }
 }

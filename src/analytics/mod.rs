@@ -23,6 +23,7 @@ pub mod cost;
 pub mod dependence;
 pub mod distribution;
 pub mod error;
+pub mod factor;
 pub mod law;
 pub mod layers;
 pub mod pipeline;

@@ -71,7 +71,7 @@ fn steps<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel)
     A::check(req, limits, &mut errs);
     let inputs = A::inputs(req);
     scenario::check(&inputs.stress, &inputs.dependence, &mut errs);
-    let model = scenario::model(inputs.portfolio, &inputs.stress, limits, errs)?;
+    let model = scenario::model(inputs.portfolio, &inputs.stress, &inputs.dependence, limits, errs)?;
     A::check_model(req, &model)?;
     if let Some(evaluations) = A::evaluations(req) {
         let factor = scenario::work_factor(&inputs.stress, &inputs.dependence);
@@ -82,7 +82,7 @@ fn steps<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel)
         &cost::under_scenario(footprint, &model, inputs.stress.is_some(), &inputs.dependence),
         limits.max_request_bytes,
     )?;
-    let laws = scenario::build(model, inputs.stress, inputs.dependence);
+    let laws = scenario::build(model, inputs.stress, inputs.dependence, cancel);
     let ctx = Ctx { limits, cancel };
     cancel.check()?;
     let mut out = A::answer(req, &laws.law, laws.stress, &ctx)?;

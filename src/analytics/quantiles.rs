@@ -2,7 +2,7 @@
 //! a client sees the bracket, and for an approximate method the range of counts consistent with its bound.
 //!
 //! How. P(S <= k) is monotone in k, so each answer is an integer search: a first guess from the normal law
-//! with the Cornish-Fisher skewness term (a normal mixture under dependence), then galloping outwards in
+//! with the Cornish-Fisher skewness term (the large-pool limit under dependence), then galloping outwards in
 //! doubling steps until the level is bracketed, then bisection. Every probe is one evaluation of the chosen
 //! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
 //! count itself and the two ends of the range that the error bound allows).
@@ -122,33 +122,16 @@ impl Cdf<'_> {
     }
 }
 
-/// First guess: the smallest k whose continuity-corrected normal (Cornish-Fisher) cdf reaches the level,
-/// mixed over the factor under dependence.
+/// First guess: the smallest k whose continuity-corrected normal (Cornish-Fisher) cdf reaches the level; under
+/// the factor, the large-pool limit (the conditional mean at the factor's quantile).
 fn guess(law: &Law, level: f64) -> u64 {
-    let comps = law.component_moments();
-    let skew = law.moments().skewness();
+    if let Some(g) = law.quantile_guess(level) {
+        return g;
+    }
+    let m = law.moments();
     let z = normal_law::normal_quantile(level);
-    let cf = z + (z * z - 1.0) * skew / 6.0;
-    if comps.len() == 1 {
-        let (_, mean, sd) = comps[0];
-        return (mean + sd * cf - 0.5).ceil().max(0.0) as u64;
-    }
-    let f = |k: f64| -> f64 {
-        comps
-            .iter()
-            .map(|&(w, m, s)| w * if s > 0.0 { normal_law::cdf((k + 0.5 - m) / s) } else { (k >= m) as u8 as f64 })
-            .sum()
-    };
-    let (mut lo, mut hi) = (0.0f64, comps.iter().map(|c| c.1 + 40.0 * c.2 + 1.0).fold(1.0, f64::max));
-    for _ in 0..200 {
-        let mid = 0.5 * (lo + hi);
-        if f(mid.floor()) >= level {
-            hi = mid;
-        } else {
-            lo = mid;
-        }
-    }
-    hi.floor() as u64
+    let cf = z + (z * z - 1.0) * m.skewness() / 6.0;
+    (m.mean + m.sd() * cf - 0.5).ceil().max(0.0) as u64
 }
 
 pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolerance>) -> Vec<Quantile> {

@@ -89,7 +89,8 @@ mod tests {
         let queries: Vec<(u64, Side)> = ks.iter().map(|&k| (k, Side::Lower)).collect();
         for (e, &k) in Normal.estimate(&prep, &queries).iter().zip(&ks) {
             let closed = phi.cdf(k as f64 + 0.5);
-            assert!((e.probability - closed).abs() < 1e-13, "k={k}: {} vs {closed}", e.probability);
+            // statrs' normal cdf goes through its erfc, off by up to 1e-10 relative (normal_law uses libm's).
+            assert!((e.probability - closed).abs() < 1e-10 * closed, "k={k}: {} vs {closed}", e.probability);
             assert!((e.probability - bin.cdf(k)).abs() <= e.error_bound, "k={k}");
             assert_eq!(e.bound_kind, BoundKind::Rigorous);
         }

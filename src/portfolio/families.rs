@@ -9,7 +9,7 @@ use super::spec::FamilySpec;
 pub fn expected_len(f: &FamilySpec) -> u64 {
     match f {
         FamilySpec::Constant { n, .. }
-        | FamilySpec::Harmonic { n }
+        | FamilySpec::Harmonic { n, .. }
         | FamilySpec::Ewens { n, .. }
         | FamilySpec::Geometric { n, .. }
         | FamilySpec::Linear { n, .. } => *n,
@@ -22,10 +22,10 @@ pub fn expected_len(f: &FamilySpec) -> u64 {
 pub fn expand(f: &FamilySpec, mut sink: impl FnMut(f64)) {
     let clamp = |p: f64| p.clamp(0.0, 1.0);
     match *f {
-        FamilySpec::Constant { n, probability } => (0..n).for_each(|_| sink(probability)),
-        FamilySpec::Harmonic { n } => (1..=n).for_each(|k| sink(1.0 / k as f64)),
-        FamilySpec::Ewens { n, theta } => (1..=n).for_each(|k| sink(clamp(theta / (theta + (k - 1) as f64)))),
-        FamilySpec::Geometric { n, first, ratio } => {
+        FamilySpec::Constant { n, probability, .. } => (0..n).for_each(|_| sink(probability)),
+        FamilySpec::Harmonic { n, .. } => (1..=n).for_each(|k| sink(1.0 / k as f64)),
+        FamilySpec::Ewens { n, theta, .. } => (1..=n).for_each(|k| sink(clamp(theta / (theta + (k - 1) as f64)))),
+        FamilySpec::Geometric { n, first, ratio, .. } => {
             // Powers by exp/ln rather than repeated multiplication: the error does not grow with k.
             let ln_ratio = ratio.ln();
             for k in 0..n {
@@ -39,7 +39,7 @@ pub fn expand(f: &FamilySpec, mut sink: impl FnMut(f64)) {
                 sink(clamp(p));
             }
         }
-        FamilySpec::Linear { n, first, last } => {
+        FamilySpec::Linear { n, first, last, .. } => {
             if n <= 1 {
                 // n = 0 is an empty family (and must not reach n - 1 below).
                 if n == 1 {
@@ -54,7 +54,7 @@ pub fn expand(f: &FamilySpec, mut sink: impl FnMut(f64)) {
                 sink(clamp(p));
             }
         }
-        FamilySpec::Logistic { ref scores, intercept, slope } => {
+        FamilySpec::Logistic { ref scores, intercept, slope, .. } => {
             for &s in scores {
                 let x = intercept + slope * s;
                 // Two branches so that exp never overflows and tiny probabilities keep their relative accuracy.
@@ -77,4 +77,15 @@ pub fn listed_probabilities(spec: &super::spec::PortfolioSpec) -> Vec<f64> {
         expand(f, |p| listed.push(p));
     }
     listed
+}
+
+/// The listed exposures' factor loadings in the same order, `default` where the client gave none.
+pub fn listed_loadings(spec: &super::spec::PortfolioSpec, default: f64) -> Vec<f64> {
+    let mut out: Vec<f64> =
+        if spec.loadings.is_empty() { vec![default; spec.probabilities.len()] } else { spec.loadings.clone() };
+    for f in &spec.families {
+        let r = f.loading().unwrap_or(default);
+        out.extend(std::iter::repeat_n(r, expected_len(f) as usize));
+    }
+    out
 }

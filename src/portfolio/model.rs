@@ -21,10 +21,32 @@ pub struct Model {
     pub poisson: f64,
     /// Exposures as the client counted them, including p = 0 and p = 1 ones.
     pub exposures: u64,
+    /// Factor loadings (the one-factor model's rho_i) parallel to `bernoulli` and to `binomials`, when the
+    /// client gave any under a dependence model; both empty when every exposure takes the model's one rho.
+    pub loadings: Vec<f64>,
+    pub group_loadings: Vec<f64>,
 }
 
 impl Model {
     /// Build from plain parts, normalising p = 0 and p = 1. Inputs are assumed validated.
+    /// [`Model::from_parts`] with a factor loading for every listed exposure and every group (size, p, loading).
+    pub fn from_parts_loaded(
+        probabilities: &[f64],
+        loadings: &[f64],
+        groups: &[(u64, f64, f64)],
+        poisson: f64,
+    ) -> Model {
+        assert_eq!(probabilities.len(), loadings.len(), "one loading per probability");
+        let mut m = Model { poisson, ..Model::default() };
+        for (&p, &r) in probabilities.iter().zip(loadings) {
+            m.push_loaded(p, r);
+        }
+        for &(size, p, r) in groups {
+            m.push_group_loaded(size, p, r);
+        }
+        m
+    }
+
     pub fn from_parts(probabilities: &[f64], groups: &[(u64, f64)], poisson: f64) -> Model {
         let mut m = Model { poisson, ..Model::default() };
         for &p in probabilities {
@@ -43,6 +65,32 @@ impl Model {
         } else if p > 0.0 {
             self.bernoulli.push(p);
         }
+    }
+
+    /// [`Model::push_bernoulli`] with the exposure's factor loading (kept only if the exposure is random).
+    pub fn push_loaded(&mut self, p: f64, loading: f64) {
+        let n = self.bernoulli.len();
+        self.push_bernoulli(p);
+        if self.bernoulli.len() > n {
+            self.loadings.push(loading);
+        }
+    }
+
+    /// [`Model::push_group`] with the group's factor loading.
+    pub fn push_group_loaded(&mut self, size: u64, p: f64, loading: f64) {
+        let (n, g) = (self.bernoulli.len(), self.binomials.len());
+        self.push_group(size, p);
+        if self.bernoulli.len() > n {
+            self.loadings.push(loading);
+        }
+        if self.binomials.len() > g {
+            self.group_loadings.push(loading);
+        }
+    }
+
+    /// Whether the model carries its own factor loadings (then parallel to `bernoulli` and `binomials`).
+    pub fn loaded(&self) -> bool {
+        !self.loadings.is_empty() || !self.group_loadings.is_empty()
     }
 
     pub fn push_group(&mut self, size: u64, p: f64) {

@@ -3,7 +3,7 @@
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
 
-/// A portfolio of independent exposures. The count S is the sum of all parts.
+/// A portfolio of exposures, independent unless a dependence model is named. The count S is the sum of all parts.
 #[derive(Debug, Clone, Default, Deserialize, Serialize, ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct PortfolioSpec {
@@ -11,6 +11,12 @@ pub struct PortfolioSpec {
     #[serde(default)]
     #[schema(example = json!([0.01, 0.02, 0.15]))]
     pub probabilities: Vec<f64>,
+    /// Factor loadings in [0, 1), one per entry of `probabilities` (used only under a `dependence` model; each
+    /// exposure's rho_i in p_i(z) = Phi((Phi^-1(p_i) - sqrt(rho_i) z) / sqrt(1 - rho_i))). Absent: every listed
+    /// exposure takes the dependence model's `rho`.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    #[schema(example = json!([0.12, 0.2, 0.05]))]
+    pub loadings: Vec<f64>,
     /// Blocks of identical exposures (a binomial part each).
     #[serde(default)]
     pub groups: Vec<GroupSpec>,
@@ -30,22 +36,72 @@ pub struct GroupSpec {
     pub size: u64,
     #[schema(example = 0.004)]
     pub probability: f64,
+    /// The group's factor loading in [0, 1) under a dependence model (default: the model's `rho`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub loading: Option<f64>,
 }
 
-/// A generated sequence of probabilities p_1..p_n.
+/// A generated sequence of probabilities p_1..p_n. Every kind takes an optional `loading` in [0, 1): the
+/// factor loading of all its members under a dependence model (default: the model's `rho`).
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
 #[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
 pub enum FamilySpec {
     /// n exposures with the same probability.
-    Constant { n: u64, probability: f64 },
+    Constant {
+        n: u64,
+        probability: f64,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        loading: Option<f64>,
+    },
     /// p_k = 1/k for k = 1..n (the number of cycles of a uniform random permutation of n items).
-    Harmonic { n: u64 },
+    Harmonic {
+        n: u64,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        loading: Option<f64>,
+    },
     /// p_k = theta / (theta + k - 1) for k = 1..n, theta > 0.
-    Ewens { n: u64, theta: f64 },
+    Ewens {
+        n: u64,
+        theta: f64,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        loading: Option<f64>,
+    },
     /// p_k = first * ratio^(k-1) for k = 1..n.
-    Geometric { n: u64, first: f64, ratio: f64 },
+    Geometric {
+        n: u64,
+        first: f64,
+        ratio: f64,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        loading: Option<f64>,
+    },
     /// n probabilities evenly spaced from `first` to `last` (inclusive).
-    Linear { n: u64, first: f64, last: f64 },
+    Linear {
+        n: u64,
+        first: f64,
+        last: f64,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        loading: Option<f64>,
+    },
     /// p = 1 / (1 + exp(-(intercept + slope * score))) for each score.
-    Logistic { scores: Vec<f64>, intercept: f64, slope: f64 },
+    Logistic {
+        scores: Vec<f64>,
+        intercept: f64,
+        slope: f64,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        loading: Option<f64>,
+    },
+}
+
+impl FamilySpec {
+    /// The members' factor loading, if the family names one.
+    pub fn loading(&self) -> Option<f64> {
+        match *self {
+            FamilySpec::Constant { loading, .. }
+            | FamilySpec::Harmonic { loading, .. }
+            | FamilySpec::Ewens { loading, .. }
+            | FamilySpec::Geometric { loading, .. }
+            | FamilySpec::Linear { loading, .. }
+            | FamilySpec::Logistic { loading, .. } => loading,
+        }
+    }
 }

@@ -45,11 +45,21 @@ impl Stress {
 pub fn stressed(model: &Model, s: &Stress) -> Model {
     let mut m = Model { shift: model.shift, poisson: model.poisson * s.factor(), ..Model::default() };
     m.bernoulli.reserve(model.bernoulli.len());
-    for &p in &model.bernoulli {
-        m.push_bernoulli(s.apply(p));
-    }
-    for b in &model.binomials {
-        m.push_group(b.size, s.apply(b.p));
+    if model.loaded() {
+        // Factor loadings travel with their exposures (an exposure made certain leaves with its loading).
+        for (&p, &r) in model.bernoulli.iter().zip(&model.loadings) {
+            m.push_loaded(s.apply(p), r);
+        }
+        for (b, &r) in model.binomials.iter().zip(&model.group_loadings) {
+            m.push_group_loaded(b.size, s.apply(b.p), r);
+        }
+    } else {
+        for &p in &model.bernoulli {
+            m.push_bernoulli(s.apply(p));
+        }
+        for b in &model.binomials {
+            m.push_group(b.size, s.apply(b.p));
+        }
     }
     // Counted once above for each random exposure; impossible and certain ones keep their count.
     m.exposures = model.exposures;

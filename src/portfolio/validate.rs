@@ -46,14 +46,53 @@ fn probability_ok(p: f64) -> bool {
     p.is_finite() && (0.0..=1.0).contains(&p)
 }
 
-/// Check `spec` (found at `base`, e.g. "/portfolio") and build the model.
+/// A factor loading: the share rho of an exposure's latent variable that is the common factor, in [0, 1).
+pub fn loading_ok(r: f64) -> bool {
+    r.is_finite() && (0.0..1.0).contains(&r)
+}
+
+fn loading_violation(at: String, r: f64) -> Violation {
+    Violation::new(at, format!("must be a factor loading in [0, 1), got {r}"))
+}
+
+/// Check `spec` (found at `base`, e.g. "/portfolio") and build the model, ignoring factor loadings (they are
+/// checked all the same).
 pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<Model, Vec<Violation>> {
+    build_model_with(spec, base, limits, None)
+}
+
+/// [`build_model`] under a dependence model whose rho is `default_loading`: when the client gave any factor
+/// loading, every random exposure of the model carries its own (the default where none was given).
+pub fn build_model_with(
+    spec: &PortfolioSpec,
+    base: &str,
+    limits: &Limits,
+    default_loading: Option<f64>,
+) -> Result<Model, Vec<Violation>> {
     let mut errs = Vec::new();
     let push = |errs: &mut Vec<Violation>, v: Violation| {
         if errs.len() < MAX_REPORTED {
             errs.push(v)
         }
     };
+    if !spec.loadings.is_empty() && spec.loadings.len() != spec.probabilities.len() {
+        push(
+            &mut errs,
+            Violation::new(
+                format!("{base}/loadings"),
+                format!(
+                    "must hold one loading per entry of probabilities ({}), got {}",
+                    spec.probabilities.len(),
+                    spec.loadings.len()
+                ),
+            ),
+        );
+    }
+    for (i, &r) in spec.loadings.iter().enumerate() {
+        if !loading_ok(r) {
+            push(&mut errs, loading_violation(format!("{base}/loadings/{i}"), r));
+        }
+    }
     for (i, &p) in spec.probabilities.iter().enumerate() {
         if !probability_ok(p) {
             push(
@@ -76,6 +115,9 @@ pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<
                     format!("must be a probability in [0, 1], got {}", g.probability),
                 ),
             );
+        }
+        if let Some(r) = g.loading.filter(|&r| !loading_ok(r)) {
+            push(&mut errs, loading_violation(format!("{base}/groups/{i}/loading"), r));
         }
         total = total.saturating_add(g.size);
     }
@@ -104,6 +146,9 @@ pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<
         for v in check_family(f, &at) {
             push(&mut errs, v);
         }
+        if let Some(r) = f.loading().filter(|&r| !loading_ok(r)) {
+            push(&mut errs, loading_violation(format!("{at}/loading"), r));
+        }
         let len = expected_len(f);
         listed = listed.saturating_add(len);
         total = total.saturating_add(len);
@@ -131,14 +176,34 @@ pub fn build_model(spec: &PortfolioSpec, base: &str, limits: &Limits) -> Result<
     }
     let mut model = Model { poisson: rate, ..Model::default() };
     model.bernoulli.reserve(listed as usize);
-    for &p in &spec.probabilities {
-        model.push_bernoulli(p);
-    }
-    for f in &spec.families {
-        expand(f, |p| model.push_bernoulli(p));
-    }
-    for g in &spec.groups {
-        model.push_group(g.size, g.probability);
+    let explicit = !spec.loadings.is_empty()
+        || spec.groups.iter().any(|g| g.loading.is_some())
+        || spec.families.iter().any(|f| f.loading().is_some());
+    match default_loading {
+        Some(rho) if explicit => {
+            model.loadings.reserve(listed as usize);
+            for (i, &p) in spec.probabilities.iter().enumerate() {
+                model.push_loaded(p, spec.loadings.get(i).copied().unwrap_or(rho));
+            }
+            for f in &spec.families {
+                let r = f.loading().unwrap_or(rho);
+                expand(f, |p| model.push_loaded(p, r));
+            }
+            for g in &spec.groups {
+                model.push_group_loaded(g.size, g.probability, g.loading.unwrap_or(rho));
+            }
+        }
+        _ => {
+            for &p in &spec.probabilities {
+                model.push_bernoulli(p);
+            }
+            for f in &spec.families {
+                expand(f, |p| model.push_bernoulli(p));
+            }
+            for g in &spec.groups {
+                model.push_group(g.size, g.probability);
+            }
+        }
     }
     Ok(model)
 }
@@ -171,7 +236,7 @@ fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {
             prob("first", first);
             prob("last", last);
         }
-        FamilySpec::Logistic { ref scores, intercept, slope } => {
+        FamilySpec::Logistic { ref scores, intercept, slope, .. } => {
             if !intercept.is_finite() {
                 v.push(Violation::new(format!("{at}/intercept"), "must be finite"));
             }

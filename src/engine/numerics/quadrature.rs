@@ -167,8 +167,7 @@ mod tests {
         let want = crate::engine::numerics::normal_law::cdf(a / (1.0 + b * b).sqrt());
         let err =
             |n: usize| (Rule::new(n).expect(|z| crate::engine::numerics::normal_law::cdf(a + b * z)) - want).abs();
-        // Measured: 3.5e-12 at 64 nodes; the larger rule must do better (the error estimate relies on that).
-        assert!(err(64) < 1e-11, "{}", err(64));
-        assert!(err(96) < err(64), "{} vs {}", err(96), err(64));
+        // Measured (libm's erfc): 0 at 64 nodes, 2.8e-17 at 96; a smooth integrand converges to rounding.
+        assert!(err(64) < 1e-15 && err(96) < 1e-15, "{} {}", err(64), err(96));
     }
 }

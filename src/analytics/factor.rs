@@ -1,0 +1,757 @@
+//! The law under the one-factor model: every figure the analytics ask (tail probabilities, expected layers,
+//! an approximation's estimates, moments, contributions) as an integral over the factor Z of the conditional
+//! portfolio's figure, by adaptive Gauss-Kronrod panels (`engine::numerics::mixture`).
+//!
+//! Where the panels go. Given Z = z the count has conditional mean m(z) (decreasing in z) and sd s(z); a tail
+//! at k moves from near 1 to near 0 as m(z) crosses k, over a width w = s / |m'| in z that shrinks like
+//! 1/sqrt(n) for a large pool. So each count asked gets breakpoints at its crossing z*(k) and at z* +- 3w and
+//! +- 7w (from a compressed profile of the portfolio, `dependence::Profile`); many counts whose crossings
+//! overlap (a distribution, a layer) share one run of breakpoints about 3w apart, panels sized by the
+//! conditional sd. Outside z* +- 7w a tail is within 1e-12 of 0 or 1 and the monotone bracket settles it.
+//!
+//! At a node. One conditional model is built (O(n) normal cdfs), its moments give a Bernstein bound (Bernstein
+//! 1924; Boucheron, Lugosi and Massart 2013, Thm 2.10) for every figure asked, and the figures whose bound is
+//! below 1e-6 of the absolute tolerance are taken as that bound (value half of it, error half of it) without
+//! the exact engine; the rest come from one call of the exact engine for all of them (nearby thresholds share
+//! a tilted law). The model is then dropped: at most one per worker thread is alive.
+//!
+//! What is reported. The value is the sum of the panels' estimates; its bound adds the quadrature's error
+//! estimate (which refinement drives below max(absolute, relative x value)), the truncated mass, and the
+//! node values' own bounds integrated; it is an estimate (bound kind `estimated`), covered in the tests against
+//! fixtures/reference/factor.json (mpmath at 40 digits) and against an independent Gauss-Legendre reference on
+//! thousands of random small pools.
+
+use super::cancel::Cancel;
+use super::dependence::{conditional, Loads, Profile};
+use crate::engine::exact::{self, leave_one_out};
+use crate::engine::numerics::float::{up, U};
+use crate::engine::numerics::mixture::{
+    self, gk15, normal_mass, qk15, Integral, Options, Outcome, Shape, Spec, Tol, LIMIT,
+};
+use crate::engine::numerics::moments::Moments;
+use crate::engine::numerics::normal_law;
+use crate::engine::{BoundKind, MethodId, Prepared, Side, Tolerance, Value};
+use crate::portfolio::Model;
+use std::collections::HashMap;
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::OnceLock;
+
+/// Most nodes one integration evaluates; past it the answer carries the errors it has.
+pub const MAX_NODES: usize = 6000;
+
+/// Most distinct counts integrated together; a larger set (a long distribution table) is cut into runs of
+/// consecutive counts, each with its own panels, so that memory stays O(counts x panels) per run.
+const CHUNK: usize = 256;
+
+/// Nearby thresholds share a tilted law at a node within this many tilted sd (`exact::evaluate_reach`).
+const REACH: f64 = 8.0;
+
+/// A figure at a node is taken from its Bernstein bound when the bound is below this share of the absolute
+/// tolerance.
+const PIN_SHARE: f64 = 1e-6;
+
+/// Breakpoints either side of a crossing, in steps of its width.
+const NEAR: f64 = 3.0;
+const FAR: f64 = 7.0;
+
+/// A coarse grid for integrands without a sharp step (small pools, approximations, moments).
+const COARSE: [f64; 11] = [-12.0, -8.0, -5.0, -3.0, -1.5, 0.0, 1.5, 3.0, 5.0, 8.0, 12.0];
+
+pub struct Factor {
+    pub model: Model,
+    pub loads: Loads,
+    pub profile: Profile,
+    pub tol: Tol,
+    /// The loading of exposures without their own.
+    pub rho: f64,
+    /// The unconditional mean (E m(Z) = the independent mean, since E p_i(Z) = p_i).
+    mean: f64,
+    moments: OnceLock<Moments>,
+    nodes: AtomicUsize,
+    gauss: AtomicUsize,
+    cancel: Cancel,
+    parallel: bool,
+}
+
+/// Bernstein's bound on P(S - ES >= x) (and on P(ES - S >= x)) for a sum of independent parts each within 1
+/// of its mean (Bernoulli and binomial exposures; the Poisson part as their limit), variance v.
+fn bernstein(x: f64, v: f64) -> f64 {
+    if x <= 0.0 {
+        1.0
+    } else {
+        (-x * x / (2.0 * (v + x / 3.0))).exp()
+    }
+}
+
+/// A figure known from its bound alone: in [0, bound] (or [cap - bound, cap]), given as the midpoint.
+fn pinned(low: bool, bound: f64, cap: f64) -> Value {
+    let v = if low { 0.5 * bound } else { cap - 0.5 * bound };
+    Value { value: v, ln_value: v.ln(), abs_err: 0.5 * bound, rel_err: 0.5 * bound / v, kind: BoundKind::Rigorous }
+}
+
+/// The tail figure at a node from Bernstein's bound, when it is below `pin`.
+fn pin_tail(mom: &Moments, k: u64, side: Side, pin: f64) -> Option<Value> {
+    if pin <= 0.0 {
+        return None;
+    }
+    // A margin for the rounding of the conditional mean.
+    let slack = 1e-9 * (1.0 + mom.mean.abs());
+    let (m, v, kf) = (mom.mean, mom.variance, k as f64);
+    let up_x = kf - m - slack; // k above the mean
+    let dn_x = m - kf - slack; // k below the mean
+    let b = |x: f64| bernstein(x, v);
+    let got = match side {
+        Side::Upper => {
+            if b(up_x) <= pin {
+                Some(pinned(true, b(up_x), 1.0))
+            } else if b(dn_x + 1.0) <= pin {
+                Some(pinned(false, b(dn_x + 1.0), 1.0))
+            } else {
+                None
+            }
+        }
+        Side::Lower => {
+            if b(dn_x) <= pin {
+                Some(pinned(true, b(dn_x), 1.0))
+            } else if b(up_x + 1.0) <= pin {
+                Some(pinned(false, b(up_x + 1.0), 1.0))
+            } else {
+                None
+            }
+        }
+        Side::Point => {
+            let x = up_x.max(dn_x);
+            (b(x) <= pin).then(|| pinned(true, b(x), 1.0))
+        }
+    };
+    got.filter(|v| v.value > 0.0)
+}
+
+/// The bound on E[min((S - a)+, l)] at a node above the mean: sum_{j >= 1} P(S >= a + j) with Bernstein's
+/// exponent f convex, so the terms fall at least geometrically by exp(-f'(x0)) from x0 = a + 1 - m.
+fn pin_layer(mom: &Moments, a: u64, limit: Option<u64>, pin: f64) -> Option<Value> {
+    if pin <= 0.0 {
+        return None;
+    }
+    let x0 = a as f64 + 1.0 - mom.mean - 1e-9 * (1.0 + mom.mean.abs());
+    if x0 <= 0.0 {
+        return None;
+    }
+    let c = 3.0 * mom.variance;
+    let slope = 1.5 * (x0 * x0 + 2.0 * c * x0) / ((c + x0) * (c + x0));
+    let first = bernstein(x0, mom.variance);
+    let mut bound = first / -(-slope).exp_m1();
+    if let Some(l) = limit {
+        bound = bound.min(l as f64 * first);
+    }
+    (bound <= pin && bound > 0.0).then(|| pinned(true, bound, f64::INFINITY))
+}
+
+/// A value from an integral, with the quadrature's and the nodes' errors and the given range.
+fn to_value(i: &Integral, lo: f64, hi: f64) -> Value {
+    let value = i.value.clamp(lo, hi);
+    let abs_err = up(i.quad_err + i.node_err + 2.0 * U * value.abs());
+    let ln_value = if value == i.value { i.ln_value } else { value.ln() };
+    Value {
+        value,
+        ln_value: ln_value.min(hi.ln()),
+        abs_err,
+        rel_err: if value > 0.0 { up(abs_err / value) } else { f64::INFINITY },
+        kind: BoundKind::Estimated,
+    }
+}
+
+/// The event level of a tail query: where the conditional mean crossing it halves the tail.
+fn level(k: u64, side: Side) -> f64 {
+    match side {
+        Side::Upper => k as f64 - 0.5,
+        Side::Lower => k as f64 + 0.5,
+        Side::Point => k as f64,
+    }
+}
+
+/// Tail queries with the companions a point query's bracket needs: (query, spec) with `target` false for the
+/// companions nobody asked for.
+fn with_companions(queries: &[(u64, Side)]) -> (Vec<(u64, Side)>, Vec<Spec>, Vec<usize>) {
+    let mut idx: HashMap<(u64, Side), usize> = HashMap::new();
+    let mut all: Vec<(u64, Side)> = Vec::new();
+    let mut target: Vec<bool> = Vec::new();
+    let mut add = |q: (u64, Side), t: bool, all: &mut Vec<(u64, Side)>, target: &mut Vec<bool>| -> usize {
+        let i = *idx.entry(q).or_insert_with(|| {
+            all.push(q);
+            target.push(false);
+            all.len() - 1
+        });
+        target[i] |= t;
+        i
+    };
+    let asked: Vec<usize> = queries.iter().map(|&q| add(q, true, &mut all, &mut target)).collect();
+    let mut specs: Vec<Spec> = Vec::new();
+    let mut i = 0;
+    while i < all.len() {
+        let (k, side) = all[i];
+        let shape = match side {
+            Side::Upper => Shape::Decreasing,
+            Side::Lower => Shape::Increasing,
+            Side::Point => {
+                let d = add((k, Side::Upper), false, &mut all, &mut target);
+                let c = add((k, Side::Lower), false, &mut all, &mut target);
+                Shape::Below { decreasing: d, increasing: c }
+            }
+        };
+        specs.push(Spec { shape, range: (0.0, 1.0), target: true });
+        i += 1;
+    }
+    for (s, &t) in specs.iter_mut().zip(&target) {
+        s.target = t;
+    }
+    (all, specs, asked)
+}
+
+impl Factor {
+    pub fn new(model: Model, rho: f64, tol: Tol, cancel: Cancel) -> Factor {
+        let loads = Loads::of(&model, rho);
+        let profile = Profile::of(&model, &loads);
+        let mean = Moments::of(&model).mean;
+        // Threads pay off once a node costs more than a few tens of microseconds.
+        let cost = model.bernoulli.len() as f64
+            + model.binomials.iter().map(|b| 25.0 * (b.size as f64).sqrt()).sum::<f64>()
+            + if model.poisson > 0.0 { 25.0 * model.poisson.sqrt() } else { 0.0 };
+        Factor {
+            model,
+            loads,
+            profile,
+            tol,
+            rho,
+            mean,
+            moments: OnceLock::new(),
+            nodes: AtomicUsize::new(0),
+            gauss: AtomicUsize::new(0),
+            cancel,
+            parallel: cost > 2000.0,
+        }
+    }
+
+    pub fn set_cancel(&mut self, cancel: Cancel) {
+        self.cancel = cancel;
+    }
+
+    /// The conditional portfolio at z and its moments.
+    pub fn at(&self, z: f64) -> (Model, Moments) {
+        let m = conditional(&self.model, &self.loads, z);
+        let mom = Moments::of(&m);
+        (m, mom)
+    }
+
+    /// Nodes evaluated so far, and how many of them were Gauss nodes.
+    pub fn nodes_used(&self) -> (usize, usize) {
+        (self.nodes.load(Ordering::Relaxed), self.gauss.load(Ordering::Relaxed))
+    }
+
+    fn options(&self, tol: Tol) -> Options {
+        Options { tol, max_nodes: MAX_NODES, parallel: self.parallel }
+    }
+
+    fn pin(&self) -> f64 {
+        PIN_SHARE * self.tol.abs
+    }
+
+    fn run<F>(&self, specs: &[Spec], breaks: &[f64], tol: Tol, f: F) -> Outcome
+    where
+        F: Fn(f64) -> Vec<Value> + Sync,
+    {
+        let cancel = &self.cancel;
+        let out = mixture::integrate(specs, breaks, &self.options(tol), f, &|| cancel.is_cancelled());
+        self.nodes.fetch_add(out.nodes, Ordering::Relaxed);
+        self.gauss.fetch_add(out.gauss_nodes, Ordering::Relaxed);
+        out
+    }
+
+    /// Breakpoints for integrands that step where the conditional mean crosses each of `levels`.
+    pub fn breakpoints(&self, levels: &[f64], smooth: bool) -> Vec<f64> {
+        let mut lv: Vec<f64> = levels.to_vec();
+        lv.sort_by(f64::total_cmp);
+        lv.dedup();
+        let mut missing = false;
+        let mut found: Vec<(f64, f64)> = Vec::new();
+        if lv.len() <= 48 {
+            for &x in &lv {
+                match self.profile.crossing(x) {
+                    Some(c) => found.push(c),
+                    None => missing = true,
+                }
+            }
+        } else {
+            // Many levels: crossings only where the neighbours' are more than NEAR widths apart (the levels
+            // between them then share the run of breakpoints).
+            let ends = [self.profile.crossing(lv[0]), self.profile.crossing(lv[lv.len() - 1])];
+            missing = ends.iter().any(Option::is_none);
+            let mut stack = vec![(0usize, lv.len() - 1, ends[0], ends[1])];
+            found.extend(ends.iter().flatten());
+            while let Some((i, j, ci, cj)) = stack.pop() {
+                if j - i <= 1 {
+                    continue;
+                }
+                let close = match (ci, cj) {
+                    (Some(a), Some(b)) => (a.0 - b.0).abs() <= NEAR * a.1.min(b.1),
+                    _ => false,
+                };
+                if close {
+                    continue;
+                }
+                let mid = (i + j) / 2;
+                let cm = self.profile.crossing(lv[mid]);
+                match cm {
+                    Some(c) => found.push(c),
+                    None => missing = true,
+                }
+                stack.push((i, mid, ci, cm));
+                stack.push((mid, j, cm, cj));
+            }
+        }
+        let mut pts: Vec<f64> = Vec::new();
+        if smooth || missing || found.is_empty() || found.iter().any(|&(_, w)| w > 0.5) {
+            pts.extend(COARSE);
+        }
+        found.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let mut i = 0;
+        while i < found.len() {
+            // One cluster: crossings closer than FAR widths to the previous one.
+            let mut j = i + 1;
+            while j < found.len() && found[j].0 - found[j - 1].0 <= 2.0 * FAR * found[j].1.max(found[j - 1].1) {
+                j += 1;
+            }
+            let (z0, w0) = found[i];
+            let (z1, w1) = found[j - 1];
+            pts.extend([z0 - FAR * w0, z0 - NEAR * w0]);
+            let mut last = f64::NEG_INFINITY;
+            for &(z, w) in &found[i..j] {
+                if z - last >= NEAR * w {
+                    pts.push(z);
+                    last = z;
+                }
+            }
+            pts.extend([z1 + NEAR * w1, z1 + FAR * w1]);
+            i = j;
+        }
+        pts.retain(|z| z.abs() < LIMIT);
+        pts
+    }
+
+    /// Exact values of tail queries under the factor, in order.
+    pub fn exact(&self, queries: &[(u64, Side)]) -> Vec<Value> {
+        let mut out = vec![Value::default(); queries.len()];
+        let mut open: Vec<usize> = Vec::new();
+        for (i, &(k, side)) in queries.iter().enumerate() {
+            match exact::trivial(&self.model, k, side) {
+                Some(p) => out[i] = Value { kind: BoundKind::Estimated, ..Value::certain(p) },
+                None => open.push(i),
+            }
+        }
+        // Runs of at most CHUNK distinct counts.
+        open.sort_by_key(|&i| queries[i].0);
+        let mut start = 0;
+        while start < open.len() {
+            let mut end = start;
+            let mut counts = 0;
+            while end < open.len() {
+                if end == start || queries[open[end]].0 != queries[open[end - 1]].0 {
+                    if counts == CHUNK {
+                        break;
+                    }
+                    counts += 1;
+                }
+                end += 1;
+            }
+            let idx = &open[start..end];
+            let qs: Vec<(u64, Side)> = idx.iter().map(|&i| queries[i]).collect();
+            for (&i, v) in idx.iter().zip(self.exact_run(&qs)) {
+                out[i] = v;
+            }
+            start = end;
+        }
+        out
+    }
+
+    fn exact_run(&self, queries: &[(u64, Side)]) -> Vec<Value> {
+        let (all, specs, asked) = with_companions(queries);
+        let levels: Vec<f64> = all.iter().map(|&(k, s)| level(k, s)).collect();
+        let breaks = self.breakpoints(&levels, false);
+        let pin = self.pin();
+        let node = |z: f64| -> Vec<Value> {
+            let (m, mom) = self.at(z);
+            let mut vals = vec![Value::default(); all.len()];
+            let mut active: Vec<(u64, Side)> = Vec::new();
+            let mut where_: Vec<usize> = Vec::new();
+            for (i, &(k, side)) in all.iter().enumerate() {
+                match exact::trivial(&m, k, side) {
+                    Some(p) => vals[i] = Value::certain(p),
+                    None => match pin_tail(&mom, k, side, pin) {
+                        Some(v) => vals[i] = v,
+                        None => {
+                            active.push((k, side));
+                            where_.push(i);
+                        }
+                    },
+                }
+            }
+            if !active.is_empty() {
+                let (got, _) = exact::evaluate_reach(&m, &mom, &active, REACH);
+                for (&i, v) in where_.iter().zip(got) {
+                    vals[i] = v;
+                }
+            }
+            vals
+        };
+        let out = self.run(&specs, &breaks, self.tol, node);
+        asked.iter().map(|&i| to_value(&out.integrals[i], 0.0, 1.0)).collect()
+    }
+
+    /// The largest value E[min((S - a)+, l) | z] can take.
+    fn layer_cap(&self, a: u64, limit: Option<u64>) -> f64 {
+        let top = match self.model.support_max() {
+            Some(m) => m.saturating_sub(a) as f64,
+            // E[(S - a)+ | z] <= E[S | z] <= the bounded part's largest count plus the Poisson rate.
+            None => (self.model.shift + self.model.random_exposures_bounded()) as f64 + self.model.poisson,
+        };
+        limit.map_or(top, |l| top.min(l as f64))
+    }
+
+    /// E[min((S - a)+, l)] under the factor (no cap when `limit` is None).
+    pub fn layer_expectation(&self, a: u64, limit: Option<u64>) -> Value {
+        let cap = self.layer_cap(a, limit);
+        if cap <= 0.0 {
+            return Value { kind: BoundKind::Estimated, ..Value::certain(0.0) };
+        }
+        let mut levels = vec![a as f64 + 0.5];
+        if let Some(l) = limit {
+            levels.push(a as f64 + l as f64 - 0.5);
+        }
+        let breaks = self.breakpoints(&levels, limit.is_none());
+        let pin = self.pin();
+        let node = |z: f64| -> Vec<Value> {
+            let (m, mom) = self.at(z);
+            vec![pin_layer(&mom, a, limit, pin).unwrap_or_else(|| exact::layer_expectation(&m, &mom, a, limit))]
+        };
+        let specs = [Spec::new(Shape::Decreasing, (0.0, cap))];
+        let out = self.run(&specs, &breaks, self.tol, node);
+        to_value(&out.integrals[0], 0.0, f64::INFINITY)
+    }
+
+    /// One approximation's estimates at every node, mixed (no brackets: an approximation need not be monotone
+    /// in z). The node errors are the method's own bounds, integrated.
+    pub fn estimates(&self, id: MethodId, queries: &[(u64, Side)], tol: Option<Tolerance>) -> Vec<Value> {
+        let levels: Vec<f64> = queries.iter().map(|&(k, s)| level(k, s)).collect();
+        let breaks = self.breakpoints(&levels, true);
+        let node = |z: f64| -> Vec<Value> {
+            let (m, mom) = self.at(z);
+            let prep = Prepared { model: &m, moments: mom };
+            crate::engine::run(id, &prep, queries, tol).iter().map(|e| e.value()).collect()
+        };
+        let specs: Vec<Spec> = queries.iter().map(|_| Spec::new(Shape::Free, (-1.0, 2.0))).collect();
+        let out = self.run(&specs, &breaks, self.tol, node);
+        out.integrals.iter().map(|i| to_value(i, 0.0, 1.0)).collect()
+    }
+
+    /// Moments of the mixture: the law of total variance and its third-moment analogue, integrated about the
+    /// exact unconditional mean. The Berry-Esseen and Poisson sums are the conditional ones averaged, for
+    /// completeness only.
+    pub fn moments(&self) -> Moments {
+        *self.moments.get_or_init(|| {
+            let mu = self.mean;
+            let top = (self.model.random_exposures_bounded() as f64 + self.model.poisson + 1.0).max(1.0);
+            let r = |k: i32| (-top.powi(k), top.powi(k));
+            // v, (m - mu)^2, k3, v (m - mu), (m - mu)^3, third-abs sum, sum p^2
+            let specs: Vec<Spec> = [r(1), r(2), r(1), r(2), r(3), r(1), r(1)]
+                .into_iter()
+                .map(|range| Spec::new(Shape::Free, range))
+                .collect();
+            let node = |z: f64| -> Vec<Value> {
+                let (_, m) = self.at(z);
+                let d = m.mean - mu;
+                let xs =
+                    [m.variance, d * d, m.third_central, m.variance * d, d * d * d, m.third_abs_sum, m.sum_p_squared];
+                xs.iter().map(|&x| Value { value: x, ln_value: x.abs().ln(), ..Value::certain(0.0) }).collect()
+            };
+            let sd = self.profile.at(0.0).1.sqrt() + 1.0;
+            // Tolerances on the scale of each moment (relative 1e-9 of an independent-sized sd's power).
+            let tol = Tol { rel: 1e-9, abs: 1e-12 * sd.powi(3) };
+            let breaks = self.breakpoints(&[], true);
+            let out = self.run(&specs, &breaks, tol, node);
+            let v: Vec<f64> = out.integrals.iter().map(|i| i.value).collect();
+            let variance = (v[0] + v[1]).max(0.0);
+            Moments {
+                mean: mu,
+                variance,
+                third_central: v[2] + 3.0 * v[3] + v[4],
+                third_abs_sum: v[5],
+                sum_p_squared: v[6],
+            }
+        })
+    }
+
+    /// A first guess of the quantile at `level`.
+    pub fn quantile_guess(&self, level: f64) -> u64 {
+        self.profile.quantile_guess(level).max(0.0).round() as u64
+    }
+
+    /// Sensitivities dP(S >= k)/dp_i and leave-one-out tails P(S_{-i} >= k) under the factor, for every entry of
+    /// `model.bernoulli` in order, with P(S >= k); and for impossible or certain exposures (p = 0 or 1, with their
+    /// loading) the same figures, computed as described in `contributions.rs`.
+    ///
+    /// dP/dp_i = E[P(S_{-i} = k - 1 | Z) dp_i(Z)/dp_i] where phi(z) dp_i(z)/dp_i = phi(z) phi(u_i(z)) /
+    /// (sqrt(1 - rho_i) phi(c_i)) is the N(sqrt(rho_i) c_i, 1 - rho_i) density (the factor given the exposure's
+    /// latent variable at its threshold c_i = Phi^-1(p_i)). Pass 1 refines the panels on P(S >= k - 1, k, k + 1),
+    /// P(S <= k) and P(S = k - 1), P(S = k) (the shapes of every exposure's integrands); pass 2 evaluates the
+    /// exact engine's leave-one-out tree (`leave_one_out`) at the Kronrod nodes of those panels and brackets the
+    /// rest: P(S_{-i} = k - 1 | z) <= min(P(S >= k - 1 | z), P(S <= k | z)) and P(S >= k + 1 | z) <= P(S_{-i} >= k |
+    /// z) <= P(S >= k | z), all monotone in z.
+    pub fn contributions(&self, k: u64, fixed: &[(f64, f64)]) -> FactorContributions {
+        let n = self.model.bernoulli.len();
+        let est = |v: f64| Value { kind: BoundKind::Estimated, ..Value::certain(v) };
+        if k == 0 {
+            let each = (est(0.0), est(1.0));
+            return FactorContributions { tail: est(1.0), each: vec![each; n], fixed: vec![each; fixed.len()] };
+        }
+        // Pass 1.
+        let qs = [
+            (k, Side::Upper),
+            (k - 1, Side::Upper),
+            (k + 1, Side::Upper),
+            (k, Side::Lower),
+            (k - 1, Side::Point),
+            (k, Side::Point),
+        ];
+        let specs = [
+            Spec::new(Shape::Decreasing, (0.0, 1.0)),
+            Spec::new(Shape::Decreasing, (0.0, 1.0)),
+            Spec::new(Shape::Decreasing, (0.0, 1.0)),
+            Spec::new(Shape::Increasing, (0.0, 1.0)),
+            Spec::new(Shape::Below { decreasing: 1, increasing: 3 }, (0.0, 1.0)),
+            Spec::new(Shape::Below { decreasing: 0, increasing: 3 }, (0.0, 1.0)),
+        ];
+        let levels: Vec<f64> = qs.iter().map(|&(k, s)| level(k, s)).collect();
+        let breaks = self.breakpoints(&levels, false);
+        let pin = self.pin();
+        let proxies = |m: &Model, mom: &Moments| -> Vec<Value> {
+            let mut vals = vec![Value::default(); qs.len()];
+            let mut active = Vec::new();
+            let mut where_ = Vec::new();
+            for (i, &(kk, side)) in qs.iter().enumerate() {
+                match exact::trivial(m, kk, side).map(Value::certain).or_else(|| pin_tail(mom, kk, side, pin)) {
+                    Some(v) => vals[i] = v,
+                    None => {
+                        active.push((kk, side));
+                        where_.push(i);
+                    }
+                }
+            }
+            if !active.is_empty() {
+                for (&i, v) in where_.iter().zip(exact::evaluate_reach(m, mom, &active, REACH).0) {
+                    vals[i] = v;
+                }
+            }
+            vals
+        };
+        let out = self.run(&specs, &breaks, self.tol, |z: f64| {
+            let (m, mom) = self.at(z);
+            proxies(&m, &mom)
+        });
+        let tail = to_value(&out.integrals[0], 0.0, 1.0);
+        // Per exposure: the centre and sd of the factor given the latent variable at c_i.
+        let rho_of = |i: usize| if self.model.loaded() { self.model.loadings[i] } else { self.rho };
+        let cons: Vec<(f64, f64)> = (0..n)
+            .map(|i| {
+                let r = rho_of(i);
+                let c = normal_law::normal_quantile(self.model.bernoulli[i]);
+                (r.sqrt() * c, (1.0 - r).sqrt())
+            })
+            .collect();
+        // Pass 2: accumulate (value, quadrature error, node error) per exposure for both figures.
+        let mut sens = vec![(0.0f64, 0.0f64, 0.0f64); n];
+        let mut without = vec![(0.0f64, 0.0f64, 0.0f64); n];
+        let bound_at = |end: Option<usize>, q: usize, hi: bool| -> f64 {
+            match end {
+                None => {
+                    if hi {
+                        1.0
+                    } else {
+                        0.0
+                    }
+                }
+                Some(e) => {
+                    let (v, err) = out.ends[e].1[q];
+                    if hi {
+                        (v + err).min(1.0)
+                    } else {
+                        (v - err).max(0.0)
+                    }
+                }
+            }
+        };
+        for p in &out.panels {
+            if self.cancel.is_cancelled() {
+                break;
+            }
+            if !p.kronrod {
+                // Brackets from the proxies at the panel's ends.
+                let s_hi = bound_at(p.left, 1, true).min(bound_at(p.right, 3, true));
+                let (t_lo, t_hi) =
+                    (bound_at(p.right, 2, false), bound_at(p.left, 0, true).max(bound_at(p.right, 2, false)));
+                let (mass, mass_err) = normal_mass(p.a, p.b);
+                for i in 0..n {
+                    let (centre, sd) = cons[i];
+                    let (g, g_err) = normal_mass((p.a - centre) / sd, (p.b - centre) / sd);
+                    let w = s_hi * (g + g_err);
+                    sens[i].0 += 0.5 * w;
+                    sens[i].1 += 0.5 * w;
+                    without[i].0 += 0.5 * (t_lo + t_hi) * mass;
+                    without[i].1 += 0.5 * (t_hi - t_lo) * mass + t_hi * mass_err;
+                }
+                continue;
+            }
+            let rule = gk15(p.a, p.b);
+            let zs: Vec<f64> = rule.iter().map(|r| r.0).collect();
+            let at_nodes = mixture::evaluate_all(&zs, self.parallel, &|z: f64| self.loo_node(z, k, &proxies, pin));
+            self.nodes.fetch_add(15, Ordering::Relaxed);
+            self.gauss.fetch_add(7, Ordering::Relaxed);
+            let lnphi: Vec<f64> = zs.iter().map(|&z| normal_law::ln_pdf(z)).collect();
+            for i in 0..n {
+                let (centre, sd) = cons[i];
+                let mut fs = [0.0; 15];
+                let mut ft = [0.0; 15];
+                let (mut es, mut et) = (0.0, 0.0);
+                // phi(z) dp_i(z)/dp_i = the N(centre, sd^2) density.
+                for j in 0..15 {
+                    let (s, t) = at_nodes[j][i];
+                    let u = (zs[j] - centre) / sd;
+                    let dens = (normal_law::ln_pdf(u)).exp() / sd;
+                    let phi = lnphi[j].exp();
+                    fs[j] = dens * s.value;
+                    ft[j] = phi * t.value;
+                    es += rule[j].1 * dens * s.abs_err;
+                    et += rule[j].1 * phi * t.abs_err;
+                }
+                let (ks, qs_err, _) = qk15(&rule, &fs);
+                let (kt, qt_err, _) = qk15(&rule, &ft);
+                sens[i].0 += ks;
+                sens[i].1 += qs_err;
+                sens[i].2 += es;
+                without[i].0 += kt;
+                without[i].1 += qt_err;
+                without[i].2 += et;
+            }
+        }
+        let fin = |(v, q, e): (f64, f64, f64), hi: f64| -> Value {
+            let i = Integral {
+                value: v,
+                ln_value: v.ln(),
+                quad_err: q * (1.0 + 1e-12) + mixture::OMITTED_MASS * hi,
+                node_err: e,
+            };
+            to_value(&i, 0.0, hi)
+        };
+        let each: Vec<(Value, Value)> =
+            sens.into_iter().zip(without).map(|(s, t)| (fin(s, f64::INFINITY), fin(t, 1.0))).collect();
+        // Impossible and certain exposures.
+        let ints = &out.integrals;
+        let fixed_out = fixed
+            .iter()
+            .map(|&(p, r)| {
+                if r == 0.0 {
+                    // Independent of the factor: S without it is S (p = 0) or S - 1 (p = 1).
+                    if p <= 0.0 {
+                        (to_value(&ints[4], 0.0, 1.0), tail)
+                    } else {
+                        (to_value(&ints[5], 0.0, 1.0), to_value(&ints[2], 0.0, 1.0))
+                    }
+                } else {
+                    // The factor given the latent variable at -inf (p = 0) or +inf (p = 1): the end of the range.
+                    let z = if p <= 0.0 { -LIMIT } else { LIMIT };
+                    let (m, mom) = self.at(z);
+                    let kk = if p <= 0.0 { k - 1 } else { k };
+                    let v = exact::evaluate(&m, &mom, &[(kk, Side::Point)]).0[0];
+                    let s = Value { kind: BoundKind::Estimated, ..v };
+                    if p <= 0.0 {
+                        (s, tail)
+                    } else {
+                        (s, to_value(&ints[2], 0.0, 1.0))
+                    }
+                }
+            })
+            .collect();
+        FactorContributions { tail, each, fixed: fixed_out }
+    }
+
+    /// At a node: every Bernoulli exposure's (P(S_{-i} = k - 1 | z), P(S_{-i} >= k | z)), from the
+    /// leave-one-out tree, or from the proxies' Bernstein bounds when they settle all of them.
+    fn loo_node(
+        &self,
+        z: f64,
+        k: u64,
+        proxies: &(impl Fn(&Model, &Moments) -> Vec<Value> + Sync),
+        pin: f64,
+    ) -> Vec<(Value, Value)> {
+        let n = self.model.bernoulli.len();
+        let (m, mom) = self.at(z);
+        let pr = proxies(&m, &mom);
+        // Pinned: P(S >= k - 1) or P(S <= k) below the pin settles every sensitivity; P(S >= k) and P(S >= k + 1)
+        // both below it (or both above 1 - pin) every leave-one-out tail.
+        let small = |v: &Value| v.value + v.abs_err <= pin;
+        let sens_pinned = small(&pr[1]) || small(&pr[3]);
+        let lo = pr[2];
+        let tail_pinned = (small(&pr[0]) && small(&pr[2])) || (1.0 - pr[2].value + pr[2].abs_err <= pin);
+        if sens_pinned && tail_pinned && pin > 0.0 {
+            let s_hi = (pr[1].value + pr[1].abs_err).min(pr[3].value + pr[3].abs_err);
+            let (t_lo, t_hi) = ((lo.value - lo.abs_err).max(0.0), (pr[0].value + pr[0].abs_err).min(1.0));
+            let s = Value {
+                value: 0.5 * s_hi,
+                ln_value: (0.5 * s_hi).ln(),
+                abs_err: 0.5 * s_hi,
+                rel_err: 1.0,
+                kind: BoundKind::Rigorous,
+            };
+            let t = Value {
+                value: 0.5 * (t_lo + t_hi),
+                ln_value: (0.5 * (t_lo + t_hi)).ln(),
+                abs_err: 0.5 * (t_hi - t_lo),
+                rel_err: 1.0,
+                kind: BoundKind::Rigorous,
+            };
+            return vec![(s, t); n];
+        }
+        // Exposures whose p_i(z) rounded to 0 or 1 are not in the conditional model: S without them is S, or
+        // S - 1.
+        let fixed = exact::evaluate(
+            &m,
+            &mom,
+            &[(k - 1, Side::Point), (k, Side::Upper), (k, Side::Point), (k + 1, Side::Upper)],
+        )
+        .0;
+        let tree = leave_one_out::contributions(&m, &mom, k);
+        let mut next = tree.iter();
+        let mut out = Vec::with_capacity(n);
+        for i in 0..n {
+            let (a, b) = (self.loads.alpha[i], self.loads.beta_of(i));
+            let p = normal_law::cdf(a - b * z);
+            if p <= 0.0 {
+                out.push((fixed[0], fixed[1]));
+            } else if p >= 1.0 {
+                out.push((fixed[2], fixed[3]));
+            } else {
+                let c = next.next().expect("one figure per random exposure");
+                out.push((c.sensitivity, c.tail_without));
+            }
+        }
+        out
+    }
+}
+
+/// [`Factor::contributions`]' answer.
+pub struct FactorContributions {
+    pub tail: Value,
+    /// (sensitivity, tail without) for every entry of `model.bernoulli`.
+    pub each: Vec<(Value, Value)>,
+    /// The same for the impossible and certain exposures given.
+    pub fixed: Vec<(Value, Value)>,
+}
