@@ -105,9 +105,11 @@ pub fn model(
     limits: &ServiceLimits,
     mut errs: Vec<Violation>,
 ) -> Result<Model, Error> {
+    check_ids(spec, &mut errs);
     let m = match build_model(spec, "/portfolio", &limits.portfolio) {
         Ok(m) => m,
         Err(mut v) => {
+            name_ids(spec, &mut v);
             errs.append(&mut v);
             return Err(Error::Invalid(errs));
         }
@@ -128,6 +130,27 @@ pub fn model(
     }
     crate::telemetry::metrics::exposures_processed(m.exposures);
     Ok(m)
+}
+
+/// `ids`, when given, are parallel to `probabilities`.
+fn check_ids(spec: &PortfolioSpec, errs: &mut Vec<Violation>) {
+    let (ids, listed) = (spec.ids.len(), spec.probabilities.len());
+    if ids != 0 && ids != listed {
+        errs.push(Violation::new(
+            "/portfolio/ids",
+            format!("{ids} ids for {listed} probabilities: give one id (or null) per probability, or none"),
+        ));
+    }
+}
+
+/// Name the exposure's id in the violations of its probability, so that a client finds it in its own books.
+fn name_ids(spec: &PortfolioSpec, errs: &mut [Violation]) {
+    for v in errs.iter_mut() {
+        let index = v.pointer.strip_prefix("/portfolio/probabilities/").and_then(|i| i.parse::<usize>().ok());
+        if let Some(Some(id)) = index.and_then(|i| spec.ids.get(i)) {
+            v.detail = format!("{} (exposure id {id})", v.detail);
+        }
+    }
 }
 
 /// Refuse work over the budget (exposures x evaluations x scenario factor).
