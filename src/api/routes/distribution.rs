@@ -17,7 +17,10 @@ use std::fmt::Write;
 /// The count distribution over a range.
 #[utoipa::path(
     post, path = "/v1/distribution", tag = "analytics",
-    request_body = DistributionRequest,
+    request_body(
+        description = "The request as JSON, or as multipart/form-data with the exposures as a table (`TableUpload`)",
+        content((DistributionRequest = "application/json"), (crate::api::tables::TableUpload = "multipart/form-data"))
+    ),
     responses(
         (status = 200, description = "pmf, cdf and survival over the range (CSV with `Accept: text/csv`)",
             content((DistributionResponse = "application/json"), (String = "text/csv"))),
