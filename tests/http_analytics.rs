@@ -75,7 +75,11 @@ async fn distribution_speaks_csv_when_asked() {
     assert_eq!(r.status(), 200);
     assert!(r.headers()["content-type"].to_str().unwrap().starts_with("text/csv"));
     let text = r.text().await.unwrap();
-    let mut lines = text.lines();
+    // The cautions first, as `# ` comment lines, then the table.
+    let comments: Vec<&str> = text.lines().take_while(|l| l.starts_with("# ")).collect();
+    assert!(comments.iter().any(|l| l.contains("not the uncertainty of the input probabilities")), "{comments:?}");
+    assert!(comments.iter().any(|l| l.contains("qualified actuary")), "{comments:?}");
+    let mut lines = text.lines().skip(comments.len());
     assert_eq!(lines.next().unwrap(), "count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound");
     let rows: Vec<Vec<&str>> = lines.map(|l| l.split(',').collect()).collect();
     assert!(rows.len() > 5 && rows.iter().all(|r| r.len() == 8));

@@ -75,6 +75,10 @@ async fn chart_is_well_formed_svg_with_axes_and_shaded_tail() {
         assert_eq!((els[0].attr("width"), els[0].attr("height")), (Some("900"), Some("480")));
         let texts: Vec<&str> = els.iter().filter(|e| e.name == "text").map(|e| e.text.as_str()).collect();
         assert!(texts.contains(&"number of events k"), "{texts:?}");
+        assert!(
+            texts.iter().any(|t| t.contains("not the inputs' uncertainty") && t.contains("expert judgement")),
+            "{texts:?}"
+        );
         let ylab = if log_scale { "P(S = k), log scale" } else { "P(S = k)" };
         assert!(texts.contains(&ylab), "{texts:?}");
         assert!(els.iter().any(|e| e.name == "title" && e.text.starts_with("P(S \u{2265} 110) = ")));

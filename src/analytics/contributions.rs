@@ -29,7 +29,7 @@ use crate::engine::exact::{self, leave_one_out};
 use crate::engine::{Side, Value};
 use crate::portfolio::families::{expected_len, listed_loadings, listed_probabilities};
 use crate::portfolio::stress::Stress;
-use crate::portfolio::{Model, PortfolioSpec, Violation};
+use crate::portfolio::{ExposureId, Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
 
@@ -65,8 +65,11 @@ pub struct ContributionsRequest {
 
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
 pub struct ContributionOut {
-    /// Position among `probabilities`, then the members of `families` in order.
+    /// Position among `probabilities` (table rows after the JSON's), then the members of `families` in order.
     pub index: usize,
+    /// The exposure's id (`portfolio.ids`, or the id column of an uploaded table), when it has one.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub id: Option<ExposureId>,
     pub probability: f64,
     /// dP(S >= k)/dp_i (independent exposures: P(S without i = k - 1)).
     pub sensitivity: f64,
@@ -161,6 +164,7 @@ impl Contributions {
                 let (s, t) = figures(slot, p);
                 ContributionOut {
                     index,
+                    id: req.portfolio.ids.get(index).cloned().flatten(),
                     probability: p,
                     sensitivity: s.value,
                     tail_without: t.value,

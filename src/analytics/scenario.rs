@@ -15,9 +15,15 @@ use utoipa::ToSchema;
 /// The model's assumptions, returned with every answer.
 pub const ASSUMPTIONS: &[&str] = &[
     "Exposures and sources are mutually independent unless a dependence model is named in `model`; under the one-factor Gaussian model they are independent given the common factor, and Poisson sources are independent of it.",
-    "Each listed probability is the exposure's event probability over the same period.",
+    "Each listed probability is the exposure's event probability over the same period (at most one event each), and Poisson rates are over that period too; a count is not a loss.",
+    "Error bounds cover the computation only, not the uncertainty of the input probabilities, rates or rho.",
+    "The one-factor Gaussian model has no tail dependence, and its rho must be calibrated to the book; it is not estimated here.",
     "Results support, and do not replace, the judgement of a qualified actuary or engineer and the rules of local regulation.",
 ];
+
+/// The footer of the chart: the cautions in one line short enough to print under a plot.
+pub const CHART_CAUTION: &str =
+    "Bounds cover the computation, not the inputs' uncertainty; rho (if used) must be calibrated. Supports, does not replace, expert judgement.";
 
 /// [`ASSUMPTIONS`] as an answer carries them.
 pub fn assumptions() -> Vec<String> {
@@ -108,11 +114,13 @@ pub fn model(
     limits: &ServiceLimits,
     mut errs: Vec<Violation>,
 ) -> Result<Model, Error> {
+    check_ids(spec, &mut errs);
     // Under a dependence model the exposures' own factor loadings are kept (the default is its rho).
     let rho = dep.and_then(|d| d.rho()).filter(|r| r.is_finite() && (0.0..1.0).contains(r));
     let m = match build_model_with(spec, "/portfolio", &limits.portfolio, rho) {
         Ok(m) => m,
         Err(mut v) => {
+            name_ids(spec, &mut v);
             errs.append(&mut v);
             return Err(Error::Invalid(errs));
         }
@@ -133,6 +141,27 @@ pub fn model(
     }
     crate::telemetry::metrics::exposures_processed(m.exposures);
     Ok(m)
+}
+
+/// `ids`, when given, are parallel to `probabilities`.
+fn check_ids(spec: &PortfolioSpec, errs: &mut Vec<Violation>) {
+    let (ids, listed) = (spec.ids.len(), spec.probabilities.len());
+    if ids != 0 && ids != listed {
+        errs.push(Violation::new(
+            "/portfolio/ids",
+            format!("{ids} ids for {listed} probabilities: give one id (or null) per probability, or none"),
+        ));
+    }
+}
+
+/// Name the exposure's id in the violations of its probability, so that a client finds it in its own books.
+fn name_ids(spec: &PortfolioSpec, errs: &mut [Violation]) {
+    for v in errs.iter_mut() {
+        let index = v.pointer.strip_prefix("/portfolio/probabilities/").and_then(|i| i.parse::<usize>().ok());
+        if let Some(Some(id)) = index.and_then(|i| spec.ids.get(i)) {
+            v.detail = format!("{} (exposure id {id})", v.detail);
+        }
+    }
 }
 
 /// Refuse work over the budget (exposures x evaluations x scenario factor).

@@ -1,26 +1,36 @@
 //! `Body<T>`: the JSON extractor of the service. It replaces axum's `Json` so that every rejection is a
 //! problem-details document: 415 for a wrong content type, 413 beyond the size limit, 400 for malformed JSON
 //! and 422, with the JSON pointer of the field, for JSON of the wrong shape (a string where a number belongs,
-//! a negative count, an unknown field).
+//! a negative count, an unknown field). `multipart/form-data` (the request with its exposures as a table) is
+//! handed to `api::tables`.
 
 use super::problem::{escape_token, Problem};
+use super::tables::{self, Tabular};
+use super::AppState;
 use crate::portfolio::Violation;
 use axum::body::Bytes;
-use axum::extract::{FromRequest, Request};
+use axum::extract::{FromRef, FromRequest, Request};
 use axum::http::header;
 use serde::de::DeserializeOwned;
 
 pub struct Body<T>(pub T);
 
-impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for Body<T> {
+impl<S, T> FromRequest<S> for Body<T>
+where
+    S: Send + Sync,
+    T: DeserializeOwned + Tabular + Send + 'static,
+    AppState: FromRef<S>,
+{
     type Rejection = Problem;
 
     async fn from_request(req: Request, state: &S) -> Result<Self, Problem> {
-        let ctype = req.headers().get(header::CONTENT_TYPE).and_then(|v| v.to_str().ok()).unwrap_or("");
+        let ctype = req.headers().get(header::CONTENT_TYPE).and_then(|v| v.to_str().ok()).unwrap_or("").to_string();
         let mime = ctype.split(';').next().unwrap_or("").trim().to_ascii_lowercase();
-        if mime != "application/json" && !(mime.starts_with("application/") && mime.ends_with("+json")) {
+        // A request with its exposures as a table (`api::tables`).
+        let multipart = mime == "multipart/form-data";
+        if !multipart && mime != "application/json" && !(mime.starts_with("application/") && mime.ends_with("+json")) {
             return Err(Problem::unsupported_media(format!(
-                "expected Content-Type: application/json, got {:?}",
+                "expected Content-Type: application/json, or multipart/form-data with a table of exposures, got {:?}",
                 ctype
             )));
         }
@@ -31,6 +41,14 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for Body<T> {
                 Problem::malformed(format!("could not read the request body: {e}"))
             }
         })?;
+        if multipart {
+            // A table of 10^6 rows takes tens of milliseconds to read: off the async threads.
+            let limits = AppState::from_ref(state).limits;
+            return tokio::task::spawn_blocking(move || tables::from_multipart(bytes, &ctype, &limits))
+                .await
+                .map_err(|e| Problem::internal(format!("reading the table failed: {e}")))?
+                .map(Body);
+        }
         parse(&bytes).map(Body)
     }
 }

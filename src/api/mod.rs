@@ -11,6 +11,7 @@ pub mod problem;
 pub mod responses;
 pub mod routes;
 pub mod svg;
+pub mod tables;
 
 use crate::config::{BatchLimits, ServiceLimits};
 use std::sync::Arc;

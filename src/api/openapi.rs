@@ -24,7 +24,7 @@ use utoipa::OpenApi;
         crate::api::routes::metrics::metrics,
         crate::api::routes::docs::docs,
     ),
-    components(schemas(crate::api::problem::Problem, crate::api::problem::FieldError)),
+    components(schemas(crate::api::problem::Problem, crate::api::problem::FieldError, crate::api::tables::TableSpec)),
     tags(
         (name = "probabilities", description = "Tail and point probabilities"),
         (name = "analytics", description = "Quantiles, the distribution, layers, stress and dependence"),

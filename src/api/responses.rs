@@ -10,11 +10,11 @@ pub struct ComputingProblems;
 
 /// Status and description of each problem answer of a computing route.
 pub const COMPUTING_PROBLEMS: [(&str, &str); 6] = [
-    ("400", "Malformed JSON"),
+    ("400", "Malformed JSON, multipart body or table"),
     ("408", "Not answered within the request timeout"),
-    ("413", "Body or work over the configured limits"),
-    ("415", "Not JSON"),
-    ("422", "Invalid field, with its JSON pointer"),
+    ("413", "Body, table rows or work over the configured limits"),
+    ("415", "Neither JSON nor multipart/form-data, or a part of another type"),
+    ("422", "Invalid field, with its JSON pointer (/exposures/<row>/<column> for a table's row)"),
     ("503", "All computing slots busy and the queue full (see Retry-After)"),
 ];
 

@@ -7,6 +7,7 @@
 //! (fixed number formatting, no clock, no randomness), so the same request always gives the same bytes.
 
 use crate::analytics::chart::ChartData;
+use crate::analytics::scenario::CHART_CAUTION;
 use crate::engine::{MethodId, Side};
 use std::f64::consts::LN_10;
 use std::fmt::Write;
@@ -230,8 +231,8 @@ pub fn render(c: &ChartData) -> String {
     let w = c.width as f64;
     let h = c.height as f64;
     let n = c.counts.len().max(1);
-    let legend_h = 22.0;
-    let (left, right, top, bottom) = (74.0, 18.0, 54.0, 52.0 + legend_h);
+    let (legend_h, caution_h) = (22.0, 14.0);
+    let (left, right, top, bottom) = (74.0, 18.0, 54.0, 52.0 + legend_h + caution_h);
     let pw = (w - left - right).max(10.0);
     let ph = (h - top - bottom).max(10.0);
     let (y_lo, y_hi, ticks) = vertical_scale(c);
@@ -246,6 +247,7 @@ pub fn render(c: &ChartData) -> String {
     threshold_marker(&mut s, c, &f);
     x_axis(&mut s, c, &f);
     legend(&mut s, c, &f);
+    caution(&mut s, &f);
     s.push_str("</svg>\n");
     s
 }
@@ -432,7 +434,7 @@ fn x_axis(s: &mut String, c: &ChartData, f: &Frame) {
 
 /// One legend entry per series: (colour, dash, drawn as a bar, label).
 fn legend(s: &mut String, c: &ChartData, f: &Frame) {
-    let ly = f.h - 14.0;
+    let ly = f.h - 28.0;
     let mut lx = f.left;
     let _ = writeln!(s, "<g class=\"legend\" font-size=\"11.5\" fill=\"{INK}\">");
     let tail_label = format!("tail {}", side_label(c.side, c.threshold));
@@ -458,6 +460,27 @@ fn legend(s: &mut String, c: &ChartData, f: &Frame) {
         lx += 30.0 + 6.6 * label.chars().count() as f64;
     }
     s.push_str("</g>\n");
+}
+
+/// The cautions every answer carries, in one small line under the legend (squeezed to the width when the
+/// picture is narrow, so that it never leaves the picture).
+fn caution(s: &mut String, f: &Frame) {
+    let size = 9.5;
+    let room = f.w - f.left - 18.0;
+    // About half an em per character in a sans-serif face.
+    let natural = 0.5 * size * CHART_CAUTION.chars().count() as f64;
+    let fit = if natural > room {
+        format!(" textLength=\"{room:.2}\" lengthAdjust=\"spacingAndGlyphs\"")
+    } else {
+        String::new()
+    };
+    let _ = writeln!(
+        s,
+        "<text class=\"caution\" x=\"{}\" y=\"{:.2}\" font-size=\"{size}\" fill=\"{MUTED}\"{fit}>{}</text>",
+        f.left,
+        f.h - 8.0,
+        esc(CHART_CAUTION)
+    );
 }
 
 #[cfg(test)]

@@ -11,5 +11,5 @@ pub mod stress;
 pub mod validate;
 
 pub use model::{Binomial, Model};
-pub use spec::{FamilySpec, GroupSpec, PortfolioSpec};
+pub use spec::{ExposureId, FamilySpec, GroupSpec, PortfolioSpec};
 pub use validate::{Limits, Violation};

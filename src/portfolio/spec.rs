@@ -17,6 +17,11 @@ pub struct PortfolioSpec {
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     #[schema(example = json!([0.12, 0.2, 0.05]))]
     pub loadings: Vec<f64>,
+    /// Optional identifiers of the listed exposures, parallel to `probabilities` (one each, null for none).
+    /// They change no figure: /v1/contributions returns them beside `index`, and problems name them.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    #[schema(example = json!(["L-1", "L-2", 17]))]
+    pub ids: Vec<Option<ExposureId>>,
     /// Blocks of identical exposures (a binomial part each).
     #[serde(default)]
     pub groups: Vec<GroupSpec>,
@@ -103,5 +108,48 @@ impl FamilySpec {
             | FamilySpec::Linear { loading, .. }
             | FamilySpec::Logistic { loading, .. } => loading,
         }
+    }
+}
+
+/// An exposure's identifier as the client gave it: an integer or a string (a CSV table's ids are strings).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, ToSchema)]
+#[serde(untagged)]
+pub enum ExposureId {
+    Integer(i64),
+    Text(String),
+}
+
+impl std::fmt::Display for ExposureId {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            ExposureId::Integer(i) => write!(f, "{i}"),
+            ExposureId::Text(s) => write!(f, "{s:?}"),
+        }
+    }
+}
+
+/// By hand rather than `untagged`, which buffers every value and answers with a vague message.
+impl<'de> Deserialize<'de> for ExposureId {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct V;
+        impl serde::de::Visitor<'_> for V {
+            type Value = ExposureId;
+            fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+                f.write_str("an id: a string, or an integer within 64 bits")
+            }
+            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<ExposureId, E> {
+                Ok(ExposureId::Integer(v))
+            }
+            fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<ExposureId, E> {
+                i64::try_from(v).map(ExposureId::Integer).map_err(|_| E::custom("an integer id must fit in 64 bits"))
+            }
+            fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<ExposureId, E> {
+                Ok(ExposureId::Text(v.to_string()))
+            }
+            fn visit_string<E: serde::de::Error>(self, v: String) -> Result<ExposureId, E> {
+                Ok(ExposureId::Text(v))
+            }
+        }
+        d.deserialize_any(V)
     }
 }

@@ -16,7 +16,10 @@ use axum::Extension;
 /// The pmf as bars with the tail shaded, the threshold marked and approximations overlaid, as SVG.
 #[utoipa::path(
     post, path = "/v1/chart", tag = "probabilities",
-    request_body = ChartRequest,
+    request_body(
+        description = "The request as JSON, or as multipart/form-data with the exposures as a table (`TableUpload`)",
+        content((ChartRequest = "application/json"), (crate::api::tables::TableUpload = "multipart/form-data"))
+    ),
     responses(
         (status = 200, description = "An SVG image (deterministic for a given request)", body = String, content_type = "image/svg+xml"),
         ComputingProblems,

@@ -18,7 +18,10 @@ use std::fmt::Write;
 /// The count distribution over a range.
 #[utoipa::path(
     post, path = "/v1/distribution", tag = "analytics",
-    request_body = DistributionRequest,
+    request_body(
+        description = "The request as JSON, or as multipart/form-data with the exposures as a table (`TableUpload`)",
+        content((DistributionRequest = "application/json"), (crate::api::tables::TableUpload = "multipart/form-data"))
+    ),
     responses(
         (status = 200, description = "pmf, cdf and survival over the range (CSV with `Accept: text/csv`)",
             content((DistributionResponse = "application/json"), (String = "text/csv"))),
@@ -48,9 +51,15 @@ fn opt(x: Option<f64>) -> String {
     x.map(|v| format!("{v:e}")).unwrap_or_default()
 }
 
-/// count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound; one row per count (the stressed law under stress).
+/// Leading `# ` comment lines (the assumptions and cautions every answer carries; `comment="#"` in pandas,
+/// skipped rows in a spreadsheet), then count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound; one row per
+/// count (the stressed law under stress). `sf` is P(S > k).
 pub fn to_csv(d: &DistributionResponse) -> String {
-    let mut s = String::from("count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound\n");
+    let mut s = String::new();
+    for a in &d.assumptions {
+        let _ = writeln!(s, "# {}", a.replace(['\r', '\n'], " "));
+    }
+    s.push_str("count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound\n");
     for i in 0..d.pmf.len() {
         let _ = writeln!(
             s,

@@ -2,7 +2,7 @@
 //! it off the async threads, encode the answer), written once by [`json_route!`]; each route file names its
 //! question, types and documentation.
 
-/// A POST route that decodes a JSON question, answers it off the async threads (`api::offload`) and
+/// A POST route that decodes a JSON question (or a multipart one with a table of exposures, `api::tables`), answers it off the async threads (`api::offload`) and
 /// encodes the answer as JSON, with its OpenAPI operation (the shared problem answers included).
 macro_rules! json_route {
     ($(#[$doc:meta])* $name:ident: $question:ty, $req:ty => $resp:ty,
@@ -10,7 +10,10 @@ macro_rules! json_route {
         $(#[$doc])*
         #[utoipa::path(
             post, path = $path, tag = $tag,
-            request_body = $req,
+            request_body(
+                description = "The request as JSON, or as multipart/form-data with the exposures as a table (`TableUpload`)",
+                content(($req = "application/json"), (crate::api::tables::TableUpload = "multipart/form-data"))
+            ),
             responses((status = 200, description = $ok, body = $resp), ComputingProblems)
         )]
         pub async fn $name(
