@@ -5,11 +5,16 @@
 //! 503 beyond) apply to the computing routes only: probes, /metrics and the documents must answer while the
 //! service is saturated. POST /v1/batch is admitted too, but streams: it has no whole-request timeout or
 //! whole-body limit, and applies both to each of its lines instead (`api::batch`).
+//!
+//! The connections themselves (how many, how long a head or an idle wait may take, shutdown within the
+//! grace period) are `connection`'s.
+
+pub mod connection;
 
 use crate::api::metrics::{self, InFlight};
 use crate::api::problem::{Problem, ProblemType};
 use crate::api::{openapi, routes, Admitted, AppState};
-use crate::config::{BatchLimits, Options, ServiceLimits};
+use crate::config::{BatchLimits, ConnectionLimits, Options, ServiceLimits};
 use axum::extract::{DefaultBodyLimit, MatchedPath, Request, State};
 use axum::http::{header, HeaderName, HeaderValue, StatusCode};
 use axum::middleware::{self, Next};
@@ -196,25 +201,56 @@ async fn problem_bodies(req: Request, next: Next) -> Response {
     out
 }
 
+/// What a reserved connection (one beyond --max-connections) answers: the probes and /metrics, and 503
+/// to anything else, so that an orchestrator still sees the process alive when clients hold every
+/// connection. Each such connection serves one request.
+fn probes_router() -> Router {
+    async fn busy() -> Response {
+        let mut res =
+            Problem::overloaded("every connection is taken (see --max-connections); only the probes answer now")
+                .into_response();
+        res.headers_mut().insert(header::RETRY_AFTER, HeaderValue::from_static("1"));
+        res
+    }
+    Router::new()
+        .route("/healthz", get(routes::health::healthz))
+        .route("/readyz", get(routes::health::readyz))
+        .route("/metrics", get(routes::metrics::metrics))
+        .fallback(busy)
+}
+
 /// A bound listener with its application, ready to serve.
 pub struct App {
     listener: TcpListener,
     router: Router,
+    limits: ConnectionLimits,
 }
+
+/// File descriptors kept for the listener, standard streams and the rest of the process.
+const SPARE_FILES: usize = 64;
 
 impl App {
     pub async fn bind(opts: &Options) -> std::io::Result<App> {
         let listener = TcpListener::bind(&opts.listen).await?;
-        Ok(App { listener, router: router(opts) })
+        let mut limits = ConnectionLimits::from_options(opts);
+        if let Some(files) = connection::fit_to_open_files(&mut limits, connection::open_files_limit(), SPARE_FILES) {
+            tracing::warn!(
+                open_files = files,
+                max_connections = limits.max_connections,
+                "the open files limit cannot hold --max-connections and --reserved-connections; connections lowered to fit (raise `ulimit -n`)"
+            );
+        }
+        Ok(App { listener, router: router(opts), limits })
     }
 
     pub fn local_addr(&self) -> SocketAddr {
         self.listener.local_addr().expect("bound")
     }
 
-    /// Serve until `shutdown` resolves; then stop accepting and finish the requests in flight.
+    /// Serve until `shutdown` resolves; then stop accepting, let the requests in flight finish within the
+    /// grace period (--shutdown-grace-secs), and abandon what remains.
     pub async fn serve(self, shutdown: impl Future<Output = ()> + Send + 'static) -> std::io::Result<()> {
-        axum::serve(self.listener, self.router).with_graceful_shutdown(shutdown).await
+        connection::serve(self.listener, self.router, probes_router(), self.limits, shutdown).await
     }
 }
 
