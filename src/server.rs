@@ -6,10 +6,13 @@
 //! service is saturated. POST /v1/batch is admitted too, but streams: it has no whole-request timeout or
 //! whole-body limit, and applies both to each of its lines instead (`api::batch`).
 //!
-//! The connections themselves (how many, how long a head or an idle wait may take, shutdown within the
-//! grace period) are `connection`'s.
+//! A computing request's body is read in full before it asks for a turn, within the body deadline and the
+//! budget of body bytes in flight (`intake`); a batch's body is paced and budgeted as it streams. The
+//! connections themselves (how many, how long a head or an idle wait may take, shutdown within the grace
+//! period) are `connection`'s.
 
 pub mod connection;
+pub mod intake;
 
 use crate::api::metrics::{self, InFlight};
 use crate::api::problem::{Problem, ProblemType};
@@ -37,12 +40,17 @@ use tower_http::timeout::TimeoutLayer;
 use tower_http::trace::TraceLayer;
 
 pub fn router(opts: &Options) -> Router {
+    router_with(opts, intake::Intake::new(opts))
+}
+
+fn router_with(opts: &Options, intake: Arc<intake::Intake>) -> Router {
     let state =
         AppState { limits: Arc::new(ServiceLimits::from_options(opts)), batch: BatchLimits::from_options(opts) };
     let request_id = HeaderName::from_static("x-request-id");
     let admission = Admission::new(opts.max_concurrency, opts.max_queued);
-    // `route_layer` covers only the routes added before it: the computing ones. Queued time counts towards
-    // the timeout, so the timeout is the outer of the two.
+    // `route_layer` covers only the routes added before it: the computing ones. Reading the body and the
+    // queued time count towards the timeout, so the timeout is the outermost; the body is read before the
+    // request asks for a turn, so that a slow client holds none.
     let computing = Router::new()
         .route("/v1/tail", post(routes::tail::tail))
         .route("/v1/quantiles", post(routes::quantiles::quantiles))
@@ -53,6 +61,7 @@ pub fn router(opts: &Options) -> Router {
         .route_layer(
             ServiceBuilder::new()
                 .layer(TimeoutLayer::with_status_code(StatusCode::REQUEST_TIMEOUT, opts.request_timeout()))
+                .layer(middleware::from_fn_with_state(intake.clone(), intake::read_first))
                 .layer(middleware::from_fn_with_state(admission.clone(), admit)),
         )
         .route("/", get(routes::page::explorer))
@@ -63,10 +72,12 @@ pub fn router(opts: &Options) -> Router {
         .route("/openapi.json", get(openapi_json))
         .layer(RequestBodyLimitLayer::new(opts.max_body_bytes));
     // A batch is admitted like any computing request but has neither the whole-request timeout nor the
-    // whole-body limit: it streams, each line within the request timeout and the body limit.
-    let batch = Router::new()
-        .route("/v1/batch", post(routes::batch::batch))
-        .route_layer(middleware::from_fn_with_state(admission, admit));
+    // whole-body limit: it streams, each line within the request timeout and the body limit, its body paced.
+    let batch = Router::new().route("/v1/batch", post(routes::batch::batch)).route_layer(
+        ServiceBuilder::new()
+            .layer(middleware::from_fn_with_state(intake, intake::pace))
+            .layer(middleware::from_fn_with_state(admission, admit)),
+    );
     let api = computing.merge(batch).fallback(not_found).with_state(state);
     api.layer(
         ServiceBuilder::new()
@@ -240,7 +251,15 @@ impl App {
                 "the open files limit cannot hold --max-connections and --reserved-connections; connections lowered to fit (raise `ulimit -n`)"
             );
         }
-        Ok(App { listener, router: router(opts), limits })
+        let intake = intake::Intake::new(opts);
+        if opts.max_body_bytes > intake.budget_bytes() {
+            tracing::warn!(
+                max_body_bytes = opts.max_body_bytes,
+                budget = intake.budget_bytes(),
+                "--max-body-bytes exceeds the budget of body bytes in flight: larger bodies are refused with 413"
+            );
+        }
+        Ok(App { listener, router: router_with(opts, intake), limits })
     }
 
     pub fn local_addr(&self) -> SocketAddr {

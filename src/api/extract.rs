@@ -2,6 +2,9 @@
 //! problem-details document: 415 for a wrong content type, 413 beyond the size limit, 400 for malformed JSON
 //! and 422, with the JSON pointer of the field, for JSON of the wrong shape (a string where a number belongs,
 //! a negative count, an unknown field).
+//!
+//! Bodies over `PARSE_OFF_THREAD_BYTES` are parsed on the blocking pool: a 200 MB document takes about a
+//! second to parse, which on an async worker would keep the probes waiting.
 
 use super::problem::{escape_token, Problem};
 use crate::portfolio::Violation;
@@ -9,13 +12,23 @@ use axum::body::Bytes;
 use axum::extract::{FromRequest, Request};
 use axum::http::header;
 use serde::de::DeserializeOwned;
+use std::sync::Arc;
 
 pub struct Body<T>(pub T);
 
-impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for Body<T> {
+/// Bodies larger than this are parsed off the async worker threads.
+pub const PARSE_OFF_THREAD_BYTES: usize = 1 << 20;
+
+/// The share of the in-flight body budget that a request's body holds (`server::intake`), left in the
+/// request's extensions; `Body` keeps it until the body is parsed, the buffer then being freed.
+#[derive(Clone)]
+pub struct BodyPermit(pub Arc<dyn Send + Sync>);
+
+impl<S: Send + Sync, T: DeserializeOwned + Send + 'static> FromRequest<S> for Body<T> {
     type Rejection = Problem;
 
-    async fn from_request(req: Request, state: &S) -> Result<Self, Problem> {
+    async fn from_request(mut req: Request, state: &S) -> Result<Self, Problem> {
+        let held = req.extensions_mut().remove::<BodyPermit>();
         let ctype = req.headers().get(header::CONTENT_TYPE).and_then(|v| v.to_str().ok()).unwrap_or("");
         let mime = ctype.split(';').next().unwrap_or("").trim().to_ascii_lowercase();
         if mime != "application/json" && !(mime.starts_with("application/") && mime.ends_with("+json")) {
@@ -31,7 +44,15 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for Body<T> {
                 Problem::malformed(format!("could not read the request body: {e}"))
             }
         })?;
-        parse(&bytes).map(Body)
+        let parsed = if bytes.len() > PARSE_OFF_THREAD_BYTES {
+            tokio::task::spawn_blocking(move || parse::<T>(&bytes))
+                .await
+                .map_err(|e| Problem::internal(format!("parsing the request failed: {e}")))?
+        } else {
+            parse(&bytes)
+        };
+        drop(held);
+        parsed.map(Body)
     }
 }
 

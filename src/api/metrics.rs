@@ -3,7 +3,7 @@
 //! A small registry of atomics instead of a metrics crate: the service needs four families (requests by
 //! route, method and status; latency histograms by route and method; requests in flight; problems by type),
 //! a counter of exposures processed, two gauges of the admission control (running, queued), and the
-//! connection figures of the guard (`server::connection`). There is one
+//! connection and body-budget figures of the guards (`server::connection`, `server::intake`). There is one
 //! registry per process, like the default registry of a Prometheus client, so that handlers can count
 //! without carrying state. Label values are bounded: the route is axum's matched template (or `unmatched`),
 //! the method one of the standard ones (or `other`), the problem type one of the service's fixed slugs.
@@ -71,6 +71,7 @@ struct Registry {
     connections: [AtomicI64; 2],
     refused: AtomicU64,
     closed: [AtomicU64; CLOSE_REASONS.len()],
+    body_bytes: AtomicI64,
 }
 
 /// Why the server closed a connection on its own (`connection_closed`), as label values.
@@ -87,6 +88,7 @@ static REGISTRY: LazyLock<Registry> = LazyLock::new(|| Registry {
     connections: [AtomicI64::new(0), AtomicI64::new(0)],
     refused: AtomicU64::new(0),
     closed: Default::default(),
+    body_bytes: AtomicI64::new(0),
 });
 
 /// Holds one unit of a gauge until dropped.
@@ -127,6 +129,11 @@ pub fn connection_closed(reason: &str) {
     if let Some(i) = CLOSE_REASONS.iter().position(|r| *r == reason) {
         REGISTRY.closed[i].fetch_add(1, Relaxed);
     }
+}
+
+/// Request body bytes now held in memory (`--max-body-bytes-in-flight`), changed by `delta`.
+pub fn body_bytes_held(delta: i64) {
+    REGISTRY.body_bytes.fetch_add(delta, Relaxed);
 }
 
 /// Count the exposures of a validated portfolio (group sizes included), once per request.
@@ -268,6 +275,9 @@ pub fn render() -> String {
     for (reason, c) in CLOSE_REASONS.iter().zip(&r.closed) {
         let _ = writeln!(out, "{name}{{reason=\"{reason}\"}} {}", c.load(Relaxed));
     }
+    let name = "tailtally_body_bytes_in_flight";
+    header(&mut out, name, "gauge", "Request body bytes held in memory (at most --max-body-bytes-in-flight).");
+    let _ = writeln!(out, "{name} {}", r.body_bytes.load(Relaxed));
 
     let name = "tailtally_exposures_processed_total";
     header(&mut out, name, "counter", "Exposures (group sizes included) in validated portfolios.");
