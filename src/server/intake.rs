@@ -30,7 +30,10 @@ use std::time::Duration;
 use tokio::sync::{OwnedSemaphorePermit, Semaphore};
 use tokio::time::Instant;
 
-/// Longest wait for room in the budget before a 503.
+/// Longest wait for room in the budget, over all of a request's waits, before a 503. A total rather than a
+/// wait per chunk: when more bodies are arriving than fit, sharing the room out fairly chunk by chunk would
+/// let all of them creep forward and none finish; with a total, the ones that have waited longest give up
+/// theirs and the others finish.
 pub const BUDGET_WAIT: Duration = Duration::from_secs(1);
 
 /// Inflated bytes copied between two yields to the scheduler: a gzip bomb inflates without waiting for the
@@ -108,7 +111,7 @@ impl Budget {
     }
 
     fn hold(&self) -> Held {
-        Held { budget: self.clone(), permit: None, bytes: 0 }
+        Held { budget: self.clone(), permit: None, bytes: 0, waited: Duration::ZERO }
     }
 }
 
@@ -117,10 +120,12 @@ struct Held {
     budget: Budget,
     permit: Option<OwnedSemaphorePermit>,
     bytes: usize,
+    /// Time spent waiting for room so far.
+    waited: Duration,
 }
 
 impl Held {
-    /// Take `n` more bytes, waiting up to `BUDGET_WAIT`.
+    /// Take `n` more bytes, waiting at most what is left of `BUDGET_WAIT`.
     async fn grow(&mut self, n: usize) -> Result<(), Refused> {
         if n == 0 {
             return Ok(());
@@ -145,7 +150,10 @@ impl Held {
             }
             Ok::<_, Refused>(got)
         };
-        let got = tokio::time::timeout(BUDGET_WAIT, take).await.map_err(|_| Refused::Busy)??;
+        let started = Instant::now();
+        let got = tokio::time::timeout(BUDGET_WAIT.saturating_sub(self.waited), take).await;
+        self.waited += started.elapsed();
+        let got = got.map_err(|_| Refused::Busy)??;
         if let Some(p) = got {
             match self.permit.as_mut() {
                 Some(mine) => mine.merge(p),
@@ -370,6 +378,37 @@ mod tests {
         assert_eq!(b.sem.available_permits(), 100);
         drop(c);
         assert_eq!(b.sem.available_permits(), 100);
+    }
+
+    #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+    async fn when_more_bodies_arrive_than_fit_some_finish_and_the_rest_give_up_within_the_wait() {
+        // 32 bodies of 1 MiB, taken 4 KiB at a time, against a budget of 4 MiB: shared out chunk by chunk
+        // none would finish; with one total wait per request the first to wait give up and the rest finish.
+        let b = Budget::new(4 << 20);
+        let started = Instant::now();
+        let bodies: Vec<_> = (0..32)
+            .map(|_| {
+                let b = b.clone();
+                tokio::spawn(async move {
+                    let mut h = b.hold();
+                    for _ in 0..(1 << 20) / 4096 {
+                        h.grow(4096).await?;
+                        tokio::task::yield_now().await;
+                    }
+                    Ok::<_, Refused>(())
+                })
+            })
+            .collect();
+        let mut finished = 0;
+        for body in bodies {
+            match body.await.unwrap() {
+                Ok(()) => finished += 1,
+                Err(r) => assert_eq!(r, Refused::Busy),
+            }
+        }
+        assert!(finished >= 1, "none finished");
+        assert!(started.elapsed() < BUDGET_WAIT * 5, "{:?}", started.elapsed());
+        assert_eq!(b.sem.available_permits(), 4 << 20);
     }
 
     #[tokio::test]
