@@ -2,9 +2,9 @@
 //! limits below.
 //!
 //! - At most `max_connections` connections are served in full, and `reserved_connections` more answer only
-//!   the probes and /metrics, one request each: a client that opens thousands of connections takes the
-//!   service's file descriptors no further, and the orchestrator still sees /healthz. Beyond both, a
-//!   connection gets a best-effort 503 and is closed at once.
+//!   the probes and /metrics, one request each and with at most a second to send it: a client that opens
+//!   thousands of connections takes the service's file descriptors no further, and the orchestrator still
+//!   sees /healthz. Beyond both, a connection gets a best-effort 503 and is closed at once.
 //! - Each connection has a watchdog: the request head must arrive within the header timeout (counted from
 //!   the connection's start, or from the first byte of a later request), an idle keep-alive connection is
 //!   closed after the keep-alive timeout, and a connection whose answer the client does not read (every
@@ -151,6 +151,10 @@ fn refuse(stream: TcpStream) {
     let _ = stream.try_write(&REFUSAL);
 }
 
+/// The head timeout of a reserved connection: a probe sends its request at once, and a flood of idle
+/// connections must not keep the reserved places for the full header timeout.
+const RESERVED_HEAD_TIMEOUT: Duration = Duration::from_secs(1);
+
 struct Conn {
     service: Router,
     reserved: bool,
@@ -160,6 +164,12 @@ struct Conn {
 impl Conn {
     async fn run(self, stream: TcpStream, limits: Arc<ConnectionLimits>, mut stopping: watch::Receiver<()>) {
         let _open = metrics::connection_open(self.reserved);
+        let limits = if self.reserved {
+            let head = limits.header_read_timeout.min(RESERVED_HEAD_TIMEOUT);
+            Arc::new(ConnectionLimits { header_read_timeout: head, ..(*limits).clone() })
+        } else {
+            limits
+        };
         let watch = Arc::new(Watch::new());
         let io = TokioIo::new(Watched { inner: stream, watch: watch.clone() });
         let (service, w) = (self.service, watch.clone());
