@@ -1,5 +1,5 @@
 //! The real binary against abusive clients, over plain sockets: partial heads, idle keep-alive connections,
-//! more connections than the cap, bodies that trickle, bodies beyond the in-flight budget, and SIGTERM while
+//! more connections than the cap (and than the reserved places), bodies that trickle, bodies beyond the in-flight budget, and SIGTERM while
 //! a client holds an upload. Each test starts the server with small limits so that it is quick; what is
 //! checked is the mechanism (cut off, refused, answered), with timing checks no tighter than "within three
 //! times the limit".
@@ -230,7 +230,7 @@ fn an_idle_keep_alive_connection_is_closed_after_the_keep_alive_timeout() {
 }
 
 #[test]
-fn over_the_connection_cap_only_the_probes_answer_and_then_connections_are_refused() {
+fn over_the_connection_cap_only_the_probes_answer_silent_ones_give_way_and_then_connections_are_refused() {
     let p = Process::start(&["--max-connections", "3", "--reserved-connections", "1"]);
     // Three idle connections take every full place (accepted in order, before any that follows).
     let idle: Vec<TcpStream> = (0..3).map(|_| connect(&p)).collect();
@@ -246,17 +246,29 @@ fn over_the_connection_cap_only_the_probes_answer_and_then_connections_are_refus
     let v = body_json(&raw);
     assert_eq!(v["type"], "/problems/overloaded");
     assert!(v["detail"].as_str().unwrap().contains("only the probes answer"), "{v}");
-    // With the reserved place held too, a connection is closed at once (after a 503 when it gets through).
+    // A reserved place held by a connection that says nothing gives way to a newcomer (a probe speaks at
+    // once, a flood of idle connections does not)...
     // (The connection that reads /metrics is on the reserved place itself.)
     wait_for(&p, "tailtally_connections_open{kind=\"reserved\"}", |v| v == 1.0);
     std::thread::sleep(Duration::from_millis(100));
-    let holder = connect(&p);
+    let silent = connect(&p);
+    std::thread::sleep(Duration::from_millis(100));
+    let raw = on_reserved_place(&p, b"GET /healthz HTTP/1.1\r\nhost: x\r\n\r\n");
+    assert_eq!(status_of(&raw), Some(200), "{}", String::from_utf8_lossy(&raw));
+    assert!(time_to_close(silent) < Duration::from_millis(900), "the silent connection kept its place");
+    assert!(metric(&p, "tailtally_connections_closed_total{reason=\"evicted\"}") >= 1.0);
+    // ...but one that has begun its request keeps it, and then a connection is closed at once (after a
+    // 503 when it gets through).
+    wait_for(&p, "tailtally_connections_open{kind=\"reserved\"}", |v| v == 1.0);
+    std::thread::sleep(Duration::from_millis(100));
+    let mut speaking = connect(&p);
+    speaking.write_all(b"GET /healthz HTTP/1.1\r\n").unwrap();
     std::thread::sleep(Duration::from_millis(100));
     let mut refused = connect(&p);
     let _ = refused.write_all(b"GET /healthz HTTP/1.1\r\nhost: x\r\n\r\n");
     let raw = read_until_closed(&mut refused);
     assert!(raw.is_empty() || status_of(&raw) == Some(503), "{}", String::from_utf8_lossy(&raw));
-    drop(holder);
+    drop(speaking);
     assert!(metric(&p, "tailtally_connections_refused_total ") >= 1.0);
     // A full place given back serves computing requests again.
     drop(idle);

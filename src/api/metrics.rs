@@ -75,7 +75,7 @@ struct Registry {
 }
 
 /// Why the server closed a connection on its own (`connection_closed`), as label values.
-pub const CLOSE_REASONS: [&str; 4] = ["header-timeout", "keep-alive-timeout", "send-timeout", "shutdown"];
+pub const CLOSE_REASONS: [&str; 5] = ["header-timeout", "keep-alive-timeout", "send-timeout", "evicted", "shutdown"];
 
 static REGISTRY: LazyLock<Registry> = LazyLock::new(|| Registry {
     requests: Family::new(),

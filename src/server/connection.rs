@@ -4,7 +4,9 @@
 //! - At most `max_connections` connections are served in full, and `reserved_connections` more answer only
 //!   the probes and /metrics, one request each and with at most a second to send it: a client that opens
 //!   thousands of connections takes the service's file descriptors no further, and the orchestrator still
-//!   sees /healthz. Beyond both, a connection gets a best-effort 503 and is closed at once.
+//!   sees /healthz. When the reserved places are all taken, a newcomer takes the place of the oldest
+//!   reserved connection that has sent nothing yet (a probe speaks at once, a flood of idle connections
+//!   does not). Beyond that, a connection gets a best-effort 503 and is closed at once.
 //! - Each connection has a watchdog: the request head must arrive within the header timeout (counted from
 //!   the connection's start, or from the first byte of a later request), an idle keep-alive connection is
 //!   closed after the keep-alive timeout, and a connection whose answer the client does not read (every
@@ -45,7 +47,7 @@ pub async fn serve(
 ) -> io::Result<()> {
     let limits = Arc::new(limits);
     let full = Arc::new(Semaphore::new(limits.max_connections.min(Semaphore::MAX_PERMITS)));
-    let reserved = Arc::new(Semaphore::new(limits.reserved_connections.min(Semaphore::MAX_PERMITS)));
+    let reserved = Arc::new(Reserved::new(limits.reserved_connections));
     let (stop, stopping) = watch::channel(());
     let mut conns = JoinSet::new();
     tokio::pin!(shutdown);
@@ -63,15 +65,30 @@ pub async fn serve(
                     }
                 };
                 let _ = stream.set_nodelay(true);
-                let conn = if let Ok(place) = full.clone().try_acquire_owned() {
-                    Conn { service: app.clone(), reserved: false, _place: place }
-                } else if let Ok(place) = reserved.clone().try_acquire_owned() {
-                    Conn { service: probes.clone(), reserved: true, _place: place }
+                let (limits, stopping) = (limits.clone(), stopping.clone());
+                if let Ok(place) = full.clone().try_acquire_owned() {
+                    let conn = Conn { service: app.clone(), reserved: None, _place: place };
+                    conns.spawn(conn.run(stream, limits, stopping));
+                } else if let Ok(place) = reserved.places.clone().try_acquire_owned() {
+                    let conn = Conn { service: probes.clone(), reserved: Some(reserved.clone()), _place: place };
+                    conns.spawn(conn.run(stream, limits, stopping));
+                } else if let Some(waiting) = reserved.evict_for_newcomer() {
+                    // The evicted connection gives its place back when its task ends, a moment from now.
+                    let (reserved, probes) = (reserved.clone(), probes.clone());
+                    conns.spawn(async move {
+                        let _waiting = waiting;
+                        let place = tokio::time::timeout(EVICTION_WAIT, reserved.places.clone().acquire_owned()).await;
+                        match place {
+                            Ok(Ok(place)) => {
+                                let conn = Conn { service: probes, reserved: Some(reserved), _place: place };
+                                conn.run(stream, limits, stopping).await;
+                            }
+                            _ => refuse(stream),
+                        }
+                    });
                 } else {
                     refuse(stream);
-                    continue;
-                };
-                conns.spawn(conn.run(stream, limits.clone(), stopping.clone()));
+                }
             }
         }
     }
@@ -111,16 +128,58 @@ pub fn open_files_limit() -> Option<usize> {
     line["Max open files".len()..].split_whitespace().next()?.parse().ok()
 }
 
-/// Lower `max_connections` so that every connection, reserved ones included, has a file descriptor, with
-/// `spare` left for the listener and the rest of the process. Returns the limit it had to fit, if it did.
+/// Lower `max_connections` so that every connection, reserved ones and their newcomers waiting for an
+/// evicted place included, has a file descriptor, with `spare` left for the listener and the rest of the
+/// process. Returns the limit it had to fit, if it did.
 pub fn fit_to_open_files(limits: &mut ConnectionLimits, files: Option<usize>, spare: usize) -> Option<usize> {
     let files = files?;
-    let need = limits.max_connections.saturating_add(limits.reserved_connections).saturating_add(spare);
-    if need <= files {
+    let others = limits.reserved_connections.saturating_mul(2).saturating_add(spare);
+    if limits.max_connections.saturating_add(others) <= files {
         return None;
     }
-    limits.max_connections = files.saturating_sub(limits.reserved_connections + spare).max(1);
+    limits.max_connections = files.saturating_sub(others).max(1);
     Some(files)
+}
+
+/// How long a newcomer waits for the place of the reserved connection it evicted.
+const EVICTION_WAIT: Duration = Duration::from_millis(200);
+
+/// The reserved places, and the watchdogs of the connections on them (to pick one to evict).
+struct Reserved {
+    places: Arc<Semaphore>,
+    /// Newcomers waiting for an evicted place: at most one per place.
+    waiting: Arc<Semaphore>,
+    live: Mutex<Vec<Arc<Watch>>>,
+}
+
+impl Reserved {
+    fn new(n: usize) -> Reserved {
+        let n = n.min(Semaphore::MAX_PERMITS);
+        Reserved { places: Arc::new(Semaphore::new(n)), waiting: Arc::new(Semaphore::new(n)), live: Mutex::new(vec![]) }
+    }
+
+    fn live(&self) -> MutexGuard<'_, Vec<Arc<Watch>>> {
+        self.live.lock().unwrap_or_else(|e| e.into_inner())
+    }
+
+    /// Tell the oldest reserved connection that has sent nothing to close, if there is one (and room for
+    /// the newcomer to wait); the newcomer's waiting place.
+    fn evict_for_newcomer(&self) -> Option<OwnedSemaphorePermit> {
+        let waiting = self.waiting.clone().try_acquire_owned().ok()?;
+        let live = self.live();
+        let victim = live
+            .iter()
+            .filter_map(|w| {
+                let p = w.phase();
+                (p.busy == 0 && !p.answered && p.first_byte.is_none() && !p.evicted).then_some((p.since, w))
+            })
+            .min_by_key(|(since, _)| *since)
+            .map(|(_, w)| w.clone())?;
+        drop(live);
+        victim.phase().evicted = true;
+        victim.changed.notify_one();
+        Some(waiting)
+    }
 }
 
 /// Errors of one connection (its peer went away) are not the listener's; others (EMFILE, ENFILE, ENOBUFS)
@@ -157,20 +216,36 @@ const RESERVED_HEAD_TIMEOUT: Duration = Duration::from_secs(1);
 
 struct Conn {
     service: Router,
-    reserved: bool,
+    /// The reserved places, for a connection on one of them.
+    reserved: Option<Arc<Reserved>>,
     _place: OwnedSemaphorePermit,
+}
+
+/// Removes a reserved connection's watchdog from the list of candidates for eviction.
+struct Listed(Arc<Reserved>, Arc<Watch>);
+
+impl Drop for Listed {
+    fn drop(&mut self) {
+        self.0.live().retain(|w| !Arc::ptr_eq(w, &self.1));
+    }
 }
 
 impl Conn {
     async fn run(self, stream: TcpStream, limits: Arc<ConnectionLimits>, mut stopping: watch::Receiver<()>) {
-        let _open = metrics::connection_open(self.reserved);
-        let limits = if self.reserved {
-            let head = limits.header_read_timeout.min(RESERVED_HEAD_TIMEOUT);
-            Arc::new(ConnectionLimits { header_read_timeout: head, ..(*limits).clone() })
-        } else {
-            limits
-        };
+        let _open = metrics::connection_open(self.reserved.is_some());
         let watch = Arc::new(Watch::new());
+        let (limits, _listed) = match self.reserved {
+            Some(reserved) => {
+                let head = limits.header_read_timeout.min(RESERVED_HEAD_TIMEOUT);
+                reserved.live().push(watch.clone());
+                (
+                    Arc::new(ConnectionLimits { header_read_timeout: head, ..(*limits).clone() }),
+                    Some(Listed(reserved, watch.clone())),
+                )
+            }
+            None => (limits, None),
+        };
+        let keep_alive = _listed.is_none();
         let io = TokioIo::new(Watched { inner: stream, watch: watch.clone() });
         let (service, w) = (self.service, watch.clone());
         let service = hyper::service::service_fn(move |req: hyper::Request<Incoming>| {
@@ -183,7 +258,7 @@ impl Conn {
         });
         let mut builder = http1::Builder::new();
         // The watchdog keeps the time; hyper's own header timer would also cut idle keep-alive connections.
-        builder.keep_alive(!self.reserved).header_read_timeout(None);
+        builder.keep_alive(keep_alive).header_read_timeout(None);
         let conn = builder.serve_connection(io, service);
         tokio::pin!(conn);
         let mut stop_seen = false;
@@ -222,11 +297,20 @@ struct Phase {
     first_byte: Option<Instant>,
     /// Since when every write has been refused by the socket.
     send_blocked: Option<Instant>,
+    /// Told to make room for a newcomer (a reserved connection that had sent nothing).
+    evicted: bool,
 }
 
 impl Watch {
     fn new() -> Watch {
-        let phase = Phase { busy: 0, since: Instant::now(), answered: false, first_byte: None, send_blocked: None };
+        let phase = Phase {
+            busy: 0,
+            since: Instant::now(),
+            answered: false,
+            first_byte: None,
+            send_blocked: None,
+            evicted: false,
+        };
         Watch { phase: Mutex::new(phase), changed: Notify::new() }
     }
 
@@ -262,6 +346,9 @@ impl Watch {
     /// The earliest limit that applies now, and its name.
     fn deadline(&self, l: &ConnectionLimits) -> Option<(Instant, &'static str)> {
         let p = self.phase();
+        if p.evicted {
+            return Some((Instant::now(), "evicted"));
+        }
         let head = (p.busy == 0).then(|| match p.first_byte {
             Some(t) => (t + l.header_read_timeout, "header-timeout"),
             None if p.answered => (p.since + l.keep_alive_timeout, "keep-alive-timeout"),
@@ -408,7 +495,7 @@ mod tests {
         assert_eq!(fit_to_open_files(&mut l, Some(1 << 20), 64), None);
         assert_eq!(l.max_connections, 4096);
         assert_eq!(fit_to_open_files(&mut l, Some(1024), 64), Some(1024));
-        assert_eq!(l.max_connections, 1024 - 32 - 64);
+        assert_eq!(l.max_connections, 1024 - 2 * 32 - 64);
         assert_eq!(fit_to_open_files(&mut l, None, 64), None);
     }
 
