@@ -251,8 +251,18 @@ fn over_the_connection_cap_only_the_probes_answer_silent_ones_give_way_and_then_
     // (The connection that reads /metrics is on the reserved place itself.)
     wait_for(&p, "tailtally_connections_open{kind=\"reserved\"}", |v| v == 1.0);
     std::thread::sleep(Duration::from_millis(100));
-    let silent = connect(&p);
+    let mut silent = connect(&p);
     std::thread::sleep(Duration::from_millis(100));
+    // (Another newcomer that says nothing is refused, and the holder keeps its place.)
+    let mut mute = connect(&p);
+    let raw = read_until_closed(&mut mute);
+    assert!(raw.is_empty() || status_of(&raw) == Some(503), "{}", String::from_utf8_lossy(&raw));
+    silent.set_nonblocking(true).unwrap();
+    assert!(
+        matches!(silent.read(&mut [0u8; 1]), Err(e) if e.kind() == std::io::ErrorKind::WouldBlock),
+        "evicted by a mute newcomer"
+    );
+    silent.set_nonblocking(false).unwrap();
     let raw = on_reserved_place(&p, b"GET /healthz HTTP/1.1\r\nhost: x\r\n\r\n");
     assert_eq!(status_of(&raw), Some(200), "{}", String::from_utf8_lossy(&raw));
     assert!(time_to_close(silent) < Duration::from_millis(900), "the silent connection kept its place");

@@ -4,9 +4,9 @@
 //! - At most `max_connections` connections are served in full, and `reserved_connections` more answer only
 //!   the probes and /metrics, one request each and with at most a second to send it: a client that opens
 //!   thousands of connections takes the service's file descriptors no further, and the orchestrator still
-//!   sees /healthz. When the reserved places are all taken, a newcomer takes the place of the oldest
-//!   reserved connection that has sent nothing yet (a probe speaks at once, a flood of idle connections
-//!   does not). Beyond that, a connection gets a best-effort 503 and is closed at once.
+//!   sees /healthz. When the reserved places are all taken, a newcomer that speaks takes the place of the
+//!   oldest reserved connection that has sent nothing yet (a probe speaks at once, a flood of idle
+//!   connections does not). Beyond that, a connection gets a best-effort 503 and is closed at once.
 //! - Each connection has a watchdog: the request head must arrive within the header timeout (counted from
 //!   the connection's start, or from the first byte of a later request), an idle keep-alive connection is
 //!   closed after the keep-alive timeout, and a connection whose answer the client does not read (every
@@ -72,18 +72,26 @@ pub async fn serve(
                 } else if let Ok(place) = reserved.places.clone().try_acquire_owned() {
                     let conn = Conn { service: probes.clone(), reserved: Some(reserved.clone()), _place: place };
                     conns.spawn(conn.run(stream, limits, stopping));
-                } else if let Some(waiting) = reserved.evict_for_newcomer() {
-                    // The evicted connection gives its place back when its task ends, a moment from now.
+                } else if has_spoken(&stream) {
+                    // Under a flood the request of a probe has arrived by the time it is accepted.
+                    match reserved.evict_for_newcomer() {
+                        Some(waiting) => {
+                            conns.spawn(take_evicted_place(stream, waiting, reserved.clone(), probes.clone(), limits, stopping));
+                        }
+                        None => refuse(stream),
+                    }
+                } else if let Ok(listening) = reserved.listening.clone().try_acquire_owned() {
+                    // Otherwise it is given a moment to speak.
                     let (reserved, probes) = (reserved.clone(), probes.clone());
                     conns.spawn(async move {
-                        let _waiting = waiting;
-                        let place = tokio::time::timeout(EVICTION_WAIT, reserved.places.clone().acquire_owned()).await;
-                        match place {
-                            Ok(Ok(place)) => {
-                                let conn = Conn { service: probes, reserved: Some(reserved), _place: place };
-                                conn.run(stream, limits, stopping).await;
-                            }
-                            _ => refuse(stream),
+                        let readable = tokio::time::timeout(SPEAK_WAIT, stream.readable()).await;
+                        // Readable may also mean that the client has gone.
+                        let spoke = matches!(readable, Ok(Ok(()))) && has_spoken(&stream);
+                        drop(listening);
+                        let waiting = if spoke { reserved.evict_for_newcomer() } else { None };
+                        match waiting {
+                            Some(waiting) => take_evicted_place(stream, waiting, reserved, probes, limits, stopping).await,
+                            None => refuse(stream),
                         }
                     });
                 } else {
@@ -128,12 +136,12 @@ pub fn open_files_limit() -> Option<usize> {
     line["Max open files".len()..].split_whitespace().next()?.parse().ok()
 }
 
-/// Lower `max_connections` so that every connection, reserved ones and their newcomers waiting for an
-/// evicted place included, has a file descriptor, with `spare` left for the listener and the rest of the
+/// Lower `max_connections` so that every connection, reserved ones and the newcomers waiting for one of
+/// their places included, has a file descriptor, with `spare` left for the listener and the rest of the
 /// process. Returns the limit it had to fit, if it did.
 pub fn fit_to_open_files(limits: &mut ConnectionLimits, files: Option<usize>, spare: usize) -> Option<usize> {
     let files = files?;
-    let others = limits.reserved_connections.saturating_mul(2).saturating_add(spare);
+    let others = limits.reserved_connections.saturating_mul(3).saturating_add(spare);
     if limits.max_connections.saturating_add(others) <= files {
         return None;
     }
@@ -144,18 +152,53 @@ pub fn fit_to_open_files(limits: &mut ConnectionLimits, files: Option<usize>, sp
 /// How long a newcomer waits for the place of the reserved connection it evicted.
 const EVICTION_WAIT: Duration = Duration::from_millis(200);
 
+/// How long a newcomer that finds the reserved places taken may take to send its first byte.
+const SPEAK_WAIT: Duration = Duration::from_millis(50);
+
+/// Whether the client has sent something already (peeked, so hyper still reads it).
+fn has_spoken(stream: &TcpStream) -> bool {
+    let mut buf = [std::mem::MaybeUninit::<u8>::uninit(); 1];
+    matches!(socket2::SockRef::from(stream).peek(&mut buf), Ok(n) if n > 0)
+}
+
+/// Serve a newcomer on the place of the reserved connection it evicted, once that one has given it back.
+async fn take_evicted_place(
+    stream: TcpStream,
+    waiting: OwnedSemaphorePermit,
+    reserved: Arc<Reserved>,
+    probes: Router,
+    limits: Arc<ConnectionLimits>,
+    stopping: watch::Receiver<()>,
+) {
+    let place = tokio::time::timeout(EVICTION_WAIT, reserved.places.clone().acquire_owned()).await;
+    drop(waiting);
+    match place {
+        Ok(Ok(place)) => {
+            Conn { service: probes, reserved: Some(reserved), _place: place }.run(stream, limits, stopping).await
+        }
+        _ => refuse(stream),
+    }
+}
+
 /// The reserved places, and the watchdogs of the connections on them (to pick one to evict).
+///
+/// When the places are all taken, a newcomer that speaks (at once, or within `SPEAK_WAIT`) may take the
+/// place of the oldest one that has sent nothing; newcomers that say nothing are refused. Each kind of
+/// newcomer in waiting is bounded by the number of places.
 struct Reserved {
     places: Arc<Semaphore>,
-    /// Newcomers waiting for an evicted place: at most one per place.
+    /// Newcomers waiting for an evicted place.
     waiting: Arc<Semaphore>,
+    /// Newcomers given a moment to speak.
+    listening: Arc<Semaphore>,
     live: Mutex<Vec<Arc<Watch>>>,
 }
 
 impl Reserved {
     fn new(n: usize) -> Reserved {
         let n = n.min(Semaphore::MAX_PERMITS);
-        Reserved { places: Arc::new(Semaphore::new(n)), waiting: Arc::new(Semaphore::new(n)), live: Mutex::new(vec![]) }
+        let sem = || Arc::new(Semaphore::new(n));
+        Reserved { places: sem(), waiting: sem(), listening: sem(), live: Mutex::new(vec![]) }
     }
 
     fn live(&self) -> MutexGuard<'_, Vec<Arc<Watch>>> {
@@ -495,7 +538,7 @@ mod tests {
         assert_eq!(fit_to_open_files(&mut l, Some(1 << 20), 64), None);
         assert_eq!(l.max_connections, 4096);
         assert_eq!(fit_to_open_files(&mut l, Some(1024), 64), Some(1024));
-        assert_eq!(l.max_connections, 1024 - 2 * 32 - 64);
+        assert_eq!(l.max_connections, 1024 - 3 * 32 - 64);
         assert_eq!(fit_to_open_files(&mut l, None, 64), None);
     }
 
