@@ -3,6 +3,7 @@
 
 use crate::portfolio::Limits;
 use clap::{Parser, Subcommand, ValueEnum};
+use std::time::Duration;
 
 #[derive(Debug, Parser)]
 #[command(name = "tailtally", version, about = "Tail probabilities of counts of independent events, with error bounds")]
@@ -78,6 +79,50 @@ pub struct Options {
     /// Computing requests that may wait for a turn; beyond them requests are refused at once with 503.
     #[arg(long, env = "TAILTALLY_MAX_QUEUED", default_value_t = 1024, global = true)]
     pub max_queued: usize,
+    /// Open connections served in full; beyond them (and the reserved ones) a connection is closed at once
+    /// after a best-effort 503. Lowered at start when the process's file limit could not hold them.
+    #[arg(long, env = "TAILTALLY_MAX_CONNECTIONS", default_value_t = 4096, global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<usize>::new().range(1..))]
+    pub max_connections: usize,
+    /// Connections accepted beyond --max-connections that answer only /healthz, /readyz and /metrics (503
+    /// otherwise), one request each: the probes stay reachable while clients hold every connection.
+    #[arg(long, env = "TAILTALLY_RESERVED_CONNECTIONS", default_value_t = 32, global = true)]
+    pub reserved_connections: usize,
+    /// Milliseconds to receive a request's head, from the connection's start or from the first byte of a
+    /// later request on it; the connection is then closed.
+    #[arg(long, env = "TAILTALLY_HEADER_READ_TIMEOUT_MS", default_value_t = 10_000, global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<u64>::new().range(1..))]
+    pub header_read_timeout_ms: u64,
+    /// Milliseconds an idle keep-alive connection is kept open after its last answer (longer than the
+    /// 60 s idle timeout of common load balancers, so that they close first).
+    #[arg(long, env = "TAILTALLY_KEEP_ALIVE_TIMEOUT_MS", default_value_t = 75_000, global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<u64>::new().range(1..))]
+    pub keep_alive_timeout_ms: u64,
+    /// Milliseconds a connection may wait with an answer that the client does not read before it is closed.
+    #[arg(long, env = "TAILTALLY_SEND_TIMEOUT_MS", default_value_t = 30_000, global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<u64>::new().range(1..))]
+    pub send_timeout_ms: u64,
+    /// Milliseconds to receive the whole body of a computing request (POST /v1/... but the batch), which is
+    /// read before the request takes a computing turn; 408 problem beyond. A batch streams instead: it may
+    /// wait this long for its client and then must average --min-body-rate.
+    #[arg(long, env = "TAILTALLY_BODY_READ_TIMEOUT_MS", default_value_t = 30_000, global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<u64>::new().range(1..))]
+    pub body_read_timeout_ms: u64,
+    /// Least average rate, in bytes per second of waiting for the client, of a batch body beyond its first
+    /// --body-read-timeout-ms of waiting; a slower batch ends with a problem line and frees its turn.
+    #[arg(long, env = "TAILTALLY_MIN_BODY_RATE", default_value_t = 1024, global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<u64>::new().range(1..))]
+    pub min_body_rate: u64,
+    /// Request body bytes held in memory at once across requests (inflated size; the unfinished line of a
+    /// batch). Beyond it a request waits up to a second and is then answered 503 with Retry-After. Default:
+    /// a quarter of the cgroup memory limit when there is one, at most 1 GiB.
+    #[arg(long, env = "TAILTALLY_MAX_BODY_BYTES_IN_FLIGHT", global = true,
+          value_parser = clap::builder::RangedU64ValueParser::<usize>::new().range(1..))]
+    pub max_body_bytes_in_flight: Option<usize>,
+    /// Seconds after SIGTERM or SIGINT to finish the requests in flight (no new connections are accepted);
+    /// what remains is then abandoned (connections closed, computations told to stop) and the process exits 0.
+    #[arg(long, env = "TAILTALLY_SHUTDOWN_GRACE_SECS", default_value_t = 20, global = true)]
+    pub shutdown_grace_secs: u64,
     /// Log format.
     #[arg(long, env = "TAILTALLY_LOG_FORMAT", value_enum, default_value_t = LogFormat::Text, global = true)]
     pub log_format: LogFormat,
@@ -92,6 +137,54 @@ impl Options {
             Some(ms) => std::time::Duration::from_millis(ms),
             None => std::time::Duration::from_secs(self.request_timeout_secs),
         }
+    }
+}
+
+/// The limits of connections, from the options.
+#[derive(Debug, Clone)]
+pub struct ConnectionLimits {
+    pub max_connections: usize,
+    pub reserved_connections: usize,
+    pub header_read_timeout: Duration,
+    pub keep_alive_timeout: Duration,
+    pub send_timeout: Duration,
+    pub shutdown_grace: Duration,
+}
+
+impl ConnectionLimits {
+    pub fn from_options(o: &Options) -> Self {
+        ConnectionLimits {
+            max_connections: o.max_connections,
+            reserved_connections: o.reserved_connections,
+            header_read_timeout: Duration::from_millis(o.header_read_timeout_ms),
+            keep_alive_timeout: Duration::from_millis(o.keep_alive_timeout_ms),
+            send_timeout: Duration::from_millis(o.send_timeout_ms),
+            shutdown_grace: Duration::from_secs(o.shutdown_grace_secs),
+        }
+    }
+}
+
+/// The default budget of body bytes in flight: a quarter of the memory limit of the process's cgroup (v2
+/// `memory.max`, or v1 `memory.limit_in_bytes`) when there is one, at most 1 GiB, at least 16 MiB.
+pub fn default_body_budget() -> usize {
+    const GIB: u64 = 1 << 30;
+    let limit = ["/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory/memory.limit_in_bytes"]
+        .iter()
+        .find_map(|p| std::fs::read_to_string(p).ok()?.trim().parse::<u64>().ok());
+    let budget = match limit {
+        Some(l) => (l / 4).clamp(16 << 20, GIB),
+        None => GIB,
+    };
+    usize::try_from(budget).unwrap_or(usize::MAX)
+}
+
+impl Options {
+    pub fn body_read_timeout(&self) -> Duration {
+        Duration::from_millis(self.body_read_timeout_ms)
+    }
+
+    pub fn body_budget(&self) -> usize {
+        self.max_body_bytes_in_flight.unwrap_or_else(default_body_budget)
     }
 }
 

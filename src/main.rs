@@ -5,8 +5,26 @@ use clap::Parser;
 use tailtally::config::{Cli, Command};
 use tailtally::{server, telemetry};
 
-#[tokio::main]
-async fn main() -> std::process::ExitCode {
+/// How long the runtime waits, once the server has stopped, for computations still running on the blocking
+/// pool (they have been told to stop, and check between units of work); the process then exits regardless.
+const BLOCKING_WAIT: std::time::Duration = std::time::Duration::from_secs(1);
+
+fn main() -> std::process::ExitCode {
+    let rt = match tokio::runtime::Builder::new_multi_thread().enable_all().build() {
+        Ok(rt) => rt,
+        Err(e) => {
+            eprintln!("tailtally: cannot start the runtime: {e}");
+            return std::process::ExitCode::FAILURE;
+        }
+    };
+    let code = rt.block_on(run());
+    // Dropping the runtime would wait for every blocking task; a computation that is slow to see its
+    // cancellation flag must not hold the process past its shutdown grace.
+    rt.shutdown_timeout(BLOCKING_WAIT);
+    code
+}
+
+async fn run() -> std::process::ExitCode {
     let cli = Cli::parse();
     match cli.command.unwrap_or(Command::Serve) {
         Command::Openapi => write_document(tailtally::api::openapi::pretty_json().as_bytes()),

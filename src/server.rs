@@ -5,10 +5,18 @@
 //! 503 beyond) apply to the computing routes only: probes, /metrics and the documents must answer while the
 //! service is saturated. POST /v1/batch is admitted too, but streams: it has no whole-request timeout or
 //! whole-body limit, and applies both to each of its lines instead (`api::batch`).
+//!
+//! A computing request's body is read in full before it asks for a turn, within the body deadline and the
+//! budget of body bytes in flight (`intake`); a batch's body is paced and budgeted as it streams. The
+//! connections themselves (how many, how long a head or an idle wait may take, shutdown within the grace
+//! period) are `connection`'s.
+
+pub mod connection;
+pub mod intake;
 
 use crate::api::problem::{Problem, ProblemType};
 use crate::api::{openapi, routes, Admitted, AppState};
-use crate::config::{BatchLimits, Options, ServiceLimits};
+use crate::config::{BatchLimits, ConnectionLimits, Options, ServiceLimits};
 use crate::telemetry::metrics::{self, InFlight};
 use axum::extract::{DefaultBodyLimit, MatchedPath, Request, State};
 use axum::http::{header, HeaderName, HeaderValue, StatusCode};
@@ -32,12 +40,17 @@ use tower_http::timeout::TimeoutLayer;
 use tower_http::trace::TraceLayer;
 
 pub fn router(opts: &Options) -> Router {
+    router_with(opts, intake::Intake::new(opts))
+}
+
+fn router_with(opts: &Options, intake: Arc<intake::Intake>) -> Router {
     let state =
         AppState { limits: Arc::new(ServiceLimits::from_options(opts)), batch: BatchLimits::from_options(opts) };
     let request_id = HeaderName::from_static("x-request-id");
     let admission = Admission::new(opts.max_concurrency, opts.max_queued);
-    // `route_layer` covers only the routes added before it: the computing ones. Queued time counts towards
-    // the timeout, so the timeout is the outer of the two.
+    // `route_layer` covers only the routes added before it: the computing ones. Reading the body and the
+    // queued time count towards the timeout, so the timeout is the outermost; the body is read before the
+    // request asks for a turn, so that a slow client holds none.
     let computing = Router::new()
         .route("/v1/tail", post(routes::tail::tail))
         .route("/v1/quantiles", post(routes::quantiles::quantiles))
@@ -48,6 +61,7 @@ pub fn router(opts: &Options) -> Router {
         .route_layer(
             ServiceBuilder::new()
                 .layer(TimeoutLayer::with_status_code(StatusCode::REQUEST_TIMEOUT, opts.request_timeout()))
+                .layer(middleware::from_fn_with_state(intake.clone(), intake::read_first))
                 .layer(middleware::from_fn_with_state(admission.clone(), admit)),
         )
         .route("/", get(routes::page::explorer))
@@ -58,10 +72,12 @@ pub fn router(opts: &Options) -> Router {
         .route("/openapi.json", get(openapi_json))
         .layer(RequestBodyLimitLayer::new(opts.max_body_bytes));
     // A batch is admitted like any computing request but has neither the whole-request timeout nor the
-    // whole-body limit: it streams, each line within the request timeout and the body limit.
-    let batch = Router::new()
-        .route("/v1/batch", post(routes::batch::batch))
-        .route_layer(middleware::from_fn_with_state(admission, admit));
+    // whole-body limit: it streams, each line within the request timeout and the body limit, its body paced.
+    let batch = Router::new().route("/v1/batch", post(routes::batch::batch)).route_layer(
+        ServiceBuilder::new()
+            .layer(middleware::from_fn_with_state(intake, intake::pace))
+            .layer(middleware::from_fn_with_state(admission, admit)),
+    );
     let api = computing.merge(batch).fallback(not_found).with_state(state);
     api.layer(
         ServiceBuilder::new()
@@ -196,25 +212,64 @@ async fn problem_bodies(req: Request, next: Next) -> Response {
     out
 }
 
+/// What a reserved connection (one beyond --max-connections) answers: the probes and /metrics, and 503
+/// to anything else, so that an orchestrator still sees the process alive when clients hold every
+/// connection. Each such connection serves one request.
+fn probes_router() -> Router {
+    async fn busy() -> Response {
+        let mut res =
+            Problem::overloaded("every connection is taken (see --max-connections); only the probes answer now")
+                .into_response();
+        res.headers_mut().insert(header::RETRY_AFTER, HeaderValue::from_static("1"));
+        res
+    }
+    Router::new()
+        .route("/healthz", get(routes::health::healthz))
+        .route("/readyz", get(routes::health::readyz))
+        .route("/metrics", get(routes::metrics::metrics))
+        .fallback(busy)
+}
+
 /// A bound listener with its application, ready to serve.
 pub struct App {
     listener: TcpListener,
     router: Router,
+    limits: ConnectionLimits,
 }
+
+/// File descriptors kept for the listener, standard streams and the rest of the process.
+const SPARE_FILES: usize = 64;
 
 impl App {
     pub async fn bind(opts: &Options) -> std::io::Result<App> {
         let listener = TcpListener::bind(&opts.listen).await?;
-        Ok(App { listener, router: router(opts) })
+        let mut limits = ConnectionLimits::from_options(opts);
+        if let Some(files) = connection::fit_to_open_files(&mut limits, connection::open_files_limit(), SPARE_FILES) {
+            tracing::warn!(
+                open_files = files,
+                max_connections = limits.max_connections,
+                "the open files limit cannot hold --max-connections and --reserved-connections; connections lowered to fit (raise `ulimit -n`)"
+            );
+        }
+        let intake = intake::Intake::new(opts);
+        if opts.max_body_bytes > intake.budget_bytes() {
+            tracing::warn!(
+                max_body_bytes = opts.max_body_bytes,
+                budget = intake.budget_bytes(),
+                "--max-body-bytes exceeds the budget of body bytes in flight: larger bodies are refused with 413"
+            );
+        }
+        Ok(App { listener, router: router_with(opts, intake), limits })
     }
 
     pub fn local_addr(&self) -> SocketAddr {
         self.listener.local_addr().expect("bound")
     }
 
-    /// Serve until `shutdown` resolves; then stop accepting and finish the requests in flight.
+    /// Serve until `shutdown` resolves; then stop accepting, let the requests in flight finish within the
+    /// grace period (--shutdown-grace-secs), and abandon what remains.
     pub async fn serve(self, shutdown: impl Future<Output = ()> + Send + 'static) -> std::io::Result<()> {
-        axum::serve(self.listener, self.router).with_graceful_shutdown(shutdown).await
+        connection::serve(self.listener, self.router, probes_router(), self.limits, shutdown).await
     }
 }
 

@@ -47,8 +47,9 @@ fn sigterm_finishes_the_request_in_flight_refuses_new_connections_and_exits_0() 
     let body = heavy_body(8);
     let mut held = RawRequest::send_head(p.addr, "POST", "/v1/tail", &body, 1);
     // The server has the request (not merely the connection) before the signal: a connection whose request
-    // has not arrived yet may rightly be closed by a graceful shutdown.
-    p.wait_for_metric("tailtally_compute_running ", 1.0);
+    // has not arrived yet may rightly be closed by a graceful shutdown. (It is reading the body, which comes
+    // before the computing turn.)
+    p.wait_for_metric("tailtally_http_requests_in_flight{route=\"/v1/tail\"} ", 1.0);
     p.sigterm();
     p.wait_for_log("shutdown signal received");
     let deadline = std::time::Instant::now() + common::HANG_GUARD;
@@ -96,9 +97,14 @@ fn timeout_answers_408_problem_and_the_probes_stay_up() {
 fn over_the_concurrency_and_queue_limits_answers_503_problem_and_probes_stay_up() {
     let p = Process::start(&["--max-concurrency", "1", "--max-queued", "1"]);
     let small = br#"{"portfolio": {"probabilities": [0.1, 0.2, 0.3]}, "thresholds": [1, 2]}"#;
-    let mut running = RawRequest::send_head(p.addr, "POST", "/v1/tail", small, 1);
+    // A request's body is read before it asks for a turn, so what holds a turn here is a batch, which takes
+    // its turn first and streams: its one line stays unfinished until the last byte.
+    let line = br#"{"id": 1, "tail": {"portfolio": {"probabilities": [0.1, 0.2, 0.3]}, "thresholds": [1, 2]}}
+"#;
+    let ndjson = "application/x-ndjson";
+    let mut running = RawRequest::send_head_as(p.addr, "POST", "/v1/batch", ndjson, line, 1);
     p.wait_for_metric("tailtally_compute_running ", 1.0);
-    let mut waiting = RawRequest::send_head(p.addr, "POST", "/v1/tail", small, 1);
+    let mut waiting = RawRequest::send_head_as(p.addr, "POST", "/v1/batch", ndjson, line, 1);
     p.wait_for_metric("tailtally_compute_queued ", 1.0);
     // No place left: refused at once, with a hint when to retry.
     let r = p.request("POST", "/v1/tail", Some(small));
@@ -109,8 +115,10 @@ fn over_the_concurrency_and_queue_limits_answers_503_problem_and_probes_stay_up(
     // The held ones complete once their bodies arrive, the queued one after the running one.
     let a = running.finish();
     assert_eq!(a.status, 200, "{}", a.body);
+    assert!(a.body.contains("\"id\":1,\"tail\""), "{}", a.body);
     let b = waiting.finish();
     assert_eq!(b.status, 200, "{}", b.body);
+    assert!(b.body.contains("\"id\":1,\"tail\""), "{}", b.body);
     assert_eq!(p.request("POST", "/v1/tail", Some(small)).status, 200);
     assert_eq!(p.metric("tailtally_compute_running "), Some(0.0));
     assert_eq!(p.metric("tailtally_compute_queued "), Some(0.0));

@@ -3,6 +3,10 @@
 //! and 422, with the JSON pointer of the field, for JSON of the wrong shape (a string where a number belongs,
 //! a negative count, an unknown field). `multipart/form-data` (the request with its exposures as a table) is
 //! handed to `api::tables`.
+//!
+//! Bodies over `PARSE_OFF_THREAD_BYTES`, and every table, are parsed on the blocking pool: a 200 MB document
+//! takes about a second to parse, which on an async worker would keep the probes waiting; small ones are
+//! parsed in place, a hand-off costing more than their parse.
 
 use super::problem::{escape_token, Problem};
 use super::tables::{self, Tabular};
@@ -12,8 +16,17 @@ use axum::body::Bytes;
 use axum::extract::{FromRef, FromRequest, Request};
 use axum::http::header;
 use serde::de::DeserializeOwned;
+use std::sync::Arc;
 
 pub struct Body<T>(pub T);
+
+/// Bodies larger than this are parsed off the async worker threads.
+pub const PARSE_OFF_THREAD_BYTES: usize = 1 << 20;
+
+/// The share of the in-flight body budget that a request's body holds (`server::intake`), left in the
+/// request's extensions; `Body` keeps it until the body is parsed, the buffer then being freed.
+#[derive(Clone)]
+pub struct BodyPermit(pub Arc<dyn Send + Sync>);
 
 impl<S, T> FromRequest<S> for Body<T>
 where
@@ -23,7 +36,8 @@ where
 {
     type Rejection = Problem;
 
-    async fn from_request(req: Request, state: &S) -> Result<Self, Problem> {
+    async fn from_request(mut req: Request, state: &S) -> Result<Self, Problem> {
+        let held = req.extensions_mut().remove::<BodyPermit>();
         let ctype = req.headers().get(header::CONTENT_TYPE).and_then(|v| v.to_str().ok()).unwrap_or("").to_string();
         let mime = ctype.split(';').next().unwrap_or("").trim().to_ascii_lowercase();
         // A request with its exposures as a table (`api::tables`).
@@ -41,15 +55,21 @@ where
                 Problem::malformed(format!("could not read the request body: {e}"))
             }
         })?;
-        if multipart {
+        let parsed = if multipart {
             // A table of 10^6 rows takes tens of milliseconds to read: off the async threads.
             let limits = AppState::from_ref(state).limits;
-            return tokio::task::spawn_blocking(move || tables::from_multipart(bytes, &ctype, &limits))
+            tokio::task::spawn_blocking(move || tables::from_multipart(bytes, &ctype, &limits))
                 .await
                 .map_err(|e| Problem::internal(format!("reading the table failed: {e}")))?
-                .map(Body);
-        }
-        parse(&bytes).map(Body)
+        } else if bytes.len() > PARSE_OFF_THREAD_BYTES {
+            tokio::task::spawn_blocking(move || parse::<T>(&bytes))
+                .await
+                .map_err(|e| Problem::internal(format!("parsing the request failed: {e}")))?
+        } else {
+            parse(&bytes)
+        };
+        drop(held);
+        parsed.map(Body)
     }
 }
 

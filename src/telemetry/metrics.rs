@@ -2,10 +2,11 @@
 //!
 //! A small registry of atomics instead of a metrics crate: the service needs four families (requests by
 //! route, method and status; latency histograms by route and method; requests in flight; problems by type),
-//! a counter of exposures processed and two gauges of the admission control (running, queued). There is one registry per process, like the default registry of
-//! a Prometheus client, so that handlers can count without carrying state. Label values are bounded: the
-//! route is axum's matched template (or `unmatched`), the method one of the standard ones (or `other`), the
-//! problem type one of the service's fixed slugs.
+//! a counter of exposures processed, two gauges of the admission control (running, queued), and the
+//! connection and body-budget figures of the guards (`server::connection`, `server::intake`). There is one
+//! registry per process, like the default registry of a Prometheus client, so that handlers can count
+//! without carrying state. Label values are bounded: the route is axum's matched template (or `unmatched`),
+//! the method one of the standard ones (or `other`), the problem type one of the service's fixed slugs.
 
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
@@ -67,7 +68,14 @@ struct Registry {
     exposures: AtomicU64,
     computing: AtomicI64,
     queued: AtomicI64,
+    connections: [AtomicI64; 2],
+    refused: AtomicU64,
+    closed: [AtomicU64; CLOSE_REASONS.len()],
+    body_bytes: AtomicI64,
 }
+
+/// Why the server closed a connection on its own (`connection_closed`), as label values.
+pub const CLOSE_REASONS: [&str; 5] = ["header-timeout", "keep-alive-timeout", "send-timeout", "evicted", "shutdown"];
 
 static REGISTRY: LazyLock<Registry> = LazyLock::new(|| Registry {
     requests: Family::new(),
@@ -77,6 +85,10 @@ static REGISTRY: LazyLock<Registry> = LazyLock::new(|| Registry {
     exposures: AtomicU64::new(0),
     computing: AtomicI64::new(0),
     queued: AtomicI64::new(0),
+    connections: [AtomicI64::new(0), AtomicI64::new(0)],
+    refused: AtomicU64::new(0),
+    closed: Default::default(),
+    body_bytes: AtomicI64::new(0),
 });
 
 /// Holds one unit of a gauge until dropped.
@@ -98,6 +110,30 @@ pub fn computing() -> GaugeGuard {
 pub fn queued() -> GaugeGuard {
     REGISTRY.queued.fetch_add(1, Relaxed);
     GaugeGuard(&REGISTRY.queued)
+}
+
+/// An open connection, served in full or (`reserved`) for the probes only.
+pub fn connection_open(reserved: bool) -> GaugeGuard {
+    let g = &REGISTRY.connections[usize::from(reserved)];
+    g.fetch_add(1, Relaxed);
+    GaugeGuard(g)
+}
+
+/// A connection closed at once because every connection, the reserved ones too, was taken.
+pub fn connection_refused() {
+    REGISTRY.refused.fetch_add(1, Relaxed);
+}
+
+/// A connection closed by the server for one of `CLOSE_REASONS` (others are ignored).
+pub fn connection_closed(reason: &str) {
+    if let Some(i) = CLOSE_REASONS.iter().position(|r| *r == reason) {
+        REGISTRY.closed[i].fetch_add(1, Relaxed);
+    }
+}
+
+/// Request body bytes now held in memory (`--max-body-bytes-in-flight`), changed by `delta`.
+pub fn body_bytes_held(delta: i64) {
+    REGISTRY.body_bytes.fetch_add(delta, Relaxed);
 }
 
 /// Count the exposures of a validated portfolio (group sizes included), once per request.
@@ -226,6 +262,22 @@ pub fn render() -> String {
     let name = "tailtally_compute_queued";
     header(&mut out, name, "gauge", "Computing requests waiting for a turn (at most --max-queued).");
     let _ = writeln!(out, "{name} {}", r.queued.load(Relaxed));
+
+    let name = "tailtally_connections_open";
+    header(&mut out, name, "gauge", "Open connections: served in full, or on a reserved place for the probes only.");
+    let _ = writeln!(out, "{name}{{kind=\"full\"}} {}", r.connections[0].load(Relaxed));
+    let _ = writeln!(out, "{name}{{kind=\"reserved\"}} {}", r.connections[1].load(Relaxed));
+    let name = "tailtally_connections_refused_total";
+    header(&mut out, name, "counter", "Connections closed on arrival: every place, reserved ones too, was taken.");
+    let _ = writeln!(out, "{name} {}", r.refused.load(Relaxed));
+    let name = "tailtally_connections_closed_total";
+    header(&mut out, name, "counter", "Connections closed by the server, by reason.");
+    for (reason, c) in CLOSE_REASONS.iter().zip(&r.closed) {
+        let _ = writeln!(out, "{name}{{reason=\"{reason}\"}} {}", c.load(Relaxed));
+    }
+    let name = "tailtally_body_bytes_in_flight";
+    header(&mut out, name, "gauge", "Request body bytes held in memory (at most --max-body-bytes-in-flight).");
+    let _ = writeln!(out, "{name} {}", r.body_bytes.load(Relaxed));
 
     let name = "tailtally_exposures_processed_total";
     header(&mut out, name, "counter", "Exposures (group sizes included) in validated portfolios.");

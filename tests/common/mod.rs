@@ -207,11 +207,23 @@ impl RawResponse {
 
 impl RawRequest {
     pub fn send_head(addr: std::net::SocketAddr, method: &str, path: &str, body: &[u8], held: usize) -> RawRequest {
+        RawRequest::send_head_as(addr, method, path, "application/json", body, held)
+    }
+
+    /// `send_head` with another content type (`application/x-ndjson` for a batch).
+    pub fn send_head_as(
+        addr: std::net::SocketAddr,
+        method: &str,
+        path: &str,
+        ctype: &str,
+        body: &[u8],
+        held: usize,
+    ) -> RawRequest {
         use std::io::Write;
         let mut stream = std::net::TcpStream::connect(addr).expect("connect");
         stream.set_read_timeout(Some(HANG_GUARD)).unwrap();
         let head = format!(
-            "{method} {path} HTTP/1.1\r\nhost: {addr}\r\ncontent-type: application/json\r\ncontent-length: {}\r\nconnection: close\r\n\r\n",
+            "{method} {path} HTTP/1.1\r\nhost: {addr}\r\ncontent-type: {ctype}\r\ncontent-length: {}\r\nconnection: close\r\n\r\n",
             body.len()
         );
         let split = body.len() - held.min(body.len());
