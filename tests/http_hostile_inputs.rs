@@ -77,3 +77,37 @@ async fn a_stress_that_takes_a_rate_past_its_limit_is_refused() {
     assert_eq!(v["results"][0]["estimates"][0]["probability"], 1.0, "{v}");
     s.shutdown().await.unwrap();
 }
+
+/// serde reads a struct from a JSON array of its fields in order, so `"tolerance": [null, null]` was
+/// accepted (Schemathesis' coverage phase found it) and `"portfolio": [[0.1, 0.2]]` read as probabilities.
+/// The document says object; every request object now takes an object only, refused at its pointer.
+#[tokio::test]
+async fn arrays_in_place_of_objects_are_refused_at_their_pointer() {
+    let s = start(&[]).await;
+    let p = json!({"probabilities": [0.1, 0.2]});
+    let dep = |tol: serde_json::Value| json!({"model": "one_factor_gaussian", "rho": 0.1, "tolerance": tol});
+    let cases = [
+        ("/v1/tail", json!({"portfolio": [[0.1, 0.2]], "thresholds": [1]}), "/portfolio"),
+        ("/v1/tail", json!({"portfolio": p, "thresholds": [1], "dependence": dep(json!([null, null]))}), "/dependence"),
+        ("/v1/tail", json!({"portfolio": {"groups": [[10, 0.1]]}, "thresholds": [1]}), "/portfolio/groups/0"),
+        ("/v1/layers", json!({"portfolio": p, "layers": [[0, 1]]}), "/layers/0"),
+        ("/v1/tail", json!([p, [1]]), ""),
+        ("/v1/quantiles", json!([p, [0.5]]), ""),
+        ("/v1/distribution", json!([p]), ""),
+        ("/v1/contributions", json!([p, 1]), ""),
+    ];
+    for (route, body, at) in cases {
+        let (st, ct, v) = s.post_json(route, &body).await;
+        assert_eq!(st, 422, "{route} {body}: {v}");
+        assert_problem(st, &ct, &v, 422, None);
+        let pointers: Vec<&str> =
+            v["errors"].as_array().unwrap().iter().filter_map(|e| e["pointer"].as_str()).collect();
+        assert!(pointers.iter().any(|q| q.starts_with(at)), "{route} {body}: {pointers:?}");
+        assert!(v.to_string().contains("expected an object"), "{route} {body}: {v}");
+    }
+    // The objects themselves are still read.
+    let body = json!({"portfolio": p, "thresholds": [1], "dependence": dep(json!({"relative": 1e-8}))});
+    let (st, _, v) = s.post_json("/v1/tail", &body).await;
+    assert_eq!(st, 200, "{v}");
+    s.shutdown().await.unwrap();
+}

@@ -23,7 +23,7 @@ const HEIGHT_RANGE: (u32, u32) = (160, 3000);
 
 /// POST /v1/chart request: the picture of the law around one threshold.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct ChartRequest {
     pub portfolio: PortfolioSpec,
     /// The count k whose tail is shaded and marked.
@@ -47,6 +47,7 @@ pub struct ChartRequest {
     #[serde(default)]
     pub height: Option<u32>,
 }
+crate::portfolio::objects::objects_only!(ChartRequest);
 
 /// Everything one picture shows.
 #[derive(Debug, Clone, PartialEq)]

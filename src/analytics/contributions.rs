@@ -46,7 +46,7 @@ pub enum RankBy {
 
 /// POST /v1/contributions request.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct ContributionsRequest {
     pub portfolio: PortfolioSpec,
     /// The threshold k of the tail P(S >= k).
@@ -62,6 +62,7 @@ pub struct ContributionsRequest {
     #[serde(default)]
     pub dependence: Option<Dependence>,
 }
+crate::portfolio::objects::objects_only!(ContributionsRequest);
 
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
 pub struct ContributionOut {

@@ -51,7 +51,7 @@ pub enum Dependence {
 /// for every figure of the answer. Either field may be left out (its default then applies); `absolute: 0`
 /// asks for relative accuracy only, which far tails may need (and which costs more nodes).
 #[derive(Debug, Clone, Copy, PartialEq, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct FactorTolerance {
     /// In [1e-13, 1) or 0; default 1e-7.
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -62,6 +62,8 @@ pub struct FactorTolerance {
     #[schema(example = 1e-13)]
     pub absolute: Option<f64>,
 }
+
+crate::portfolio::objects::objects_only!(FactorTolerance);
 
 impl Dependence {
     /// The one-factor model with loading rho and the default tolerance.

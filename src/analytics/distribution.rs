@@ -52,7 +52,7 @@ pub const DEFAULT_MASS: f64 = 1e-12;
 
 /// POST /v1/distribution request: `from` and `to` (inclusive), or `mass` (default 1e-12).
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct DistributionRequest {
     pub portfolio: PortfolioSpec,
     pub from: Option<u64>,
@@ -64,6 +64,7 @@ pub struct DistributionRequest {
     #[serde(default)]
     pub dependence: Option<Dependence>,
 }
+crate::portfolio::objects::objects_only!(DistributionRequest);
 
 /// POST /v1/distribution response (arrays over the counts from..=to).
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]

@@ -70,17 +70,18 @@ pub fn tail_expectation(law: &Law, level: f64) -> TailExpectation {
 
 /// A count layer (attachment, attachment + limit]; no `limit` means unlimited.
 #[derive(Debug, Clone, Copy, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct LayerSpec {
     #[schema(example = 20)]
     pub attachment: u64,
     #[schema(example = 10)]
     pub limit: Option<u64>,
 }
+crate::portfolio::objects::objects_only!(LayerSpec);
 
 /// POST /v1/layers request.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct LayersRequest {
     pub portfolio: PortfolioSpec,
     #[serde(default)]
@@ -94,6 +95,7 @@ pub struct LayersRequest {
     #[serde(default)]
     pub dependence: Option<Dependence>,
 }
+crate::portfolio::objects::objects_only!(LayersRequest);
 
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
 pub struct LayerOut {

@@ -155,7 +155,7 @@ pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolera
 
 /// POST /v1/quantiles request.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct QuantilesRequest {
     pub portfolio: PortfolioSpec,
     /// Levels strictly inside (0, 1).
@@ -172,6 +172,7 @@ pub struct QuantilesRequest {
     #[serde(default)]
     pub dependence: Option<Dependence>,
 }
+crate::portfolio::objects::objects_only!(QuantilesRequest);
 
 /// One quantile.
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]

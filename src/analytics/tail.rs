@@ -17,7 +17,7 @@ use utoipa::ToSchema;
 
 /// POST /v1/tail request.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct TailRequest {
     pub portfolio: PortfolioSpec,
     /// Counts k at which to evaluate the probability.
@@ -40,6 +40,7 @@ pub struct TailRequest {
     #[serde(default)]
     pub dependence: Option<Dependence>,
 }
+crate::portfolio::objects::objects_only!(TailRequest);
 
 pub fn default_methods() -> Vec<MethodId> {
     vec![MethodId::Exact]

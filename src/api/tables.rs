@@ -76,7 +76,7 @@ tabular!(
 
 /// The `table` object of a multipart request's JSON part: which columns of the `exposures` table to read.
 #[derive(Debug, Clone, Default, Deserialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct TableSpec {
     /// Column of event probabilities in [0, 1] (default `probability`).
     #[schema(example = "pd")]
@@ -88,6 +88,7 @@ pub struct TableSpec {
     #[schema(example = ";")]
     pub delimiter: Option<String>,
 }
+crate::portfolio::objects::objects_only!(TableSpec, deserialize_only);
 
 /// The multipart form of every computing route (documentation only).
 #[derive(ToSchema)]

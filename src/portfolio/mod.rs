@@ -6,6 +6,7 @@
 
 pub mod families;
 pub mod model;
+pub mod objects;
 pub mod spec;
 pub mod stress;
 pub mod validate;

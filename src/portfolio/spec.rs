@@ -5,7 +5,7 @@ use utoipa::ToSchema;
 
 /// A portfolio of exposures, independent unless a dependence model is named. The count S is the sum of all parts.
 #[derive(Debug, Clone, Default, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct PortfolioSpec {
     /// Per-exposure event probabilities in [0, 1] (one Bernoulli exposure each).
     #[serde(default)]
@@ -32,10 +32,11 @@ pub struct PortfolioSpec {
     #[serde(default)]
     pub families: Vec<FamilySpec>,
 }
+crate::portfolio::objects::objects_only!(PortfolioSpec);
 
 /// `size` identical exposures, each with event probability `probability`.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+#[serde(remote = "Self", deny_unknown_fields)]
 pub struct GroupSpec {
     #[schema(example = 250000)]
     pub size: u64,
@@ -45,6 +46,7 @@ pub struct GroupSpec {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub loading: Option<f64>,
 }
+crate::portfolio::objects::objects_only!(GroupSpec);
 
 /// A generated sequence of probabilities p_1..p_n. Every kind takes an optional `loading` in [0, 1): the
 /// factor loading of all its members under a dependence model (default: the model's `rho`).
