@@ -99,6 +99,11 @@ impl Analytic for Distribution {
     type Request = DistributionRequest;
     type Answer = DistributionResponse;
 
+    /// Only a short explicit range: by mass (or by default) the range's length depends on the law.
+    fn may_inline(req: &DistributionRequest) -> bool {
+        matches!((req.from, req.to), (Some(a), Some(b)) if b >= a && b - a <= 1_000)
+    }
+
     fn inputs(req: &DistributionRequest) -> Inputs<'_> {
         Inputs { portfolio: &req.portfolio, stress: req.stress, dependence: req.dependence }
     }

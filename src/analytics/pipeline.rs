@@ -45,6 +45,12 @@ pub trait Analytic {
     /// when the question checks its budget itself (it needs the law's moments to know its size).
     fn evaluations(req: &Self::Request) -> Option<f64>;
 
+    /// Whether the question may be answered on the async worker when its work is small (`cost::inline_work`);
+    /// a question whose size the request does not bound by its evaluations says no.
+    fn may_inline(_req: &Self::Request) -> bool {
+        true
+    }
+
     /// The memory the question will hold on this model (one law, independent, unstressed: the pipeline
     /// scales it by the scenario), for the per-request ceiling.
     fn footprint(req: &Self::Request, model: &Model, limits: &ServiceLimits) -> Footprint;

@@ -1,12 +1,16 @@
-//! Running a question off the async threads: on the blocking pool, with a cancellation flag whose guard
+//! Running a question: off the async threads on the blocking pool, with a cancellation flag whose guard
 //! lives in the calling future, so that when the timeout (or a client going away) drops that future the
-//! computation sees the flag and stops. Also the mapping of the analytics' errors to problem details.
+//! computation sees the flag and stops; or, when the request alone bounds its work below
+//! `cost::INLINE_WORK`, at once on the async worker (the hand-off would cost more than the question, and
+//! the question holds the worker for well under a millisecond, so neither the timeout nor cancellation has
+//! anything to stop). Also the mapping of the analytics' errors to problem details.
 
 use super::problem::Problem;
 use crate::analytics::cancel::Cancel;
 use crate::analytics::{self, Analytic};
 use crate::api::Admitted;
 use crate::config::ServiceLimits;
+use crate::telemetry::metrics;
 use axum::http::StatusCode;
 use std::sync::Arc;
 
@@ -41,6 +45,11 @@ where
     A::Request: Send + 'static,
     A::Answer: Send + 'static,
 {
+    if analytics::cost::inline_work::<A>(&req).is_some_and(|w| w <= analytics::cost::INLINE_WORK) {
+        let _turn = admitted;
+        metrics::count_inline();
+        return analytics::run::<A>(&req, &limits, &Cancel::never()).map_err(Problem::from);
+    }
     let (cancel, _guard) = Cancel::pair();
     tokio::task::spawn_blocking(move || {
         let _turn = admitted;

@@ -66,6 +66,7 @@ struct Registry {
     in_flight: Family<String, AtomicI64>,
     problems: Family<(String, String, u16), AtomicU64>,
     exposures: AtomicU64,
+    inline: AtomicU64,
     computing: AtomicI64,
     queued: AtomicI64,
     connections: [AtomicI64; 2],
@@ -83,6 +84,7 @@ static REGISTRY: LazyLock<Registry> = LazyLock::new(|| Registry {
     in_flight: Family::new(),
     problems: Family::new(),
     exposures: AtomicU64::new(0),
+    inline: AtomicU64::new(0),
     computing: AtomicI64::new(0),
     queued: AtomicI64::new(0),
     connections: [AtomicI64::new(0), AtomicI64::new(0)],
@@ -139,6 +141,11 @@ pub fn body_bytes_held(delta: i64) {
 /// Count the exposures of a validated portfolio (group sizes included), once per request.
 pub fn exposures_processed(n: u64) {
     REGISTRY.exposures.fetch_add(n, Relaxed);
+}
+
+/// A question answered on the async worker, its work being below the inline budget (`api::offload`).
+pub fn count_inline() {
+    REGISTRY.inline.fetch_add(1, Relaxed);
 }
 
 /// The method as a label value: the standard methods by name, any extension method as `other`.
@@ -282,6 +289,14 @@ pub fn render() -> String {
     let name = "tailtally_exposures_processed_total";
     header(&mut out, name, "counter", "Exposures (group sizes included) in validated portfolios.");
     let _ = writeln!(out, "{name} {}", r.exposures.load(Relaxed));
+    let name = "tailtally_questions_inline_total";
+    header(
+        &mut out,
+        name,
+        "counter",
+        "Questions answered on the async worker (small enough to skip the blocking pool).",
+    );
+    let _ = writeln!(out, "{name} {}", r.inline.load(Relaxed));
     out
 }
 

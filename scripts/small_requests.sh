@@ -1,0 +1,52 @@
+#!/usr/bin/env bash
+# Many small requests: a 100-exposure exact tail at 2 thresholds under wrk (2 threads, 32 connections), as a
+# ratio to GET /healthz measured on the same server in the same run. With two binaries (before and after a
+# change) both are measured one after the other, so their ratios can be compared side by side.
+#
+#   scripts/small_requests.sh                        # the release build of this checkout
+#   DURATION=10 scripts/small_requests.sh OLD NEW     # two binaries
+#
+# Needs wrk (Debian: apt-get install wrk) and python3. Timings depend on what else runs on the machine:
+# compare ratios from one run, not across runs.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+DURATION=${DURATION:-10}
+command -v wrk >/dev/null || { echo "wrk is missing: apt-get install -y wrk" >&2; exit 2; }
+if [ $# -eq 0 ]; then
+    nice -n 10 cargo build --release --locked --bin tailtally
+    set -- target/release/tailtally
+fi
+WORK=$(mktemp -d)
+PID=
+cleanup() {
+    if [ -n "$PID" ] && kill -0 "$PID" 2>/dev/null; then kill -TERM "$PID"; wait "$PID" || true; fi
+    rm -rf "$WORK"
+}
+trap cleanup EXIT
+python3 - "$WORK/tail.json" <<'PY'
+import json, random, sys
+rng = random.Random(7)
+p = [rng.uniform(0, 0.2) for _ in range(100)]
+json.dump({"portfolio": {"probabilities": p}, "thresholds": [12, 20]}, open(sys.argv[1], "w"))
+PY
+cat > "$WORK/post.lua" <<'LUA'
+local f = assert(io.open(os.getenv("BODY"), "rb"))
+wrk.method = "POST"
+wrk.body = f:read("*a")
+f:close()
+wrk.headers["Content-Type"] = "application/json"
+LUA
+rate() { wrk -t2 -c32 -d"${DURATION}s" "$@" | awk '/Requests\/sec/ {print $2}'; }
+echo "| binary | /healthz req/s | tail req/s | ratio | inline answers |"
+echo "|---|---|---|---|---|"
+for BIN in "$@"; do
+    PORT=$(python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])')
+    "$BIN" serve --listen "127.0.0.1:$PORT" >"$WORK/log" 2>&1 &
+    PID=$!
+    for _ in $(seq 100); do curl -sf "http://127.0.0.1:$PORT/healthz" >/dev/null && break; sleep 0.1; done
+    H=$(rate "http://127.0.0.1:$PORT/healthz")
+    T=$(BODY="$WORK/tail.json" rate -s "$WORK/post.lua" "http://127.0.0.1:$PORT/v1/tail")
+    I=$(curl -s "http://127.0.0.1:$PORT/metrics" | awk '/^tailtally_questions_inline_total/ {print $2}')
+    echo "| $BIN | $H | $T | $(python3 -c "print(f'{$T/$H:.2f}')") | ${I:-n/a} |"
+    kill -TERM "$PID"; wait "$PID" || true; PID=
+done
