@@ -484,6 +484,23 @@ try {
     await page.getByRole("button", { name: "Stop using this file" }).click();
   });
 
+  await check("typed names are the exposures' ids among the drivers (portfolio.ids)", async () => {
+    await page.getByRole("button", { name: "Clear" }).click();
+    await page.getByLabel("Event probabilities, one per line or comma-separated").fill("tram-7, 0.3\nferry-2 0.45\n0.2, 0.1\nbus-11;0.25");
+    await page.getByLabel("Threshold k (a count of events)").fill("2");
+    await compute();
+    const portfolio = { probabilities: [0.3, 0.45, 0.2, 0.1, 0.25], ids: ["tram-7", "ferry-2", null, null, "bus-11"] };
+    const want = (await api("/v1/contributions", { portfolio, threshold: 2, top: 8, rank_by: "impact" })).body;
+    const rows = await rowsOf("#drivers tbody tr");
+    assert.equal(rows.length, 5);
+    want.contributions.forEach((c, i) => {
+      assert.equal(rows[i][1].raw, c.id === undefined || c.id === null ? "" : JSON.stringify(c.id), `driver ${i} id`);
+      assert.equal(rows[i][2].raw, JSON.stringify(c.index));
+      assert.equal(rows[i][5].raw, JSON.stringify(c.impact));
+    });
+    assert.deepEqual(want.contributions.map((c) => c.id ?? null).filter((x) => x).sort(), ["bus-11", "ferry-2", "tram-7"]);
+  });
+
   await check("a sampled chart says which counts it shows in words (3rd, not 3th)", async () => {
     await page.getByRole("button", { name: "Clear" }).click();
     await page.getByRole("button", { name: "Add a group" }).click();
