@@ -6,9 +6,13 @@ set -euo pipefail
 cd "$(dirname "$0")"
 root="$(cd ../.. && pwd)"
 (cd "$root" && cargo build --release --locked --quiet)
+# The binary is where cargo put it: CARGO_TARGET_DIR (absolute, or relative to the root) or target/.
+target="${CARGO_TARGET_DIR:-target}"
+case "$target" in /*) ;; *) target="$root/$target" ;; esac
+bin="$target/release/tailtally"
 [ -d node_modules/playwright-core ] || npm ci --no-audit --no-fund
 log="$(mktemp)"
-"$root/target/release/tailtally" --listen 127.0.0.1:0 --log-format json >"$log" 2>&1 &
+"$bin" --listen 127.0.0.1:0 --log-format json >"$log" 2>&1 &
 pid=$!
 trap 'kill "$pid" 2>/dev/null || true; wait "$pid" 2>/dev/null || true; rm -f "$log"' EXIT
 addr=""
