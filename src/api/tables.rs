@@ -456,17 +456,7 @@ fn read_csv(data: &[u8], cols: &Columns, budget: &Budget) -> Result<Table, Probl
     let mut rdr = csv::ReaderBuilder::new().delimiter(cols.delimiter).flexible(true).from_reader(data);
     let headers = rdr.byte_headers().map_err(|e| malformed_table(format!("the CSV header row: {e}")))?.clone();
     let names: Vec<String> = headers.iter().map(|h| String::from_utf8_lossy(h).trim().to_string()).collect();
-    let find = |name: &str, which: &str| -> Result<Option<usize>, Problem> {
-        let mut hits = names.iter().enumerate().filter(|(_, n)| *n == name).map(|(i, _)| i);
-        match (hits.next(), hits.next()) {
-            (Some(i), None) => Ok(Some(i)),
-            (None, _) => Ok(None),
-            (Some(_), Some(_)) => Err(Problem::invalid(vec![Violation::new(
-                format!("/table/{which}"),
-                format!("the table has more than one column named {name:?}"),
-            )])),
-        }
-    };
+    let find = |name: &str, which: &str| column_index(&names, name, which);
     let p_col = find(&cols.probability, "probability")?.ok_or_else(|| cols.missing("probability", &names))?;
     let id_col = find(&cols.id, "id")?;
     if id_col.is_none() && cols.id_named {
@@ -660,21 +650,25 @@ fn text_id(s: &str) -> ExposureId {
     ExposureId::Text(s.to_string())
 }
 
+/// The position of the column called `name` among `names` (None when absent); two columns of that name are a
+/// 422 at /table/<which>. Shared by the CSV and Arrow readers.
+fn column_index(names: &[String], name: &str, which: &str) -> Result<Option<usize>, Problem> {
+    let mut hits = names.iter().enumerate().filter(|(_, n)| *n == name).map(|(i, _)| i);
+    match (hits.next(), hits.next()) {
+        (Some(i), None) => Ok(Some(i)),
+        (None, _) => Ok(None),
+        (Some(_), Some(_)) => Err(Problem::invalid(vec![Violation::new(
+            format!("/table/{which}"),
+            format!("the table has more than one column named {name:?}"),
+        )])),
+    }
+}
+
 /// The positions of the probability and id columns, checked against the types read.
 fn arrow_layout(schema: &arrow_schema::Schema, cols: &Columns) -> Result<(usize, Option<usize>), Problem> {
     use arrow_schema::DataType;
     let names: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
-    let find = |name: &str, which: &str| -> Result<Option<usize>, Problem> {
-        let mut hits = names.iter().enumerate().filter(|(_, n)| *n == name).map(|(i, _)| i);
-        match (hits.next(), hits.next()) {
-            (Some(i), None) => Ok(Some(i)),
-            (None, _) => Ok(None),
-            (Some(_), Some(_)) => Err(Problem::invalid(vec![Violation::new(
-                format!("/table/{which}"),
-                format!("the table has more than one column named {name:?}"),
-            )])),
-        }
-    };
+    let find = |name: &str, which: &str| column_index(&names, name, which);
     let p = find(&cols.probability, "probability")?.ok_or_else(|| cols.missing("probability", &names))?;
     let pt = schema.field(p).data_type();
     if *pt != DataType::Float64 {
