@@ -821,6 +821,16 @@ fn part(headers: &str, data: Bytes) -> Result<Part, String> {
 mod tests {
     use super::*;
 
+    #[test]
+    fn a_column_is_found_once_absent_or_refused_when_named_twice() {
+        let names: Vec<String> = ["id", "pd", "pd", "x"].iter().map(|s| s.to_string()).collect();
+        assert_eq!(column_index(&names, "x", "probability").unwrap(), Some(3));
+        assert_eq!(column_index(&names, "missing", "id").unwrap(), None);
+        let p = column_index(&names, "pd", "probability").unwrap_err();
+        let v = serde_json::to_value(&p).unwrap().to_string();
+        assert!(v.contains("/table/probability") && v.contains("more than one column named"), "{v}");
+    }
+
     fn body(parts: &[(&str, Option<&str>, &[u8])]) -> Bytes {
         let mut b = Vec::new();
         for (name, ct, data) in parts {
