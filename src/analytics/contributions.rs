@@ -21,7 +21,7 @@ use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary, ValueOut};
 use super::pipeline::{Analytic, Ctx, Inputs};
-use super::scenario::{assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
+use super::scenario::{assumptions, Assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
 use crate::config::ServiceLimits;
 use crate::engine::exact::leaf::BLOCK;
 use crate::engine::exact::window::Window;
@@ -102,7 +102,8 @@ pub struct ContributionsResponse {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schema(no_recursion)]
     pub base: Option<Box<ContributionsResponse>>,
-    pub assumptions: Vec<String>,
+    #[schema(value_type = Vec<String>)]
+    pub assumptions: Assumptions,
 }
 
 /// Listed and generated exposures, counted without expanding the families.

@@ -11,7 +11,7 @@ use super::error::Error;
 use super::law::{Law, Summary};
 use super::pipeline::{Analytic, Ctx, Inputs};
 use super::quantiles::quantiles;
-use super::scenario::{assumptions, ModelOut};
+use super::scenario::{assumptions, Assumptions, ModelOut};
 use crate::config::ServiceLimits;
 use crate::engine::{BoundKind, MethodId, Side, Value};
 use crate::portfolio::stress::Stress;
@@ -90,7 +90,8 @@ pub struct DistributionResponse {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schema(no_recursion)]
     pub base: Option<Box<DistributionResponse>>,
-    pub assumptions: Vec<String>,
+    #[schema(value_type = Vec<String>)]
+    pub assumptions: Assumptions,
 }
 
 pub struct Distribution;

@@ -11,7 +11,7 @@ use super::error::Error;
 use super::law::{Law, Summary, ValueOut};
 use super::pipeline::{Analytic, Ctx, Inputs};
 use super::quantiles::quantiles;
-use super::scenario::{assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
+use super::scenario::{assumptions, Assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
 use crate::config::ServiceLimits;
 use crate::engine::numerics::float::{up, U};
 use crate::engine::{BoundKind, MethodId, Side, Value};
@@ -139,7 +139,8 @@ pub struct LayersResponse {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schema(no_recursion)]
     pub base: Option<Box<LayersResponse>>,
-    pub assumptions: Vec<String>,
+    #[schema(value_type = Vec<String>)]
+    pub assumptions: Assumptions,
 }
 
 pub struct Layers;

@@ -13,7 +13,7 @@ use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary};
 use super::pipeline::{Analytic, Ctx, Inputs};
-use super::scenario::{assumptions, ModelOut};
+use super::scenario::{assumptions, Assumptions, ModelOut};
 use super::tail::default_methods;
 use crate::config::ServiceLimits;
 use crate::engine::numerics::normal_law;
@@ -204,7 +204,8 @@ pub struct QuantilesResponse {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schema(no_recursion)]
     pub base: Option<Box<QuantilesResponse>>,
-    pub assumptions: Vec<String>,
+    #[schema(value_type = Vec<String>)]
+    pub assumptions: Assumptions,
 }
 
 /// Probes a quantile search may need (guess, gallop and bisection of three searches), for the work budget.

@@ -26,8 +26,39 @@ pub const CHART_CAUTION: &str =
     "Bounds cover the computation, not the inputs' uncertainty; rho (if used) must be calibrated. Supports, does not replace, expert judgement.";
 
 /// [`ASSUMPTIONS`] as an answer carries them.
-pub fn assumptions() -> Vec<String> {
-    ASSUMPTIONS.iter().map(|s| s.to_string()).collect()
+pub fn assumptions() -> Assumptions {
+    Assumptions::Constant
+}
+
+/// An answer's list of assumptions (a list of strings on the wire). The service's answers hold the constant
+/// lines themselves, written out without being copied for each answer; an answer read back (a client's,
+/// a test's) holds the lines it read.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Assumptions {
+    Constant,
+    Read(Vec<String>),
+}
+
+impl Assumptions {
+    pub fn iter(&self) -> impl Iterator<Item = &str> + '_ {
+        let (constant, read): (&[&str], &[String]) = match self {
+            Assumptions::Constant => (ASSUMPTIONS, &[]),
+            Assumptions::Read(lines) => (&[], lines),
+        };
+        constant.iter().copied().chain(read.iter().map(String::as_str))
+    }
+}
+
+impl Serialize for Assumptions {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.collect_seq(self.iter())
+    }
+}
+
+impl<'de> Deserialize<'de> for Assumptions {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        Vec::<String>::deserialize(d).map(Assumptions::Read)
+    }
 }
 
 /// Largest count (threshold, range end, layer bound) served for an unbounded (Poisson) portfolio: its tilted
@@ -186,5 +217,20 @@ pub fn build(model: Model, stress: Option<Stress>, dep: Option<Dependence>, canc
             let st = stressed(&model, &s);
             Laws { law: law(st), base: Some(law(model)), stress: Some(s) }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The constant lines are written as the list of strings they were (the wire form before this type), and
+    /// read back as that list.
+    #[test]
+    fn assumptions_are_written_as_the_constant_list() {
+        let text = serde_json::to_string(&assumptions()).unwrap();
+        assert_eq!(text, serde_json::to_string(ASSUMPTIONS).unwrap());
+        let back: Assumptions = serde_json::from_str(&text).unwrap();
+        assert!(back.iter().eq(ASSUMPTIONS.iter().copied()));
     }
 }

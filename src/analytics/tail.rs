@@ -6,7 +6,7 @@ use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary};
 use super::pipeline::{Analytic, Ctx, Inputs};
-use super::scenario::{assumptions, ModelOut};
+use super::scenario::{assumptions, Assumptions, ModelOut};
 use crate::config::ServiceLimits;
 use crate::engine::vocabulary::{Selection, Tolerance};
 use crate::engine::{BoundKind, Estimate, MethodId, Side};
@@ -108,7 +108,8 @@ pub struct TailResponse {
     #[schema(no_recursion)]
     pub base: Option<Box<TailResponse>>,
     /// The model's assumptions and the usual caution.
-    pub assumptions: Vec<String>,
+    #[schema(value_type = Vec<String>)]
+    pub assumptions: Assumptions,
 }
 
 pub struct Tail;

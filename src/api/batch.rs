@@ -8,8 +8,9 @@
 //!
 //! Memory stays bounded whatever the batch's length: the input is split into lines as it arrives (a line
 //! longer than the limit is skipped to its end and answered with a problem), at most `parallelism` lines
-//! are computed at once off the async threads, and each answer is handed on as soon as the lines before it
-//! have been. After `max_lines` lines the answers end with one 413 problem line and the rest of the input is
+//! are computed at once off the async threads (a line whose work is within the inline budget is answered at
+//! once on the async worker instead, as a small request is: `api::offload`), and each answer is handed on as
+//! soon as the lines before it have been. After `max_lines` lines the answers end with one 413 problem line and the rest of the input is
 //! not read.
 
 use crate::analytics::cancel::Cancel;
@@ -267,7 +268,22 @@ where
         .buffered(batch.parallelism.max(1))
 }
 
+/// Lines up to this long are first read on the async worker, to answer at once those whose work is within the
+/// inline budget (`analytics::cost::INLINE_WORK`); a longer line, or one over the budget, goes to the
+/// blocking pool (read again there: a line of this size parses in well under 0.1 ms).
+pub const INLINE_LINE_BYTES: usize = 64 * 1024;
+
 async fn compute_line(no: u64, bytes: Vec<u8>, limits: Arc<ServiceLimits>, timeout: std::time::Duration) -> Vec<u8> {
+    // A small line costs less than its hand-off to the blocking pool and back (the wake-ups and switches
+    // were most of a batch's CPU), and holds the worker for well under a millisecond, so neither the timeout
+    // nor cancellation has anything to stop. Tokio's cooperative budget makes a long run of them yield now
+    // and then, so that the worker's other connections are still served.
+    if bytes.len() <= INLINE_LINE_BYTES {
+        if let Some(out) = small_line(no, &bytes, &limits) {
+            tokio::task::consume_budget().await;
+            return out;
+        }
+    }
     // The id is parsed on the blocking thread; it is left here so that a timed-out line still names it.
     let id = Arc::new(OnceLock::new());
     let (cancel, guard) = Cancel::pair();
@@ -307,7 +323,6 @@ pub fn answer_line(
         Err(r) => return problem_line(r.0.as_deref(), r.1),
     };
     let _ = id_out.set(env.id.clone());
-    let id = Some(env.id.as_str());
     let body = env.body.get().as_bytes();
     let result = match env.kind {
         Kind::Tail => run::<Tail>(body, limits, cancel),
@@ -316,6 +331,31 @@ pub fn answer_line(
         Kind::Layers => run::<Layers>(body, limits, cancel),
         Kind::Contributions => run::<Contributions>(body, limits, cancel),
     };
+    line_of(no, &env, result)
+}
+
+/// The answer to a line whose work is within the inline budget (a line that cannot be read or whose request
+/// is invalid is answered too: its problem costs nothing); `None` for a line to be answered on the
+/// blocking pool.
+fn small_line(no: u64, line: &[u8], limits: &ServiceLimits) -> Option<Vec<u8>> {
+    let env = match parse_envelope(no, line) {
+        Ok(env) => env,
+        Err(r) => return Some(problem_line(r.0.as_deref(), r.1)),
+    };
+    let body = env.body.get().as_bytes();
+    let result = match env.kind {
+        Kind::Tail => run_small::<Tail>(body, limits),
+        Kind::Quantiles => run_small::<Quantiles>(body, limits),
+        Kind::Distribution => run_small::<Distribution>(body, limits),
+        Kind::Layers => run_small::<Layers>(body, limits),
+        Kind::Contributions => run_small::<Contributions>(body, limits),
+    }?;
+    Some(line_of(no, &env, result))
+}
+
+/// `{"id": ..., "<kind>": <answer>}` or the line's problem, with a line break.
+fn line_of(no: u64, env: &Envelope, result: Result<Vec<u8>, Problem>) -> Vec<u8> {
+    let id = Some(env.id.as_str());
     match result {
         Ok(json) => {
             let mut out = Vec::with_capacity(json.len() + env.id.len() + 24);
@@ -340,6 +380,27 @@ where
     let req: A::Request = extract::parse(body)?;
     let resp = analytics::run::<A>(&req, limits, cancel)?;
     serde_json::to_vec(&resp).map_err(|e| Problem::internal(format!("could not write the answer: {e}")))
+}
+
+/// As `run`, when the request bounds its work within the inline budget; `None` otherwise.
+fn run_small<A>(body: &[u8], limits: &ServiceLimits) -> Option<Result<Vec<u8>, Problem>>
+where
+    A: Analytic,
+    A::Request: serde::de::DeserializeOwned,
+    A::Answer: serde::Serialize,
+{
+    let req: A::Request = match extract::parse(body) {
+        Ok(req) => req,
+        Err(p) => return Some(Err(p)),
+    };
+    if !analytics::cost::inline_work::<A>(&req).is_some_and(|w| w <= analytics::cost::INLINE_WORK) {
+        return None;
+    }
+    let resp = match analytics::run::<A>(&req, limits, &Cancel::never()) {
+        Ok(resp) => resp,
+        Err(e) => return Some(Err(e.into())),
+    };
+    Some(serde_json::to_vec(&resp).map_err(|e| Problem::internal(format!("could not write the answer: {e}"))))
 }
 
 /// `{"id": <id or null>, "problem": <problem>}` with a line break.
@@ -519,6 +580,42 @@ mod tests {
         let v = answer(r#"{"id": 1, "tail": "#);
         assert_eq!(v["problem"]["status"], 400);
         assert!(v["problem"]["detail"].as_str().unwrap().starts_with("line 7, column"), "{v}");
+    }
+
+    /// The inline path gives the same bytes as the blocking pool's, answers and problems alike, and leaves
+    /// a line whose work is over the inline budget to the pool.
+    #[test]
+    fn small_lines_are_answered_inline_with_the_same_bytes() {
+        let limits = crate::config::ServiceLimits::from_options(&crate::config::Options::default());
+        let lines = [
+            r#"{"id": 1, "tail": {"portfolio": {"probabilities": [0.1, 0.2, 0.3]}, "thresholds": [1, 2]}}"#,
+            r#"{"id": "q", "tail": {"portfolio": {"groups": [{"size": 100, "probability": 0.05}]}, "thresholds": [9], "side": "lower"}}"#,
+            r#"{"id": 2, "tail": {"portfolio": {"probabilities": [0.5]}, "thresholds": [-1]}}"#,
+            r#"{"id": 3, "tail": "#,
+        ];
+        for line in lines {
+            let inline = small_line(5, line.as_bytes(), &limits).expect(line);
+            let pooled = answer_line(5, line.as_bytes(), &limits, &Cancel::never(), &OnceLock::new());
+            // Timings are measurements, not answers (as in scripts/answers_snapshot.py).
+            let blank =
+                |b: Vec<u8>| {
+                    let s = String::from_utf8(b).unwrap();
+                    s.split("\"elapsed_us\":")
+                        .enumerate()
+                        .map(|(i, part)| {
+                            if i == 0 {
+                                part
+                            } else {
+                                part.trim_start_matches(|c: char| c.is_ascii_digit() || c == '.')
+                            }
+                        })
+                        .collect::<Vec<_>>()
+                        .join("\"elapsed_us\":_")
+                };
+            assert_eq!(blank(inline), blank(pooled));
+        }
+        let large = r#"{"id": 4, "tail": {"portfolio": {"families": [{"kind": "linear", "n": 100000, "first": 0.01, "last": 0.1}]}, "thresholds": [5000]}}"#;
+        assert!(small_line(5, large.as_bytes(), &limits).is_none());
     }
 
     #[test]

@@ -74,7 +74,14 @@ where
 }
 
 /// Parse JSON, mapping serde's errors to problems with a JSON pointer.
+///
+/// Valid documents are read by serde_json alone; the path tracking that gives a failure its pointer wraps
+/// every value (about a fifth of the parse of a list of numbers), so it is paid only by a document that
+/// fails, read a second time. Both readers see the same bytes with the same rules, so they fail alike.
 pub fn parse<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, Problem> {
+    if let Ok(v) = serde_json::from_slice(bytes) {
+        return Ok(v);
+    }
     let mut de = serde_json::Deserializer::from_slice(bytes);
     match serde_path_to_error::deserialize::<_, T>(&mut de) {
         Ok(v) => {

@@ -3,6 +3,7 @@
 //! sends `Accept: text/csv`.
 
 use crate::analytics::distribution::{Distribution, DistributionRequest, DistributionResponse};
+use crate::api::encode::Json;
 use crate::api::extract::Body;
 use crate::api::offload::answer;
 use crate::api::problem::Problem;
@@ -12,7 +13,6 @@ use axum::extract::State;
 use axum::http::{header, HeaderMap, HeaderValue};
 use axum::response::{IntoResponse, Response};
 use axum::Extension;
-use axum::Json;
 use std::fmt::Write;
 
 /// The count distribution over a range.
@@ -56,7 +56,7 @@ fn opt(x: Option<f64>) -> String {
 /// count (the stressed law under stress). `sf` is P(S > k).
 pub fn to_csv(d: &DistributionResponse) -> String {
     let mut s = String::new();
-    for a in &d.assumptions {
+    for a in d.assumptions.iter() {
         let _ = writeln!(s, "# {}", a.replace(['\r', '\n'], " "));
     }
     s.push_str("count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound\n");

@@ -20,9 +20,9 @@ macro_rules! json_route {
             axum::extract::State(state): axum::extract::State<crate::api::AppState>,
             admitted: Option<axum::Extension<crate::api::Admitted>>,
             crate::api::extract::Body(req): crate::api::extract::Body<$req>,
-        ) -> Result<axum::Json<$resp>, crate::api::problem::Problem> {
+        ) -> Result<crate::api::encode::Json<$resp>, crate::api::problem::Problem> {
             let admitted = admitted.map(|axum::Extension(a)| a);
-            Ok(axum::Json(crate::api::offload::answer::<$question>(req, state.limits.clone(), admitted).await?))
+            Ok(crate::api::encode::Json(crate::api::offload::answer::<$question>(req, state.limits.clone(), admitted).await?))
         }
     };
 }
