@@ -7,7 +7,10 @@
 //! * `MODE`:
 //!   - `tail`: P(S >= k) with k = ceil(mean + 5 sd), through `exact::evaluate`;
 //!   - `full`: the untilted law over its Bernstein window, through `exact::tilted(&model, 0.0)`;
-//!   - `phases` (diagnostic): one `tail` computation split into its stages, to see where the time goes.
+//!   - `phases` (diagnostic): one `tail` computation split into its stages, to see where the time goes;
+//!   - `tightness`: here `PROBS_FILE` is fixtures/reference/tightness.json; for each case there (the "mod1000"
+//!     portfolios, n up to 10^6, P(S >= ceil(mean + 5 sd)) from python-flint at 256 bits) it prints the exact
+//!     method's value, observed relative error, rigorous relative bound and their ratio (docs/accuracy.md).
 //! * `REPEATS`: number of timed runs (default 7); the median and the minimum are reported.
 //!
 //! Prints one JSON line. Timed work: building the `Model` from the slice, `Moments::of` and the engine call;
@@ -74,13 +77,49 @@ fn threshold(mom: &Moments) -> u64 {
     (mom.mean + 5.0 * mom.sd()).ceil() as u64
 }
 
+/// Observed error and rigorous bound against the committed references (the observed error is floored at U:
+/// the reference is rounded to a double before the comparison).
+fn tightness(path: &str) {
+    let text = std::fs::read_to_string(path).unwrap_or_else(|e| {
+        eprintln!("cannot read {path}: {e}");
+        std::process::exit(1);
+    });
+    let doc: serde_json::Value = serde_json::from_str(&text).expect("tightness.json");
+    for c in doc["cases"].as_array().expect("cases") {
+        let n = c["n"].as_u64().expect("n");
+        let k = c["k"].as_u64().expect("k");
+        let p_ref: f64 = c["upper"].as_str().expect("upper").parse().expect("a decimal");
+        let ps: Vec<f64> = (0..n).map(|i| ((7919 * i) % 1000 + 1) as f64 / 5000.0).collect();
+        let start = Instant::now();
+        let model = Model::from_parts(&ps, &[], 0.0);
+        let v = exact::evaluate(&model, &Moments::of(&model), &[(k, Side::Upper)]).0[0];
+        let elapsed = ms(start.elapsed());
+        let observed = (v.value - p_ref).abs() / p_ref;
+        let ratio = v.rel_err / observed.max(f64::EPSILON / 2.0);
+        println!(
+            "{{\"mode\":\"tightness\",\"n\":{n},\"k\":{k},\"p\":{},\"reference\":{},\"observed_rel\":{},\
+             \"rel_err_bound\":{},\"ratio\":{},\"ms\":{}}}",
+            num(v.value),
+            num(p_ref),
+            num(observed),
+            num(v.rel_err),
+            num(ratio),
+            num(elapsed),
+        );
+    }
+}
+
 fn main() {
     let args: Vec<String> = std::env::args().collect();
     if args.len() < 3 {
         usage();
     }
-    let probs = read_probs(&args[1]);
     let mode = args[2].as_str();
+    if mode == "tightness" {
+        tightness(&args[1]);
+        return;
+    }
+    let probs = read_probs(&args[1]);
     let repeats: usize = match args.get(3) {
         Some(s) => s.parse().unwrap_or_else(|_| usage()),
         None => 7,

@@ -33,7 +33,8 @@ pub fn bernoulli_block(ps: &[f64], c: &TiltConsts) -> Window {
     }
     let per = compose(TILT_REL, gamma(2.0));
     let rel = (1.0 + per).powi(ps.len() as i32) - 1.0;
-    let mut win = Window { lo: 0, w, rel: rel * (1.0 + 1e-12), abs: 0.0, mean, var, max: Some(ps.len() as u64) };
+    let mut win =
+        Window { lo: 0, w, rel: rel * (1.0 + 1e-12), abs: 0.0, inf: 0.0, mean, var, max: Some(ps.len() as u64) };
     win.add_underflow_slack(((ps.len() + 1) * ps.len()) as f64);
     win
 }
@@ -70,7 +71,7 @@ pub fn poisson(lambda: f64, c: &TiltConsts) -> Window {
 }
 
 fn degenerate(at: u64, max: Option<u64>, ops: f64) -> Window {
-    let mut w = Window { lo: at, w: vec![1.0], rel: 0.0, abs: 1e-300, mean: at as f64, var: 0.0, max };
+    let mut w = Window { lo: at, w: vec![1.0], rel: 0.0, abs: 1e-300, inf: 1e-300, mean: at as f64, var: 0.0, max };
     w.add_underflow_slack(ops);
     w
 }
@@ -116,7 +117,7 @@ fn ratio_window(
     let tau = 2.0 * (-super::window::TRUNC_LN).exp();
     // Normalisation: the computed sum is within `entry` + gamma(len) of the exact windowed sum 1 - tau.
     let rel = compose(compose(entry, entry + gamma(len as f64 + 1.0)), tau);
-    let mut win = Window { lo, w, rel, abs: tau * (1.0 + rel), mean, var, max };
+    let mut win = Window { lo, w, rel, abs: tau * (1.0 + rel), inf: tau * (1.0 + rel), mean, var, max };
     win.add_underflow_slack(2.0 * len as f64);
     win
 }

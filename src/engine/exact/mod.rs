@@ -226,7 +226,17 @@ fn tail_from(law: &Tilted, job: &Job) -> Value {
     } else {
         walk(w, x, job.dir, rho, |_| 1.0)
     };
-    let tail = finish(law, x, sum, dsum, terms, w.rel, w.abs);
+    // The absolute part of the window's error, e, enters the sum as sum_j e_j rho^|j - x| over the summed side:
+    // at most ||e||_1, and at most max |e_j| times the sum of the weights, 1 / (1 - e^-|t|) (one term for P(S = x)).
+    let weights = if job.point {
+        1.0
+    } else if t != 0.0 {
+        up(1.0 / -(-t.abs()).exp_m1()) * (1.0 + 1e-12)
+    } else {
+        f64::INFINITY
+    };
+    let abs = w.abs.min(w.inf * weights);
+    let tail = finish(law, x, sum, dsum, terms, w.rel, abs);
     if !job.complement {
         return tail;
     }

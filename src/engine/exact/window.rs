@@ -5,9 +5,12 @@
 //! standard deviation rather than n.
 //!
 //! Error model. A window `w` on counts lo..lo+len approximates the exact pmf f of its part in the sense that
-//! w_j = f_j (1 + d_j) + e_j with |d_j| <= `rel` for every j and sum_j |e_j| <= `abs` (w is 0 outside the
-//! window). Direct arithmetic on non-negative numbers keeps errors relative (`rel`); the FFT and truncation add
-//! absolute L1 error (`abs`). The propagation rules are in `Window::after_product`.
+//! w_j = f_j (1 + d_j) + e_j with |d_j| <= `rel` for every j, sum_j |e_j| <= `abs` and max_j |e_j| <= `inf`
+//! (w is 0 outside the window). Direct arithmetic on non-negative numbers keeps errors relative (`rel`); the
+//! FFT and truncation add absolute error (`abs`, and `inf` per entry). The per-entry bound matters because an
+//! absolute error made low in the product tree is later convolved with the rest of the law, which spreads it:
+//! ||e * q||_inf <= ||e||_1 max_j q_j, and a tail sum near the threshold sees only the entries there.
+//! The propagation rules are in `Window::after_product`.
 
 use crate::engine::numerics::float::compose;
 
@@ -21,6 +24,8 @@ pub struct Window {
     pub w: Vec<f64>,
     pub rel: f64,
     pub abs: f64,
+    /// Bound on every single |e_j| (never above `abs`).
+    pub inf: f64,
     /// Mean and variance of the exact tilted law of this part (used to place truncations).
     pub mean: f64,
     pub var: f64,
@@ -34,14 +39,32 @@ impl Window {
     }
 
     pub fn point() -> Window {
-        Window { lo: 0, w: vec![1.0], rel: 0.0, abs: 0.0, mean: 0.0, var: 0.0, max: Some(0) }
+        Window { lo: 0, w: vec![1.0], rel: 0.0, abs: 0.0, inf: 0.0, mean: 0.0, var: 0.0, max: Some(0) }
     }
 
-    /// Errors of the product of two windows before the rounding of the product itself.
-    pub fn after_product(a: &Window, b: &Window) -> (f64, f64) {
+    /// Errors (rel, abs, inf) of the exact product of two computed windows, before the rounding of the product
+    /// itself. With a^ = a~ + e_a, a~ = f_a (1 + d_a) >= 0 (the same for b): a^ * b^ = a~ * b~ + e_a * b^ + a~ * e_b.
+    /// The first term is relative; ||b^||_1 <= 1 + rel_b + abs_b (the exact law has mass <= 1) and
+    /// ||a~||_1 <= 1 + rel_a give the L1 part; per entry, ||e_a * b^||_inf <= min(||e_a||_inf ||b^||_1,
+    /// ||e_a||_1 max b^) with max b^ read off the computed window, and ||a~||_inf <= max a^ + inf_a.
+    pub fn after_product(a: &Window, b: &Window) -> (f64, f64, f64) {
         let rel = compose(a.rel, b.rel);
-        let abs = a.abs * (1.0 + b.rel + b.abs) + b.abs * (1.0 + a.rel);
-        (rel, abs)
+        let b1 = 1.0 + b.rel + b.abs;
+        let abs = a.abs * b1 + b.abs * (1.0 + a.rel);
+        let (amax, bmax) = (a.max_entry(), b.max_entry());
+        let inf = (a.inf * b1).min(a.abs * bmax) + (b.inf * (1.0 + a.rel)).min(b.abs * (amax + a.inf));
+        (rel, abs, inf.min(abs))
+    }
+
+    /// The largest entry of the computed window.
+    pub fn max_entry(&self) -> f64 {
+        self.w.iter().fold(0.0f64, |m, &x| m.max(x))
+    }
+
+    /// Add an absolute error vector of L1 norm `l1` and largest entry `linf`.
+    pub fn add_abs(&mut self, l1: f64, linf: f64) {
+        self.abs += l1;
+        self.inf = (self.inf + linf).min(self.abs);
     }
 
     /// Bernstein radius s: a sum of independent variables with |X_i - E X_i| <= 1 and variance v satisfies
@@ -68,6 +91,6 @@ impl Window {
     /// Account for gradual underflow: each operation that lands below the normal range may lose up to
     /// 2^-1075 absolutely. `ops` bounds the number of such operations.
     pub fn add_underflow_slack(&mut self, ops: f64) {
-        self.abs += ops * f64::from_bits(1);
+        self.add_abs(ops * f64::from_bits(1), ops * f64::from_bits(1));
     }
 }
