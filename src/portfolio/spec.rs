@@ -53,7 +53,7 @@ pub struct GroupSpec {
     pub loading: Option<f64>,
     /// Loss units each member adds when its event happens, a whole number in 1..=1e9 (default 1).
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    #[schema(example = 20)]
+    #[schema(example = 20, minimum = 1, maximum = 1000000000)]
     pub units: Option<u64>,
 }
 crate::portfolio::objects::objects_only!(GroupSpec);
@@ -71,6 +71,7 @@ pub enum FamilySpec {
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
         units: Option<u64>,
     },
     /// p_k = 1/k for k = 1..n (the number of cycles of a uniform random permutation of n items).
@@ -79,6 +80,7 @@ pub enum FamilySpec {
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
         units: Option<u64>,
     },
     /// p_k = theta / (theta + k - 1) for k = 1..n, theta > 0.
@@ -88,6 +90,7 @@ pub enum FamilySpec {
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
         units: Option<u64>,
     },
     /// p_k = first * ratio^(k-1) for k = 1..n.
@@ -98,6 +101,7 @@ pub enum FamilySpec {
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
         units: Option<u64>,
     },
     /// n probabilities evenly spaced from `first` to `last` (inclusive).
@@ -108,6 +112,7 @@ pub enum FamilySpec {
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
         units: Option<u64>,
     },
     /// p = 1 / (1 + exp(-(intercept + slope * score))) for each score.
@@ -118,6 +123,7 @@ pub enum FamilySpec {
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
         units: Option<u64>,
     },
 }
