@@ -136,3 +136,33 @@ async fn a_csv_units_column_answers_as_the_json_form() {
     assert_problem(st, &ct, &got, 422, Some("/exposures/1/units"));
     s.shutdown().await.unwrap();
 }
+
+#[tokio::test]
+async fn a_batch_line_in_units_answers_as_the_route_does() {
+    let s = start(&[]).await;
+    let tail = json!({"portfolio": {"probabilities": P, "units": U}, "thresholds": [13, 50]});
+    let body = format!(
+        "{}\n{}\n",
+        json!({"id": "units", "tail": tail}),
+        json!({"id": "not-yet", "layers": {"portfolio": {"probabilities": P, "units": U}, "layers": [{"attachment": 10}]}})
+    );
+    let res = s
+        .client
+        .post(format!("{}/v1/batch", s.base))
+        .header("content-type", "application/x-ndjson")
+        .body(body)
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(res.status().as_u16(), 200);
+    let text = res.text().await.unwrap();
+    let lines: Vec<serde_json::Value> = text.lines().map(|l| serde_json::from_str(l).unwrap()).collect();
+    let (_, _, want) = s.post_json("/v1/tail", &tail).await;
+    for i in 0..2 {
+        let got = &lines[0]["tail"]["results"][i]["estimates"][0]["probability"];
+        assert_eq!(got, &want["results"][i]["estimates"][0]["probability"], "{text}");
+    }
+    assert_eq!(lines[1]["problem"]["status"], 422, "{text}");
+    assert_eq!(lines[1]["problem"]["errors"][0]["pointer"], "/layers/portfolio/units", "{text}");
+    s.shutdown().await.unwrap();
+}
