@@ -54,6 +54,13 @@ def corpus():
             (f"chart-{name}", "/v1/chart", {"portfolio": port, "threshold": 9, "methods": ["normal", "saddlepoint"]}, {}),
             (f"chart-{name}-log", "/v1/chart", {"portfolio": port, "threshold": 4, "side": "lower", "log_scale": True, "width": 500, "height": 300}, {}),
         ]
+    units = {"probabilities": [0.05, 0.12, 0.3, 0.07, 0.2, 0.01, 1.0], "units": [12, 30, 4, 18, 8, 250, 3],
+             "groups": [{"size": 40, "probability": 0.03, "units": 2}]}
+    c += [
+        ("tail-units", "/v1/tail", {"portfolio": units, "thresholds": [0, 3, 4, 60, 61, 300, 405], "methods": ["exact", "normal"]}, {}),
+        ("tail-units-sides", "/v1/tail", {"portfolio": units, "thresholds": [20, 21], "side": "point", "stress": {"odds_factor": 2}}, {}),
+        ("bad-units", "/v1/distribution", {"portfolio": units}, {}),
+    ]
     bad = [
         ("bad-tail-thr", "/v1/tail", {"portfolio": P, "thresholds": []}),
         ("bad-tail-p", "/v1/tail", {"portfolio": {"probabilities": [0.5, 1.5, -1]}, "thresholds": [1], "methods": []}),

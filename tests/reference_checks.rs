@@ -116,7 +116,7 @@ fn harmonic_family_matches_stirling_numbers() {
     }
     for n in [10usize, 60, 170] {
         let mut model = Model::default();
-        expand(&FamilySpec::Harmonic { n: n as u64, loading: None }, |p| model.push_bernoulli(p));
+        expand(&FamilySpec::Harmonic { n: n as u64, loading: None, units: None }, |p| model.push_bernoulli(p));
         let row = stirling_row(n);
         let fact: num_bigint::BigUint = row.iter().sum();
         let queries: Vec<(u64, Side)> = (0..=n as u64).map(|k| (k, Side::Point)).collect();

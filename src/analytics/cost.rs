@@ -41,6 +41,17 @@ impl Footprint {
 /// Doubles held by the exact engine's windows for one tilted law of `model`, where `top` is the largest
 /// count the question asks about.
 pub fn exact_window_doubles(model: &Model, top: u64) -> f64 {
+    if model.weighted() {
+        // Losses in units: leaves as wide as their members' steps (block widths plus one each), groups'
+        // count windows spread over their step, products no wider in all than the leaves.
+        let blocks = (model.bernoulli.len() as f64 / BLOCK as f64).ceil();
+        let mut d = blocks + super::scenario::lattice_work(model);
+        if model.poisson > 0.0 {
+            let mu = model.poisson.max(top.min(super::scenario::MAX_UNBOUNDED_COUNT) as f64);
+            d += 2.0 * Window::bernstein_radius_step(mu, 1.0) + 4.0;
+        }
+        return 2.0 * d;
+    }
     let blocks = (model.bernoulli.len() as f64 / BLOCK as f64).ceil();
     let mut d = blocks * (BLOCK as f64 + 1.0);
     for b in &model.binomials {

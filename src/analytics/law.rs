@@ -22,7 +22,8 @@ use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
 
 enum Kind {
-    Independent { model: Model, moments: Moments },
+    // Boxed: the model is a few hundred bytes of vectors' headers and the factor variant is a pointer.
+    Independent { model: Box<Model>, moments: Moments },
     Factor(Box<Factor>),
 }
 
@@ -37,7 +38,11 @@ impl Law {
     pub fn independent(model: Model) -> Law {
         let support = (model.support_min(), model.support_max());
         let moments = Moments::of(&model);
-        Law { dependence: Dependence::Independent, kind: Kind::Independent { model, moments }, support }
+        Law {
+            dependence: Dependence::Independent,
+            kind: Kind::Independent { model: Box::new(model), moments },
+            support,
+        }
     }
 
     /// The law under `dep`: the model itself when independent (or when every loading is 0), else the mixture
@@ -73,7 +78,7 @@ impl Law {
     /// The model when the law is a single independent portfolio.
     pub fn single(&self) -> Option<(&Model, &Moments)> {
         match &self.kind {
-            Kind::Independent { model, moments } => Some((model, moments)),
+            Kind::Independent { model, moments } => Some((&**model, moments)),
             Kind::Factor(_) => None,
         }
     }
@@ -199,8 +204,19 @@ pub struct Summary {
 impl Summary {
     /// The summary of a law: its own moments, which under dependence are those of the mixture.
     pub fn of_law(law: &Law) -> Summary {
-        let m = law.moments();
-        let (min, max) = law.support();
+        let mut m = law.moments();
+        let (mut min, mut max) = law.support();
+        let model = law.model();
+        if model.weighted() {
+            // The law was computed in lattice steps: S = offset + span j.
+            let h = model.span() as f64;
+            m.mean = model.offset as f64 + h * m.mean;
+            m.variance *= h * h;
+            m.third_central *= h * h * h;
+            m.third_abs_sum *= h * h * h;
+            min = model.units_of(min);
+            max = max.map(|j| model.units_of(j));
+        }
         let lr = m.lyapunov_ratio();
         Summary {
             exposures: law.exposures(),

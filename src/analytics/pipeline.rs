@@ -36,6 +36,16 @@ pub trait Analytic {
     /// The question's own fields (besides portfolio, stress and dependence), in the order they are reported.
     fn check(req: &Self::Request, limits: &ServiceLimits, errs: &mut Vec<Violation>);
 
+    /// Whether this request may be asked of a portfolio with loss units (its violations otherwise, at the
+    /// fields that stand in the way). A question that does not yet compute on the lattice says so at the
+    /// portfolio's first units field (the default).
+    fn check_units(_req: &Self::Request) -> Result<(), Vec<Violation>> {
+        Err(vec![Violation::new(
+            "",
+            "this question does not yet take loss units (it answers about the count of events); /v1/tail with methods exact and normal does",
+        )])
+    }
+
     /// Rules that need the validated model.
     fn check_model(_req: &Self::Request, _model: &Model) -> Result<(), Error> {
         Ok(())
@@ -78,6 +88,14 @@ fn steps<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel)
     let inputs = A::inputs(req);
     scenario::check(&inputs.stress, &inputs.dependence, &mut errs);
     let model = scenario::model(inputs.portfolio, &inputs.stress, &inputs.dependence, limits, errs)?;
+    if model.weighted() {
+        A::check_units(req).map_err(|mut v| {
+            for x in v.iter_mut().filter(|x| x.pointer.is_empty()) {
+                x.pointer = scenario::units_pointer(inputs.portfolio);
+            }
+            Error::Invalid(v)
+        })?;
+    }
     A::check_model(req, &model)?;
     if let Some(evaluations) = A::evaluations(req) {
         let factor = scenario::work_factor(&inputs.stress, &inputs.dependence);

@@ -117,7 +117,44 @@ pub fn work_factor(stress: &Option<Stress>, dep: &Option<Dependence>) -> f64 {
 /// The work a model costs for `evaluations` exact tails, in exposure-threshold units, to compare with
 /// `--max-work`.
 pub fn work_of(model: &Model, evaluations: usize) -> f64 {
-    (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0) * evaluations as f64
+    (model.bernoulli.len() as f64 + model.binomials.len() as f64 * 64.0 + 64.0 + lattice_work(model))
+        * evaluations as f64
+}
+
+/// The extra work of loss units, in the same units: a Bernoulli block's recursion costs its members times
+/// its width in lattice steps (for a count, 32 x 32 per block: one unit of work per exposure), so the leaves
+/// cost the sum of the steps; a binomial group's leaf is its count window spread over u steps each. 0 for a
+/// count.
+pub fn lattice_work(model: &Model) -> f64 {
+    if !model.weighted() {
+        return 0.0;
+    }
+    let bern: f64 = model.units.iter().map(|&u| u as f64).sum::<f64>().max(model.bernoulli.len() as f64);
+    let groups: f64 = model
+        .binomials
+        .iter()
+        .enumerate()
+        .map(|(i, b)| {
+            let u = model.group_units.get(i).map_or(1.0, |&u| u as f64);
+            let m = b.size as f64;
+            (m + 1.0).min(2.0 * crate::engine::exact::window::Window::bernstein_radius_step(m / 4.0, 1.0) + 4.0) * u
+        })
+        .sum();
+    bern + groups
+}
+
+/// Pointer to the first field that gives loss units (where a question that does not take them says so).
+pub fn units_pointer(spec: &PortfolioSpec) -> String {
+    if !spec.units.is_empty() {
+        return "/portfolio/units".into();
+    }
+    if let Some(i) = spec.groups.iter().position(|g| g.units.is_some()) {
+        return format!("/portfolio/groups/{i}/units");
+    }
+    if let Some(i) = spec.families.iter().position(|f| f.units().is_some()) {
+        return format!("/portfolio/families/{i}/units");
+    }
+    "/portfolio".into()
 }
 
 /// Check the stress and dependence fields; `errs` collects violations with pointers.
@@ -198,6 +235,24 @@ fn name_ids(spec: &PortfolioSpec, errs: &mut [Violation]) {
 /// Refuse work over the budget (exposures x evaluations x scenario factor).
 pub fn check_work(model: &Model, evaluations: f64, factor: f64, limits: &ServiceLimits) -> Result<(), Error> {
     let work = work_of(model, 1) * evaluations * factor;
+    if work > limits.max_work && model.weighted() {
+        // The lattice's share shrinks in proportion to a coarser unit; say how much coarser would fit.
+        let lattice = lattice_work(model) * evaluations * factor;
+        let room = limits.max_work - (work - lattice);
+        let coarser = if room > 0.0 { (lattice / room).ceil().max(2.0) } else { f64::INFINITY };
+        let advice = if coarser.is_finite() {
+            format!(
+                "losses in units about {coarser:.0} times coarser would fit (divide every unit by {coarser:.0} and round: actuaries rebucket amounts this way)"
+            )
+        } else {
+            "the exposures alone exceed it, whatever the unit; split the request".to_string()
+        };
+        return Err(Error::TooLarge(format!(
+            "estimated work {work:.0} (exposures and lattice width {:.0} steps x evaluations x nodes) exceeds the work budget {} (see --max-work); {advice}",
+            model.lattice_width(),
+            limits.max_work
+        )));
+    }
     if work > limits.max_work {
         return Err(Error::TooLarge(format!(
             "estimated work {work:.0} (exposures x evaluations x nodes) exceeds the work budget {} (see --max-work); split the request",

@@ -2,7 +2,8 @@
 //! `request` and the listed exposures as the part `exposures`, a CSV table (`text/csv`: a header row, a
 //! probability column and an optional id column) or an Apache Arrow IPC stream
 //! (`application/vnd.apache.arrow.stream`: a Float64 probability column, an optional Utf8, LargeUtf8 or
-//! Int64 id column). The JSON part may carry a `table` object naming the columns ([`TableSpec`]); other
+//! Int64 id column), either with an optional column of loss units (whole numbers; Int64 or UInt64 in Arrow)
+//! that goes to `portfolio.units`. The JSON part may carry a `table` object naming the columns ([`TableSpec`]); other
 //! columns are ignored. The table's rows are appended to `portfolio.probabilities` (after any listed in the
 //! JSON, so row r of a table sent with n JSON probabilities has index n + r), and its ids to
 //! `portfolio.ids`; from there on a request is the same as its JSON form.
@@ -84,6 +85,11 @@ pub struct TableSpec {
     /// Column of exposure ids (default `id`, read when the table has it; named here, it must exist).
     #[schema(example = "loan_id")]
     pub id: Option<String>,
+    /// Column of loss units per exposure, whole numbers in 1..=1e9 (default `units`, read when the table has
+    /// it; named here, it must exist). Rows go to `portfolio.units` (1 for the JSON's listed exposures when
+    /// the JSON gives none).
+    #[schema(example = "sum_insured_k")]
+    pub units: Option<String>,
     /// CSV only: the field delimiter, one ASCII character (default `,`; `;` and a tab are common).
     #[schema(example = ";")]
     pub delimiter: Option<String>,
@@ -265,6 +271,9 @@ struct Columns {
     /// The id column, and whether the client named it (then it must exist).
     id: String,
     id_named: bool,
+    /// The units column, and whether the client named it.
+    units: String,
+    units_named: bool,
     delimiter: u8,
     /// Whether the route returns ids (only then are they kept: 10^6 of them cost tens of milliseconds).
     keep_ids: bool,
@@ -283,6 +292,12 @@ impl Columns {
         } else if id == probability {
             errs.push(Violation::new("/table/id", "must name another column than the probability's"));
         }
+        let units = spec.units.clone().unwrap_or_else(|| "units".into());
+        if units.is_empty() {
+            errs.push(Violation::new("/table/units", "must name a column"));
+        } else if units == probability || units == id {
+            errs.push(Violation::new("/table/units", "must name another column than the probability's and the id's"));
+        }
         let delimiter = match spec.delimiter.as_deref().map(str::as_bytes) {
             None => b',',
             Some(&[d]) if d.is_ascii() && !matches!(d, b'"' | b'\r' | b'\n') => d,
@@ -297,12 +312,22 @@ impl Columns {
         if !errs.is_empty() {
             return Err(Problem::invalid(errs));
         }
-        Ok(Columns { probability, id, id_named: spec.id.is_some(), delimiter, keep_ids })
+        Ok(Columns {
+            probability,
+            id,
+            id_named: spec.id.is_some(),
+            units,
+            units_named: spec.units.is_some(),
+            delimiter,
+            keep_ids,
+        })
     }
 
     fn missing(&self, which: &str, found: &[String]) -> Problem {
         let (name, at, how) = if which == "probability" {
             (&self.probability, "/table/probability", "name it in table.probability")
+        } else if which == "units" {
+            (&self.units, "/table/units", "name it in table.units, or leave table.units out")
         } else {
             (&self.id, "/table/id", "name it in table.id, or leave table.id out")
         };
@@ -358,6 +383,8 @@ struct Table {
     probabilities: Vec<f64>,
     /// One per row when the table has an id column.
     ids: Option<Vec<Option<ExposureId>>>,
+    /// One per row when the table has a units column.
+    units: Option<Vec<u64>>,
 }
 
 /// Append the table to the portfolio: rows after the JSON's probabilities; ids after the JSON's (nulls for
@@ -378,6 +405,22 @@ fn append(p: &mut PortfolioSpec, t: Table) -> Result<(), Problem> {
             p.ids.append(&mut ids);
         }
         None if !p.ids.is_empty() => p.ids.resize(n + t.probabilities.len(), None),
+        None => {}
+    }
+    if !p.units.is_empty() && p.units.len() != n {
+        return Err(Problem::invalid(vec![Violation::new(
+            "/portfolio/units",
+            format!("{} units for {n} probabilities: give one per probability, or none", p.units.len()),
+        )]));
+    }
+    match t.units {
+        Some(mut units) => {
+            if p.units.is_empty() {
+                p.units.resize(n, 1);
+            }
+            p.units.append(&mut units);
+        }
+        None if !p.units.is_empty() => p.units.resize(n + t.probabilities.len(), 1),
         None => {}
     }
     if p.probabilities.is_empty() {
@@ -462,12 +505,18 @@ fn read_csv(data: &[u8], cols: &Columns, budget: &Budget) -> Result<Table, Probl
     if id_col.is_none() && cols.id_named {
         return Err(cols.missing("id", &names));
     }
+    let u_col = find(&cols.units, "units")?;
+    if u_col.is_none() && cols.units_named {
+        return Err(cols.missing("units", &names));
+    }
     // At most one row per line break: an upper bound on the rows, known before anything is allocated.
     let lines = memchr::memchr_iter(b'\n', data).count() as u64 + 1;
     let cap = budget.capacity(lines);
     let mut probabilities = Vec::with_capacity(cap);
     let mut ids: Option<Vec<Option<ExposureId>>> = id_col.filter(|_| cols.keep_ids).map(|_| Vec::with_capacity(cap));
     let id_ptr = escape_token(&cols.id);
+    let mut units: Option<Vec<u64>> = u_col.map(|_| Vec::with_capacity(cap));
+    let u_ptr = escape_token(&cols.units);
     let mut bad = RowErrors::new(&cols.probability);
     let mut rec = csv::ByteRecord::new();
     let mut row = 0usize;
@@ -522,6 +571,26 @@ fn read_csv(data: &[u8], cols: &Columns, budget: &Budget) -> Result<Table, Probl
                 ),
             }
         }
+        if let (Some(c), Some(units)) = (u_col, units.as_mut()) {
+            let raw = rec.get(c).map(trim).unwrap_or_default();
+            let u = std::str::from_utf8(raw).ok().and_then(|s| s.parse::<u64>().ok());
+            match u.filter(|u| units_ok(*u)) {
+                Some(u) => units.push(u),
+                None => {
+                    let text = String::from_utf8_lossy(raw);
+                    bad.other(
+                        format!("/exposures/{row}/{u_ptr}"),
+                        format!(
+                            "{}, column {}: {}",
+                            where_(row, line_of(&rec), id.as_ref()),
+                            cols.units,
+                            units_wrong(&text)
+                        ),
+                    );
+                    units.push(1);
+                }
+            }
+        }
         match p {
             Ok(p) => probabilities.push(p),
             Err(what) => {
@@ -538,7 +607,15 @@ fn read_csv(data: &[u8], cols: &Columns, budget: &Budget) -> Result<Table, Probl
         row += 1;
     }
     bad.finish()?;
-    Ok(Table { probabilities, ids })
+    Ok(Table { probabilities, ids, units })
+}
+
+fn units_ok(u: u64) -> bool {
+    (1..=crate::portfolio::validate::MAX_UNITS).contains(&u)
+}
+
+fn units_wrong(text: &str) -> String {
+    format!("{text:?} is not a whole number of loss units in 1..={}", crate::portfolio::validate::MAX_UNITS)
 }
 
 fn trim(b: &[u8]) -> &[u8] {
@@ -575,7 +652,8 @@ fn decode_arrow(data: Bytes, cols: &Columns, budget: &Budget) -> Result<Table, P
     let mut buf = arrow_buffer::Buffer::from(data);
     let mut probabilities: Vec<f64> = Vec::new();
     let mut ids: Option<Vec<Option<ExposureId>>> = None;
-    let mut layout: Option<(usize, Option<usize>)> = None;
+    let mut layout: Option<(usize, Option<usize>, Option<usize>)> = None;
+    let mut units: Option<Vec<u64>> = None;
     let mut bad = RowErrors::new(&cols.probability);
     let mut row = 0usize;
     while !buf.is_empty() {
@@ -584,10 +662,11 @@ fn decode_arrow(data: Bytes, cols: &Columns, budget: &Budget) -> Result<Table, P
             if let Some(schema) = decoder.schema() {
                 let l = arrow_layout(&schema, cols)?;
                 ids = l.1.filter(|_| cols.keep_ids).map(|_| Vec::new());
+                units = l.2.map(|_| Vec::new());
                 layout = Some(l);
             }
         }
-        let (Some(batch), Some((p_col, id_col))) = (batch, layout) else { continue };
+        let (Some(batch), Some((p_col, id_col, u_col))) = (batch, layout) else { continue };
         let n = batch.num_rows();
         budget.check((row + n) as u64)?;
         let p = batch.column(p_col).as_primitive::<Float64Type>();
@@ -603,6 +682,41 @@ fn decode_arrow(data: Bytes, cols: &Columns, budget: &Budget) -> Result<Table, P
                 }
                 DataType::Utf8 => ids.extend(col.as_string::<i32>().iter().map(|v| v.map(text_id))),
                 _ => ids.extend(col.as_string::<i64>().iter().map(|v| v.map(text_id))),
+            }
+        }
+        if let (Some(c), Some(units)) = (u_col, units.as_mut()) {
+            let col = batch.column(c);
+            units.reserve(n);
+            let u_ptr = escape_token(&cols.units);
+            for i in 0..n {
+                let u = if col.is_null(i) {
+                    None
+                } else if col.data_type() == &DataType::Int64 {
+                    u64::try_from(col.as_primitive::<Int64Type>().value(i)).ok()
+                } else {
+                    Some(col.as_primitive::<arrow_array::types::UInt64Type>().value(i))
+                };
+                match u.filter(|u| units_ok(*u)) {
+                    Some(u) => units.push(u),
+                    None => {
+                        let text = if col.is_null(i) {
+                            "null".to_string()
+                        } else {
+                            format!("{}", u.map_or(-1, |u| u as i128))
+                        };
+                        let id = id_column.and_then(|c| arrow_id(c, i));
+                        bad.other(
+                            format!("/exposures/{}/{u_ptr}", first + i),
+                            format!(
+                                "{}, column {}: {}",
+                                where_(first + i, None, id.as_ref()),
+                                cols.units,
+                                units_wrong(&text)
+                            ),
+                        );
+                        units.push(1);
+                    }
+                }
             }
         }
         // Only the rows that break the rules are looked at twice.
@@ -628,7 +742,7 @@ fn decode_arrow(data: Bytes, cols: &Columns, budget: &Budget) -> Result<Table, P
         return Err(malformed_table("the Arrow IPC stream is empty (no schema)".to_string()));
     }
     bad.finish()?;
-    Ok(Table { probabilities, ids })
+    Ok(Table { probabilities, ids, units })
 }
 
 /// The id at row `i` of a column of a type `arrow_layout` accepted.
@@ -664,8 +778,12 @@ fn column_index(names: &[String], name: &str, which: &str) -> Result<Option<usiz
     }
 }
 
-/// The positions of the probability and id columns, checked against the types read.
-fn arrow_layout(schema: &arrow_schema::Schema, cols: &Columns) -> Result<(usize, Option<usize>), Problem> {
+/// The positions of the probability, id and units columns, checked against the types read.
+#[allow(clippy::type_complexity)]
+fn arrow_layout(
+    schema: &arrow_schema::Schema,
+    cols: &Columns,
+) -> Result<(usize, Option<usize>, Option<usize>), Problem> {
     use arrow_schema::DataType;
     let names: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
     let find = |name: &str, which: &str| column_index(&names, name, which);
@@ -690,7 +808,20 @@ fn arrow_layout(schema: &arrow_schema::Schema, cols: &Columns) -> Result<(usize,
             )]));
         }
     }
-    Ok((p, id))
+    let units = find(&cols.units, "units")?;
+    if units.is_none() && cols.units_named {
+        return Err(cols.missing("units", &names));
+    }
+    if let Some(i) = units {
+        let t = schema.field(i).data_type();
+        if !matches!(t, DataType::Int64 | DataType::UInt64) {
+            return Err(Problem::invalid(vec![Violation::new(
+                format!("/exposures/{}", escape_token(&cols.units)),
+                format!("the column {:?} is {t}; loss units are read as Int64 or UInt64", cols.units),
+            )]));
+        }
+    }
+    Ok((p, id, units))
 }
 
 // ---------------------------------------------------------------------------------------------------------
@@ -963,18 +1094,26 @@ mod tests {
     #[test]
     fn ids_follow_their_probabilities_when_a_table_is_appended() {
         let mut p = PortfolioSpec { probabilities: vec![0.1], ..PortfolioSpec::default() };
-        let t = Table { probabilities: vec![0.2, 0.3], ids: Some(vec![Some(ExposureId::Integer(5)), None]) };
+        let t =
+            Table { probabilities: vec![0.2, 0.3], ids: Some(vec![Some(ExposureId::Integer(5)), None]), units: None };
         append(&mut p, t).unwrap();
         assert_eq!(p.probabilities, vec![0.1, 0.2, 0.3]);
         assert_eq!(p.ids, vec![None, Some(ExposureId::Integer(5)), None]);
+        // Units follow their probabilities too: 1 for the JSON's exposure when the JSON gives none.
+        let mut u = PortfolioSpec { probabilities: vec![0.1], ..PortfolioSpec::default() };
+        append(&mut u, Table { probabilities: vec![0.2, 0.3], ids: None, units: Some(vec![40, 7]) }).unwrap();
+        assert_eq!(u.units, vec![1, 40, 7]);
+        let mut w = PortfolioSpec { probabilities: vec![0.1], units: vec![9], ..PortfolioSpec::default() };
+        append(&mut w, Table { probabilities: vec![0.2], ids: None, units: None }).unwrap();
+        assert_eq!(w.units, vec![9, 1]);
         let mut q = PortfolioSpec {
             probabilities: vec![0.1],
             ids: vec![Some(ExposureId::Integer(1))],
             ..PortfolioSpec::default()
         };
-        append(&mut q, Table { probabilities: vec![0.2], ids: None }).unwrap();
+        append(&mut q, Table { probabilities: vec![0.2], ids: None, units: None }).unwrap();
         assert_eq!(q.ids, vec![Some(ExposureId::Integer(1)), None]);
         let mut r = PortfolioSpec { probabilities: vec![0.1, 0.2], ids: vec![None], ..PortfolioSpec::default() };
-        assert_eq!(append(&mut r, Table { probabilities: vec![], ids: None }).unwrap_err().status, 422);
+        assert_eq!(append(&mut r, Table { probabilities: vec![], ids: None, units: None }).unwrap_err().status, 422);
     }
 }

@@ -1,5 +1,12 @@
 //! The normalised portfolio the engine works on: exposures with p = 0 are dropped, exposures with p = 1 become
 //! a shift of the support, groups become binomial parts and Poisson sources are summed.
+//!
+//! Losses in units. When exposures carry loss units (the individual risk model: exposure i adds u_i when its
+//! event happens), the total S lives on the lattice `offset + span * j`, where `span` is the gcd of the units
+//! of the random exposures and `offset` the certain exposures' units modulo the span. The model then holds
+//! everything in lattice steps (units divided by the span), so the engine computes on the integer j = (S -
+//! offset) / span, whose support starts at `shift`; `engine::exact::lattice::query` turns a question in units
+//! into one in steps. With every unit 1 (the default), span 1 and offset 0: the lattice is the count itself.
 
 /// `size` identical exposures with probability strictly inside (0, 1).
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -25,6 +32,22 @@ pub struct Model {
     /// client gave any under a dependence model; both empty when every exposure takes the model's one rho.
     pub loadings: Vec<f64>,
     pub group_loadings: Vec<f64>,
+    /// Lattice steps per event, parallel to `bernoulli` and to `binomials` (each member of a group), when any
+    /// exposure's units differ from the span; both empty when every random exposure adds one step.
+    pub units: Vec<u64>,
+    pub group_units: Vec<u64>,
+    /// Units per lattice step (the gcd of the random exposures' units); 0 stands for 1 (the default).
+    pub span: u64,
+    /// Units of the total below the first lattice point: S = offset + span * j.
+    pub offset: u64,
+}
+
+/// Greatest common divisor (Euclid).
+pub fn gcd(mut a: u64, mut b: u64) -> u64 {
+    while b != 0 {
+        (a, b) = (b, a % b);
+    }
+    a
 }
 
 impl Model {
@@ -107,13 +130,94 @@ impl Model {
         }
     }
 
-    /// Largest value of S with positive probability, or None when a Poisson part makes it unbounded.
+    /// Largest value of S with positive probability (in lattice steps), or None when a Poisson part makes it
+    /// unbounded.
     pub fn support_max(&self) -> Option<u64> {
         if self.poisson > 0.0 {
             None
+        } else if self.weighted() {
+            Some(self.shift + self.lattice_width())
         } else {
             Some(self.shift + self.random_exposures_bounded())
         }
+    }
+
+    /// Whether any exposure adds more than one step, or the lattice is not the count itself.
+    pub fn weighted(&self) -> bool {
+        !self.units.is_empty() || !self.group_units.is_empty() || self.span > 1 || self.offset > 0
+    }
+
+    /// Units per lattice step (1 unless units were given).
+    pub fn span(&self) -> u64 {
+        self.span.max(1)
+    }
+
+    /// Lattice steps spanned by the random exposures of bounded support: sum of u_i plus m_g u_g.
+    pub fn lattice_width(&self) -> u64 {
+        let b: u64 = if self.units.is_empty() { self.bernoulli.len() as u64 } else { self.units.iter().sum() };
+        let g: u64 = if self.group_units.is_empty() {
+            self.binomials.iter().map(|b| b.size).sum()
+        } else {
+            self.binomials.iter().zip(&self.group_units).map(|(b, &u)| b.size * u).sum()
+        };
+        b + g
+    }
+
+    /// Largest number of steps one exposure adds (1 for a count).
+    pub fn max_step(&self) -> u64 {
+        self.units.iter().chain(&self.group_units).copied().max().unwrap_or(1)
+    }
+
+    /// [`Model::push_bernoulli`] for an exposure of `u` units (steps, once the lattice is set).
+    pub fn push_weighted(&mut self, p: f64, u: u64) {
+        self.exposures += 1;
+        if p >= 1.0 {
+            self.shift += u;
+        } else if p > 0.0 {
+            self.bernoulli.push(p);
+            self.units.push(u);
+        }
+    }
+
+    /// [`Model::push_group`] for members of `u` units each.
+    pub fn push_group_weighted(&mut self, size: u64, p: f64, u: u64) {
+        self.exposures += size;
+        if size == 0 || p <= 0.0 {
+            return;
+        }
+        if p >= 1.0 {
+            self.shift += size * u;
+        } else if size == 1 {
+            self.bernoulli.push(p);
+            self.units.push(u);
+        } else {
+            self.binomials.push(Binomial { size, p });
+            self.group_units.push(u);
+        }
+    }
+
+    /// After pushing every exposure by [`Model::push_weighted`] and [`Model::push_group_weighted`] in units:
+    /// divide by the span, split the certain units into lattice steps and offset, and drop the unit lists
+    /// when every random exposure adds one step.
+    pub fn set_lattice(&mut self) {
+        let h = self.units.iter().chain(&self.group_units).fold(0, |g, &u| gcd(g, u));
+        // A Poisson part adds single units; with no random exposure at all any span will do.
+        let h = if self.poisson > 0.0 { 1 } else { h.max(1) };
+        self.units.iter_mut().chain(self.group_units.iter_mut()).for_each(|u| *u /= h);
+        self.span = if h > 1 { h } else { 0 };
+        self.offset = self.shift % h;
+        self.shift /= h;
+        if self.units.iter().all(|&u| u == 1) {
+            self.units.clear();
+        }
+        if self.group_units.iter().all(|&u| u == 1) {
+            self.group_units.clear();
+        }
+    }
+
+    /// The value in units of a lattice index.
+    pub fn units_of(&self, j: u64) -> u64 {
+        self.offset + self.span() * j
     }
 
     pub fn support_min(&self) -> u64 {

@@ -22,6 +22,12 @@ pub struct PortfolioSpec {
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     #[schema(example = json!(["L-1", "L-2", 17]))]
     pub ids: Vec<Option<ExposureId>>,
+    /// Loss units per listed exposure, parallel to `probabilities`: exposure i adds `units[i]` (a whole number
+    /// in 1..=1e9) to the total S when its event happens (the individual risk model). Absent: 1 each, and S is
+    /// the count of events.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    #[schema(example = json!([250, 40, 1000]))]
+    pub units: Vec<u64>,
     /// Blocks of identical exposures (a binomial part each).
     #[serde(default)]
     pub groups: Vec<GroupSpec>,
@@ -45,11 +51,16 @@ pub struct GroupSpec {
     /// The group's factor loading in [0, 1) under a dependence model (default: the model's `rho`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub loading: Option<f64>,
+    /// Loss units each member adds when its event happens, a whole number in 1..=1e9 (default 1).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schema(example = 20, minimum = 1, maximum = 1000000000)]
+    pub units: Option<u64>,
 }
 crate::portfolio::objects::objects_only!(GroupSpec);
 
 /// A generated sequence of probabilities p_1..p_n. Every kind takes an optional `loading` in [0, 1): the
-/// factor loading of all its members under a dependence model (default: the model's `rho`).
+/// factor loading of all its members under a dependence model (default: the model's `rho`), and optional
+/// `units` in 1..=1e9: the loss units each member adds when its event happens (default 1).
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
 #[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
 pub enum FamilySpec {
@@ -59,12 +70,18 @@ pub enum FamilySpec {
         probability: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
+        units: Option<u64>,
     },
     /// p_k = 1/k for k = 1..n (the number of cycles of a uniform random permutation of n items).
     Harmonic {
         n: u64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
+        units: Option<u64>,
     },
     /// p_k = theta / (theta + k - 1) for k = 1..n, theta > 0.
     Ewens {
@@ -72,6 +89,9 @@ pub enum FamilySpec {
         theta: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
+        units: Option<u64>,
     },
     /// p_k = first * ratio^(k-1) for k = 1..n.
     Geometric {
@@ -80,6 +100,9 @@ pub enum FamilySpec {
         ratio: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
+        units: Option<u64>,
     },
     /// n probabilities evenly spaced from `first` to `last` (inclusive).
     Linear {
@@ -88,6 +111,9 @@ pub enum FamilySpec {
         last: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
+        units: Option<u64>,
     },
     /// p = 1 / (1 + exp(-(intercept + slope * score))) for each score.
     Logistic {
@@ -96,6 +122,9 @@ pub enum FamilySpec {
         slope: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         loading: Option<f64>,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 1, maximum = 1000000000)]
+        units: Option<u64>,
     },
 }
 
@@ -109,6 +138,18 @@ impl FamilySpec {
             | FamilySpec::Geometric { loading, .. }
             | FamilySpec::Linear { loading, .. }
             | FamilySpec::Logistic { loading, .. } => loading,
+        }
+    }
+
+    /// The members' loss units, if the family names them.
+    pub fn units(&self) -> Option<u64> {
+        match *self {
+            FamilySpec::Constant { units, .. }
+            | FamilySpec::Harmonic { units, .. }
+            | FamilySpec::Ewens { units, .. }
+            | FamilySpec::Geometric { units, .. }
+            | FamilySpec::Linear { units, .. }
+            | FamilySpec::Logistic { units, .. } => units,
         }
     }
 }

@@ -45,7 +45,38 @@ impl Stress {
 pub fn stressed(model: &Model, s: &Stress) -> Model {
     let mut m = Model { shift: model.shift, poisson: model.poisson * s.factor(), ..Model::default() };
     m.bernoulli.reserve(model.bernoulli.len());
-    if model.loaded() {
+    if model.weighted() {
+        // Loss units travel with their exposures, in lattice steps; the lattice itself is kept (a stress that
+        // makes some exposures certain may leave a coarser one, which this one contains).
+        m.span = model.span;
+        m.offset = model.offset;
+        let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1);
+        for (i, &p) in model.bernoulli.iter().enumerate() {
+            let n = m.bernoulli.len();
+            m.push_weighted(s.apply(p), step(&model.units, i));
+            if m.bernoulli.len() > n && model.loaded() {
+                m.loadings.push(model.loadings[i]);
+            }
+        }
+        for (i, b) in model.binomials.iter().enumerate() {
+            let (n, k) = (m.bernoulli.len(), m.binomials.len());
+            m.push_group_weighted(b.size, s.apply(b.p), step(&model.group_units, i));
+            if model.loaded() {
+                if m.bernoulli.len() > n {
+                    m.loadings.push(model.group_loadings[i]);
+                }
+                if m.binomials.len() > k {
+                    m.group_loadings.push(model.group_loadings[i]);
+                }
+            }
+        }
+        if m.units.iter().all(|&u| u == 1) {
+            m.units.clear();
+        }
+        if m.group_units.iter().all(|&u| u == 1) {
+            m.group_units.clear();
+        }
+    } else if model.loaded() {
         // Factor loadings travel with their exposures (an exposure made certain leaves with its loading).
         for (&p, &r) in model.bernoulli.iter().zip(&model.loadings) {
             m.push_loaded(s.apply(p), r);

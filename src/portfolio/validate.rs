@@ -51,6 +51,18 @@ pub fn loading_ok(r: f64) -> bool {
     r.is_finite() && (0.0..1.0).contains(&r)
 }
 
+/// Largest loss units of one exposure: the tilt t u of the exact engine is then formed without rounding (t is
+/// kept to 21 significant bits), and a unit this size on 10^7 exposures stays within 2^53.
+pub const MAX_UNITS: u64 = 1_000_000_000;
+
+/// Largest total loss of a portfolio, in units (all exposures' events at once): integers stay exact in f64.
+pub const MAX_TOTAL_UNITS: u64 = 1 << 53;
+
+fn units_violation(at: String, u: u64) -> Option<Violation> {
+    (!(1..=MAX_UNITS).contains(&u))
+        .then(|| Violation::new(at, format!("must be a whole number of loss units in 1..={MAX_UNITS}, got {u}")))
+}
+
 fn loading_violation(at: String, r: f64) -> Violation {
     Violation::new(at, format!("must be a factor loading in [0, 1), got {r}"))
 }
@@ -88,6 +100,30 @@ pub fn build_model_with(
             ),
         );
     }
+    if !spec.units.is_empty() && spec.units.len() != spec.probabilities.len() {
+        push(
+            &mut errs,
+            Violation::new(
+                format!("{base}/units"),
+                format!(
+                    "must hold one whole number of loss units per entry of probabilities ({}), got {}",
+                    spec.probabilities.len(),
+                    spec.units.len()
+                ),
+            ),
+        );
+    }
+    for (i, &u) in spec.units.iter().enumerate() {
+        if let Some(v) = units_violation(format!("{base}/units/{i}"), u) {
+            push(&mut errs, v);
+        }
+    }
+    // The largest total (every event at once), in units, saturating: it must stay exact in f64.
+    let mut top: u64 = if spec.units.is_empty() {
+        spec.probabilities.len() as u64
+    } else {
+        spec.units.iter().fold(0u64, |a, &u| a.saturating_add(u))
+    };
     for (i, &r) in spec.loadings.iter().enumerate() {
         if !loading_ok(r) {
             push(&mut errs, loading_violation(format!("{base}/loadings/{i}"), r));
@@ -119,6 +155,10 @@ pub fn build_model_with(
         if let Some(r) = g.loading.filter(|&r| !loading_ok(r)) {
             push(&mut errs, loading_violation(format!("{base}/groups/{i}/loading"), r));
         }
+        if let Some(v) = g.units.and_then(|u| units_violation(format!("{base}/groups/{i}/units"), u)) {
+            push(&mut errs, v);
+        }
+        top = top.saturating_add(g.size.saturating_mul(g.units.unwrap_or(1)));
         total = total.saturating_add(g.size);
     }
     let mut rate = 0.0;
@@ -149,7 +189,11 @@ pub fn build_model_with(
         if let Some(r) = f.loading().filter(|&r| !loading_ok(r)) {
             push(&mut errs, loading_violation(format!("{at}/loading"), r));
         }
+        if let Some(v) = f.units().and_then(|u| units_violation(format!("{at}/units"), u)) {
+            push(&mut errs, v);
+        }
         let len = expected_len(f);
+        top = top.saturating_add(len.saturating_mul(f.units().unwrap_or(1)));
         listed = listed.saturating_add(len);
         total = total.saturating_add(len);
     }
@@ -171,14 +215,61 @@ pub fn build_model_with(
             ),
         );
     }
+    if top > MAX_TOTAL_UNITS {
+        push(
+            &mut errs,
+            Violation::new(
+                base.to_string(),
+                format!(
+                    "the largest possible total, {top} units, exceeds 2^53 = {MAX_TOTAL_UNITS}: express the losses in coarser units"
+                ),
+            ),
+        );
+    }
     if !errs.is_empty() {
         return Err(errs);
     }
     let mut model = Model { poisson: rate, ..Model::default() };
-    model.bernoulli.reserve(listed as usize);
     let explicit = !spec.loadings.is_empty()
         || spec.groups.iter().any(|g| g.loading.is_some())
         || spec.families.iter().any(|f| f.loading().is_some());
+    if has_units(spec) {
+        // Loss units: every exposure pushed in units (with its loading, as below), then the lattice (span,
+        // offset, steps) set once.
+        let rho = default_loading.filter(|_| explicit);
+        model.bernoulli.reserve(listed as usize);
+        let one = |m: &mut Model, p: f64, u: u64, r: f64| {
+            let n = m.bernoulli.len();
+            m.push_weighted(p, u);
+            if rho.is_some() && m.bernoulli.len() > n {
+                m.loadings.push(r);
+            }
+        };
+        let rho0 = rho.unwrap_or(0.0);
+        for (i, &p) in spec.probabilities.iter().enumerate() {
+            one(&mut model, p, spec.units.get(i).copied().unwrap_or(1), spec.loadings.get(i).copied().unwrap_or(rho0));
+        }
+        for f in &spec.families {
+            let (u, r) = (f.units().unwrap_or(1), f.loading().unwrap_or(rho0));
+            expand(f, |p| one(&mut model, p, u, r));
+        }
+        for g in &spec.groups {
+            let (n, k) = (model.bernoulli.len(), model.binomials.len());
+            model.push_group_weighted(g.size, g.probability, g.units.unwrap_or(1));
+            if rho.is_some() {
+                let r = g.loading.unwrap_or(rho0);
+                if model.bernoulli.len() > n {
+                    model.loadings.push(r);
+                }
+                if model.binomials.len() > k {
+                    model.group_loadings.push(r);
+                }
+            }
+        }
+        model.set_lattice();
+        return Ok(model);
+    }
+    model.bernoulli.reserve(listed as usize);
     match default_loading {
         Some(rho) if explicit => {
             model.loadings.reserve(listed as usize);
@@ -206,6 +297,13 @@ pub fn build_model_with(
         }
     }
     Ok(model)
+}
+
+/// Whether the client gave loss units anywhere (even all 1: the answer is the same, by a different path).
+pub fn has_units(spec: &PortfolioSpec) -> bool {
+    !spec.units.is_empty()
+        || spec.groups.iter().any(|g| g.units.is_some())
+        || spec.families.iter().any(|f| f.units().is_some())
 }
 
 fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {

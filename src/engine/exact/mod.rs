@@ -21,6 +21,7 @@
 
 pub mod convolve;
 pub mod fft;
+pub mod lattice;
 pub mod leaf;
 pub mod leave_one_out;
 pub mod window;
@@ -70,6 +71,9 @@ pub struct Tilted {
 
 /// Build the tilted law at t over its Bernstein window (support shifted by the certain exposures).
 pub fn tilted(model: &Model, t: f64) -> Tilted {
+    if model.weighted() {
+        return lattice::tilted(model, t);
+    }
     let c = TiltConsts::new(t);
     let mut parts: Vec<Window> =
         Vec::with_capacity(model.bernoulli.len().div_ceil(leaf::BLOCK) + model.binomials.len() + 1);

@@ -17,6 +17,21 @@ use crate::engine::numerics::float::compose;
 /// ln of the tail mass that one truncation may drop on each side: exp(-75) ~ 2.7e-33.
 pub const TRUNC_LN: f64 = 75.0;
 
+thread_local! {
+    /// The largest lattice step one summand of the laws being multiplied may add (see [`with_step`]).
+    static STEP: std::cell::Cell<f64> = const { std::cell::Cell::new(1.0) };
+}
+
+/// Run `f` with every truncation placed for summands of up to `step` lattice steps (losses in units): the
+/// products of a weighted model's leaves keep Bernstein's guarantee with b = step. Scoped, so a count's laws
+/// (step 1) are never affected.
+pub fn with_step<R>(step: u64, f: impl FnOnce() -> R) -> R {
+    let old = STEP.with(|s| s.replace(step as f64));
+    let out = f();
+    STEP.with(|s| s.set(old));
+    out
+}
+
 #[derive(Debug, Clone)]
 pub struct Window {
     /// Count of w[0].
@@ -67,12 +82,18 @@ impl Window {
         self.inf = (self.inf + linf).min(self.abs);
     }
 
-    /// Bernstein radius s: a sum of independent variables with |X_i - E X_i| <= 1 and variance v satisfies
-    /// P(S - ES >= s) <= exp(-s^2 / (2 (v + s/3))) and likewise below (Bernstein 1924; e.g. Boucheron, Lugosi
-    /// and Massart, "Concentration Inequalities", 2013, Thm 2.10). Solving for exp(-TRUNC_LN).
+    /// Bernstein radius s: a sum of independent variables with |X_i - E X_i| <= b and variance v satisfies
+    /// P(S - ES >= s) <= exp(-s^2 / (2 (v + b s/3))) and likewise below (Bernstein 1924; e.g. Boucheron, Lugosi
+    /// and Massart, "Concentration Inequalities", 2013, Thm 2.10). Solving for exp(-TRUNC_LN). The step b is 1
+    /// for a count, and the largest lattice step of one exposure inside [`with_step`] (losses in units).
     pub fn bernstein_radius(var: f64) -> f64 {
-        let l = TRUNC_LN;
-        l / 3.0 + (l * l / 9.0 + 2.0 * l * var.max(0.0)).sqrt()
+        Self::bernstein_radius_step(var, STEP.with(|s| s.get()))
+    }
+
+    /// [`Window::bernstein_radius`] for summands of at most `step` lattice steps each.
+    pub fn bernstein_radius_step(var: f64, step: f64) -> f64 {
+        let (l, lb) = (TRUNC_LN, TRUNC_LN * step);
+        lb / 3.0 + (lb * lb / 9.0 + 2.0 * l * var.max(0.0)).sqrt()
     }
 
     /// Count range [lo, hi] that a part with this mean and variance keeps; the mass outside is at most

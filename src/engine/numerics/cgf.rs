@@ -148,6 +148,18 @@ impl Scale {
 pub fn scale(model: &Model, t: f64) -> Scale {
     let c = TiltConsts::new(t);
     let (mut phi, mut abs, mut b) = (Sum::default(), 0.0, model.shift as f64);
+    if !model.units.is_empty() {
+        // Losses in units: exposure i is tilted by exp(t u_i X_i), so ln M_i = phi_i + t u_i b_i. The caller
+        // keeps t u_i exact (`exact::lattice::round_tilt`).
+        for (&p, &u) in model.bernoulli.iter().zip(&model.units) {
+            let x = tilt(p, &TiltConsts::new(t * u as f64));
+            phi.add(x.phi);
+            abs += x.phi.abs();
+            b += if x.b { u as f64 } else { 0.0 };
+        }
+        let err = 8.0 * super::float::U * abs;
+        return finish_scale(model, &c, phi, err, b);
+    }
     for &p in &model.bernoulli {
         let x = tilt(p, &c);
         phi.add(x.phi);
@@ -172,6 +184,9 @@ const PRODUCT_BLOCK: usize = 16;
 /// a logarithm per exposure.
 pub fn scale_by_products(model: &Model, t: f64) -> Scale {
     use super::float::U;
+    if model.weighted() {
+        return scale(model, t);
+    }
     let c = TiltConsts::new(t);
     let (mut phi, mut err, mut b) = (Sum::default(), 0.0, model.shift as f64);
     let pos = t > 0.0;
@@ -206,12 +221,14 @@ pub fn scale_by_products(model: &Model, t: f64) -> Scale {
 /// The binomial and Poisson parts of [`scale`], shared by both ways of summing the Bernoulli part.
 fn finish_scale(model: &Model, c: &TiltConsts, mut phi: Sum, mut err: f64, mut b: f64) -> Scale {
     let mut abs = 0.0;
-    for g in &model.binomials {
-        let x = tilt(g.p, c);
+    for (i, g) in model.binomials.iter().enumerate() {
+        // A member of u steps is tilted by exp(t u X) (u = 1 for a count).
+        let u = model.group_units.get(i).map_or(1.0, |&u| u as f64);
+        let x = if u == 1.0 { tilt(g.p, c) } else { tilt(g.p, &TiltConsts::new(c.t * u)) };
         let m = g.size as f64;
         phi.add(m * x.phi);
         abs += m * x.phi.abs();
-        b += if x.b { m } else { 0.0 };
+        b += if x.b { m * u } else { 0.0 };
     }
     if model.poisson > 0.0 {
         // lambda (e^t - 1), without overflow where e^t alone overflows.
@@ -230,6 +247,9 @@ fn finish_scale(model: &Model, c: &TiltConsts, mut phi: Sum, mut err: f64, mut b
 /// feeds the solver and the approximations, where one more rounding per exposure is immaterial, and it is the
 /// hot loop of the saddlepoint method.
 pub fn eval(model: &Model, t: f64) -> CgfValue {
+    if model.weighted() {
+        return eval_weighted(model, t);
+    }
     let c = TiltConsts::new(t);
     // Same forms as `tilt_qr`: M e^-t for t > 0, M otherwise, so neither overflows.
     let (ca, cb) = if t > 0.0 { (1.0, c.emt) } else { (c.et, 1.0) };
@@ -269,6 +289,31 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
     let extra = if lam > 0.0 { tilted_rate(lam, t) } else { 0.0 };
     let shift = model.shift as f64;
     CgfValue { t, k1: k[0] + extra + shift, k2: k[1] + extra, k3: k[2] + extra, k4: k[3] + extra }
+}
+
+/// [`eval`] for losses in units: exposure i adds u_i X_i, so its cumulants at t are u_i^r times those of
+/// Bernoulli(q_i) with q_i tilted by t u_i.
+fn eval_weighted(model: &Model, t: f64) -> CgfValue {
+    let mut k = [0.0f64; 4];
+    let mut add = |m: f64, p: f64, u: f64| {
+        let c = TiltConsts::new(t * u);
+        let (q, r) = tilt_qr(p, &c);
+        let v = q * r;
+        let (u2, u3) = (u * u, u * u * u);
+        k[0] += m * u * q;
+        k[1] += m * u2 * v;
+        k[2] += m * u3 * v * (r - q);
+        k[3] += m * u2 * u2 * v * (1.0 - 6.0 * v);
+    };
+    let step = |v: &[u64], i: usize| v.get(i).map_or(1.0, |&u| u as f64);
+    for (i, &p) in model.bernoulli.iter().enumerate() {
+        add(1.0, p, step(&model.units, i));
+    }
+    for (i, b) in model.binomials.iter().enumerate() {
+        add(b.size as f64, b.p, step(&model.group_units, i));
+    }
+    let extra = if model.poisson > 0.0 { tilted_rate(model.poisson, t) } else { 0.0 };
+    CgfValue { t, k1: k[0] + extra + model.shift as f64, k2: k[1] + extra, k3: k[2] + extra, k4: k[3] + extra }
 }
 
 /// Variance of the tilted law, K''(t).

@@ -24,6 +24,9 @@ const LANES: usize = 4;
 
 impl Moments {
     pub fn of(model: &Model) -> Moments {
+        if model.weighted() {
+            return Self::weighted(model);
+        }
         let mut acc = [Sum::default(), Sum::default(), Sum::default(), Sum::default(), Sum::default()];
         // Plain sums in LANES independent lanes over blocks of BLOCK terms, compensated across blocks: the plain
         // inner loop is what lets the compiler keep it in vector registers (five compensated sums per term cost
@@ -72,6 +75,42 @@ impl Moments {
             variance: var.value() + lam,
             third_central: m3.value() + lam,
             // Poisson(lambda) as the limit of many tiny Bernoullis: sum p(1-p)(p^2+(1-p)^2) -> lambda.
+            third_abs_sum: a3.value() + lam,
+            sum_p_squared: p2.value(),
+        }
+    }
+
+    /// [`Moments::of`] for losses in units, in lattice steps: exposure i adds u_i X_i, so its central moments
+    /// are u_i^r times those of its Bernoulli (a group's m members each alike); compensated per term.
+    fn weighted(model: &Model) -> Moments {
+        let mut acc = [Sum::default(), Sum::default(), Sum::default(), Sum::default(), Sum::default()];
+        let mut add = |m: f64, p: f64, u: f64| {
+            let q = 1.0 - p;
+            let v = p * q;
+            let u3 = u * u * u;
+            for (a, x) in acc.iter_mut().zip([
+                m * u * p,
+                m * u * u * v,
+                m * u3 * v * (q - p),
+                m * u3 * v * (p * p + q * q),
+                m * p * p,
+            ]) {
+                a.add(x);
+            }
+        };
+        let step = |v: &[u64], i: usize| v.get(i).map_or(1.0, |&u| u as f64);
+        for (i, &p) in model.bernoulli.iter().enumerate() {
+            add(1.0, p, step(&model.units, i));
+        }
+        for (i, b) in model.binomials.iter().enumerate() {
+            add(b.size as f64, b.p, step(&model.group_units, i));
+        }
+        let [mean, var, m3, a3, p2] = acc;
+        let lam = model.poisson;
+        Moments {
+            mean: mean.value() + model.shift as f64 + lam,
+            variance: var.value() + lam,
+            third_central: m3.value() + lam,
             third_abs_sum: a3.value() + lam,
             sum_p_squared: p2.value(),
         }

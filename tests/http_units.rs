@@ -1,0 +1,168 @@
+//! Losses in units end to end: the tail in units over HTTP (against enumeration of the book in exact
+//! rationals), a CSV table's units column, and the problems: bad units at their pointers, questions and
+//! methods that do not yet take units (422 at the field), a lattice over the work budget (413 that says how
+//! much coarser a unit would fit).
+
+mod common;
+use common::{assert_problem, start};
+use num_rational::BigRational;
+use num_traits::{One, ToPrimitive, Zero};
+use serde_json::json;
+
+const BOUNDARY: &str = "tailtally-units-5b21";
+
+/// An invented book of six delivery vans insured for repair costs in units of 100 (the sum each claim pays).
+const P: [f64; 6] = [0.05, 0.12, 0.3, 0.07, 0.2, 0.01];
+const U: [u64; 6] = [12, 30, 4, 18, 8, 250];
+
+/// P(S >= k) by enumeration of the 2^6 outcomes in exact rationals.
+fn upper(k: u64) -> f64 {
+    let mut acc = BigRational::zero();
+    for mask in 0u32..64 {
+        let (mut s, mut pr) = (0u64, BigRational::one());
+        for i in 0..6 {
+            let p = BigRational::from_float(P[i]).unwrap();
+            if mask >> i & 1 == 1 {
+                s += U[i];
+                pr *= p;
+            } else {
+                pr *= BigRational::one() - p;
+            }
+        }
+        if s >= k {
+            acc += pr;
+        }
+    }
+    acc.to_f64().unwrap()
+}
+
+#[tokio::test]
+async fn the_tail_in_units_matches_enumeration_and_bad_requests_get_problems() {
+    let s = start(&[]).await;
+    let portfolio = json!({"probabilities": P, "units": U});
+    let ks = [0u64, 1, 13, 30, 50, 250, 300, 322, 323];
+    let q = json!({"portfolio": portfolio, "thresholds": ks, "methods": ["exact", "normal"]});
+    let (st, ct, body) = s.post_json("/v1/tail", &q).await;
+    assert_eq!((st, ct.as_str()), (200, "application/json"), "{body}");
+    for (r, &k) in body["results"].as_array().unwrap().iter().zip(&ks) {
+        assert_eq!(r["threshold"], k);
+        let e = &r["estimates"][0];
+        let (got, truth) = (e["probability"].as_f64().unwrap(), upper(k));
+        assert!((got - truth).abs() <= e["error_bound"].as_f64().unwrap().max(1e-300), "k={k}: {got} vs {truth}");
+        assert!((got - truth).abs() <= 1e-13 * truth, "k={k}: {got} vs {truth}");
+        // The normal approximation in units: its Berry-Esseen bound (rigorous) covers the truth.
+        let n = &r["estimates"][1];
+        assert_eq!(n["method"], "normal");
+        let miss = (n["probability"].as_f64().unwrap() - truth).abs();
+        assert!(miss <= n["error_bound"].as_f64().unwrap(), "k={k}: normal misses by {miss}: {n}");
+    }
+    // The summary is in units: mean sum u_i p_i, largest total sum u_i.
+    let mean: f64 = P.iter().zip(U).map(|(p, u)| p * u as f64).sum();
+    assert!((body["summary"]["mean"].as_f64().unwrap() - mean).abs() < 1e-12 * mean, "{}", body["summary"]);
+    assert_eq!(body["summary"]["support_max"], 322);
+
+    // Bad units, at their pointers.
+    let bad = json!({"portfolio": {"probabilities": [0.1, 0.2], "units": [0, 3],
+        "groups": [{"size": 3, "probability": 0.1, "units": 2000000000u64}]}, "thresholds": [1]});
+    let (st, ct, body) = s.post_json("/v1/tail", &bad).await;
+    assert_problem(st, &ct, &body, 422, Some("/portfolio/units/0"));
+    assert_problem(st, &ct, &body, 422, Some("/portfolio/groups/0/units"));
+    let (st, ct, body) = s
+        .post_json("/v1/tail", &json!({"portfolio": {"probabilities": [0.1], "units": [1, 2]}, "thresholds": [1]}))
+        .await;
+    assert_problem(st, &ct, &body, 422, Some("/portfolio/units"));
+
+    // What does not take units yet says so at the field.
+    let q = json!({"portfolio": portfolio, "thresholds": [5], "methods": ["exact", "saddlepoint"]});
+    let (st, ct, body) = s.post_json("/v1/tail", &q).await;
+    assert_problem(st, &ct, &body, 422, Some("/methods/1"));
+    let (st, ct, body) = s.post_json("/v1/distribution", &json!({"portfolio": portfolio})).await;
+    assert_problem(st, &ct, &body, 422, Some("/portfolio/units"));
+    let fam = json!({"families": [{"kind": "constant", "n": 10, "probability": 0.1, "units": 7}]});
+    let (st, ct, body) = s.post_json("/v1/quantiles", &json!({"portfolio": fam, "levels": [0.5]})).await;
+    assert_problem(st, &ct, &body, 422, Some("/portfolio/families/0/units"));
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn a_lattice_over_the_budget_is_413_naming_a_coarser_unit() {
+    let s = start(&["--max-work", "100000"]).await;
+    // 100 exposures of a million units each, but not a common multiple: a lattice 10^8 steps wide.
+    let units: Vec<u64> = (0..100).map(|i| 1_000_000 + i).collect();
+    let q = json!({"portfolio": {"probabilities": vec![0.01; 100], "units": units}, "thresholds": [5_000_000]});
+    let (st, ct, body) = s.post_json("/v1/tail", &q).await;
+    assert_problem(st, &ct, &body, 413, None);
+    let detail = body["detail"].as_str().unwrap();
+    assert!(detail.contains("times coarser"), "{detail}");
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn a_csv_units_column_answers_as_the_json_form() {
+    let s = start(&[]).await;
+    let mut csv = String::from("id,probability,units\n");
+    for (i, (p, u)) in P.iter().zip(U).enumerate() {
+        csv.push_str(&format!("V-{i},{p},{u}\n"));
+    }
+    let request = json!({"portfolio": {}, "thresholds": [13, 50]});
+    let mut body = Vec::new();
+    for (name, ct, data) in [("request", "application/json", request.to_string()), ("exposures", "text/csv", csv)] {
+        body.extend_from_slice(
+            format!("--{BOUNDARY}\r\nContent-Disposition: form-data; name=\"{name}\"\r\nContent-Type: {ct}\r\n\r\n{data}\r\n")
+                .as_bytes(),
+        );
+    }
+    body.extend_from_slice(format!("--{BOUNDARY}--\r\n").as_bytes());
+    let (st, _, got) = s.post_raw("/v1/tail", &format!("multipart/form-data; boundary={BOUNDARY}"), body).await;
+    assert_eq!(st, 200, "{got}");
+    let (_, _, want) =
+        s.post_json("/v1/tail", &json!({"portfolio": {"probabilities": P, "units": U}, "thresholds": [13, 50]})).await;
+    for i in 0..2 {
+        assert_eq!(got["results"][i]["estimates"][0]["probability"], want["results"][i]["estimates"][0]["probability"]);
+    }
+    // A bad units cell points at its row and column.
+    let bad = "probability,units\n0.1,3\n0.2,2.5\n";
+    let mut body = Vec::new();
+    for (name, ct, data) in
+        [("request", "application/json", request.to_string()), ("exposures", "text/csv", bad.into())]
+    {
+        body.extend_from_slice(
+            format!("--{BOUNDARY}\r\nContent-Disposition: form-data; name=\"{name}\"\r\nContent-Type: {ct}\r\n\r\n{data}\r\n")
+                .as_bytes(),
+        );
+    }
+    body.extend_from_slice(format!("--{BOUNDARY}--\r\n").as_bytes());
+    let (st, ct, got) = s.post_raw("/v1/tail", &format!("multipart/form-data; boundary={BOUNDARY}"), body).await;
+    assert_problem(st, &ct, &got, 422, Some("/exposures/1/units"));
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn a_batch_line_in_units_answers_as_the_route_does() {
+    let s = start(&[]).await;
+    let tail = json!({"portfolio": {"probabilities": P, "units": U}, "thresholds": [13, 50]});
+    let body = format!(
+        "{}\n{}\n",
+        json!({"id": "units", "tail": tail}),
+        json!({"id": "not-yet", "layers": {"portfolio": {"probabilities": P, "units": U}, "layers": [{"attachment": 10}]}})
+    );
+    let res = s
+        .client
+        .post(format!("{}/v1/batch", s.base))
+        .header("content-type", "application/x-ndjson")
+        .body(body)
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(res.status().as_u16(), 200);
+    let text = res.text().await.unwrap();
+    let lines: Vec<serde_json::Value> = text.lines().map(|l| serde_json::from_str(l).unwrap()).collect();
+    let (_, _, want) = s.post_json("/v1/tail", &tail).await;
+    for i in 0..2 {
+        let got = &lines[0]["tail"]["results"][i]["estimates"][0]["probability"];
+        assert_eq!(got, &want["results"][i]["estimates"][0]["probability"], "{text}");
+    }
+    assert_eq!(lines[1]["problem"]["status"], 422, "{text}");
+    assert_eq!(lines[1]["problem"]["errors"][0]["pointer"], "/layers/portfolio/units", "{text}");
+    s.shutdown().await.unwrap();
+}
