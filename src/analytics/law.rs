@@ -37,7 +37,7 @@ impl Law {
     pub fn independent(model: Model) -> Law {
         let support = (model.support_min(), model.support_max());
         let moments = Moments::of(&model);
-        Law { dependence: Dependence::Independent, kind: Kind::Independent { model, moments }, support }
+        Law { dependence: Dependence::Independent {}, kind: Kind::Independent { model, moments }, support }
     }
 
     /// The law under `dep`: the model itself when independent (or when every loading is 0), else the mixture

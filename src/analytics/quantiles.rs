@@ -159,7 +159,7 @@ pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolera
 pub struct QuantilesRequest {
     pub portfolio: PortfolioSpec,
     /// Levels strictly inside (0, 1).
-    #[schema(example = json!([0.95, 0.99, 0.995]), min_items = 1)]
+    #[schema(example = json!([0.95, 0.99, 0.995]), min_items = 1, max_items = 10_000)]
     pub levels: Vec<f64>,
     /// Methods; each level gets one quantile per method (default `exact`).
     #[serde(default = "default_methods")]

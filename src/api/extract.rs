@@ -8,6 +8,7 @@
 //! takes about a second to parse, which on an async worker would keep the probes waiting; small ones are
 //! parsed in place, a hand-off costing more than their parse.
 
+use super::integral::Integral;
 use super::problem::{escape_token, Problem};
 use super::tables::{self, Tabular};
 use super::AppState;
@@ -73,10 +74,11 @@ where
     }
 }
 
-/// Parse JSON, mapping serde's errors to problems with a JSON pointer.
+/// Parse JSON, mapping serde's errors to problems with a JSON pointer. Integral floats read as integers
+/// (`integral`), as JSON Schema's `integer` allows.
 pub fn parse<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, Problem> {
     let mut de = serde_json::Deserializer::from_slice(bytes);
-    match serde_path_to_error::deserialize::<_, T>(&mut de) {
+    match serde_path_to_error::deserialize::<_, T>(Integral(&mut de)) {
         Ok(v) => {
             // Trailing garbage after the document is malformed JSON too.
             if let Err(e) = de.end() {

@@ -5,6 +5,7 @@
 
 pub mod batch;
 pub mod extract;
+pub mod integral;
 pub mod offload;
 pub mod openapi;
 pub mod problem;
