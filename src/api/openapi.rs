@@ -62,6 +62,8 @@ const POISSON_RATE: f64 = 1e9;
 
 fn rules(doc: &mut Value) {
     examples(doc);
+    doc["info"]["license"]["identifier"] = json!("MIT");
+    multipart(doc);
     integer_ranges(&mut doc["components"]["schemas"]);
     let schemas = doc["components"]["schemas"].as_object_mut().expect("components.schemas");
     let probability = json!({"minimum": 0.0, "maximum": 1.0});
@@ -157,6 +159,21 @@ fn examples(doc: &mut Value) {
         op["requestBody"]["content"]["application/json"]["example"] = request.clone();
         if let Some(answer) = responses.get(name) {
             op["responses"]["200"]["content"]["application/json"]["example"] = answer.clone();
+        }
+    }
+}
+
+/// The multipart form: its `request` part is the route's JSON request with the optional `table` object, sent
+/// as JSON; its `exposures` part a CSV table or an Arrow IPC stream.
+fn multipart(doc: &mut Value) {
+    doc["components"]["schemas"]["TableUpload"]["properties"]["request"]["properties"] =
+        json!({"table": {"$ref": "#/components/schemas/TableSpec"}});
+    let encoding = json!({"request": {"contentType": "application/json"},
+                          "exposures": {"contentType": "text/csv, application/vnd.apache.arrow.stream"}});
+    for (_, item) in doc["paths"].as_object_mut().expect("paths") {
+        let form = item.pointer_mut("/post/requestBody/content/multipart~1form-data");
+        if let Some(form) = form {
+            form["encoding"] = encoding.clone();
         }
     }
 }
