@@ -9,6 +9,8 @@ import schemathesis
 
 POISSON_RATE = 1e9  # the largest total Poisson rate (portfolio::Limits), stressed rates included
 MAX_THRESHOLDS = 10_000  # --max-thresholds at its default
+MAX_LISTED = 10_000_000  # --max-listed-exposures: probabilities plus the families' members
+MAX_TOTAL = 1_000_000_000  # --max-total-exposures: those plus the groups' sizes
 
 
 def _portfolio_ok(body: dict) -> bool:
@@ -20,6 +22,10 @@ def _portfolio_ok(body: dict) -> bool:
     for key in ("ids", "loadings"):
         if p.get(key) and len(p[key]) != n:
             return False
+    families = p.get("families") or []
+    listed = n + sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
+    if listed > MAX_LISTED or listed + sum(g.get("size", 0) for g in p.get("groups") or []) > MAX_TOTAL:
+        return False
     stress = body.get("stress") or {}
     factor = max([1.0] + [float(v) for v in stress.values() if isinstance(v, (int, float))])
     if float(sum(p.get("poisson_rates") or [])) * factor > POISSON_RATE:
