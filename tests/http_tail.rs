@@ -174,4 +174,9 @@ async fn integral_floats_are_counts_and_the_independent_model_is_closed() {
     let (status, ct, v) = s.post_json("/v1/tail", &req).await;
     assert_problem(status, &ct, &v, 422, Some("/dependence"));
     assert!(v["detail"].as_str().unwrap().contains("unknown field `rho`"), "{v}");
+    // A tolerance must be > 0 (exclusiveMinimum in the document) for quantiles as for tails.
+    let req = json!({"portfolio": {"probabilities": [0.5]}, "levels": [0.5], "methods": ["auto"],
+                     "tolerance": {"relative": 0.0}});
+    let (status, ct, v) = s.post_json("/v1/quantiles", &req).await;
+    assert_problem(status, &ct, &v, 422, Some("/tolerance/relative"));
 }

@@ -7,7 +7,7 @@
 //! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
 //! count itself and the two ends of the range that the error bound allows).
 
-use super::checks::{distinct_methods, list_size};
+use super::checks::{check_tolerance, distinct_methods, list_size};
 use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
@@ -231,6 +231,8 @@ impl Analytic for Quantiles {
             errs.push(Violation::new("/methods", "at least one method is required"));
         }
         distinct_methods(&req.methods, errs);
+        // As for the tail: a tolerance of 0 (or below) cannot be met, and the document says > 0.
+        check_tolerance(req.tolerance, errs);
     }
 
     fn evaluations(req: &QuantilesRequest) -> Option<f64> {
