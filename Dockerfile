@@ -6,6 +6,8 @@ COPY src ./src
 # src/api/routes/page.rs includes the explorer page at compile time (tests/deploy_files.rs checks every include).
 COPY assets ./assets
 COPY benches ./benches
+# src/api/openapi.rs includes the document's examples (the service's answers to its example requests).
+COPY openapi/examples ./openapi/examples
 RUN cargo build --release --locked --bin tailtally
 
 FROM debian:bookworm-slim

@@ -152,3 +152,31 @@ async fn body_and_work_limits_answer_413() {
     let (status, ct, v) = s.post_json("/v1/tail", &heavy).await;
     assert_problem(status, &ct, &v, 413, None);
 }
+
+/// The server and the OpenAPI document agree where Schemathesis found them apart: JSON Schema's `integer`
+/// takes 12.0 (so the server does), and the `independent` model is a closed object (so an unknown key is a
+/// 422 at its pointer, as in every other object).
+#[tokio::test]
+async fn integral_floats_are_counts_and_the_independent_model_is_closed() {
+    let s = start(&[]).await;
+    let req = json!({"portfolio": {"probabilities": [0.1, 0.2], "groups": [{"size": 3.0, "probability": 0.5}],
+                                   "families": [{"kind": "harmonic", "n": 2e0}]},
+                     "thresholds": [1.0, 2]});
+    let (status, _, v) = s.post_json("/v1/tail", &req).await;
+    assert_eq!(status, 200, "{v}");
+    assert_eq!(v["results"][0]["threshold"], 1);
+    assert_eq!(v["summary"]["exposures"], 7);
+    let (status, ct, v) =
+        s.post_json("/v1/tail", &json!({"portfolio": {"probabilities": [0.5]}, "thresholds": [1.5]})).await;
+    assert_problem(status, &ct, &v, 422, Some("/thresholds/0"));
+    let req = json!({"portfolio": {"probabilities": [0.5]}, "thresholds": [1],
+                     "dependence": {"model": "independent", "rho": 0.2}});
+    let (status, ct, v) = s.post_json("/v1/tail", &req).await;
+    assert_problem(status, &ct, &v, 422, Some("/dependence"));
+    assert!(v["detail"].as_str().unwrap().contains("unknown field `rho`"), "{v}");
+    // A tolerance must be > 0 (exclusiveMinimum in the document) for quantiles as for tails.
+    let req = json!({"portfolio": {"probabilities": [0.5]}, "levels": [0.5], "methods": ["auto"],
+                     "tolerance": {"relative": 0.0}});
+    let (status, ct, v) = s.post_json("/v1/quantiles", &req).await;
+    assert_problem(status, &ct, &v, 422, Some("/tolerance/relative"));
+}

@@ -42,9 +42,11 @@ pub struct ChartRequest {
     pub log_scale: bool,
     /// Width in pixels, 240 to 4000 (default 760).
     #[serde(default)]
+    #[schema(minimum = 240, maximum = 4000)]
     pub width: Option<u32>,
     /// Height in pixels, 160 to 3000 (default 420).
     #[serde(default)]
+    #[schema(minimum = 160, maximum = 3000)]
     pub height: Option<u32>,
 }
 crate::portfolio::objects::objects_only!(ChartRequest);

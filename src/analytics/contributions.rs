@@ -50,7 +50,7 @@ pub enum RankBy {
 pub struct ContributionsRequest {
     pub portfolio: PortfolioSpec,
     /// The threshold k of the tail P(S >= k).
-    #[schema(example = 12)]
+    #[schema(example = 12, maximum = 1_000_000_000)]
     pub threshold: u64,
     /// Return only the first `top` after ranking (all by default).
     pub top: Option<usize>,

@@ -30,11 +30,15 @@ pub const DEFAULT_ABSOLUTE_TOLERANCE: f64 = 1e-13;
 #[serde(tag = "model", rename_all = "snake_case", deny_unknown_fields)]
 pub enum Dependence {
     /// Mutually independent exposures (the default).
-    Independent,
+    // A struct variant, not a unit one: serde reads an internally tagged unit variant without looking at the
+    // other keys, so `deny_unknown_fields` would not refuse `{"model": "independent", "rho": 0.2}`, which the
+    // document (closed objects) calls invalid.
+    Independent {},
     /// One common Gaussian factor with asset correlation `rho` in [0, 1) (the loading of every exposure that has
     /// none of its own). The law is mixed over the factor by adaptive Gauss-Kronrod quadrature until the
     /// embedded rules agree within `tolerance`.
     OneFactorGaussian {
+        #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
         rho: f64,
         /// Deprecated and ignored (it was the Gauss-Hermite node count); the quadrature now refines until it
         /// meets `tolerance`. Accepted so that older requests keep working.
@@ -59,7 +63,7 @@ pub struct FactorTolerance {
     pub relative: Option<f64>,
     /// At least 0; default 1e-13.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    #[schema(example = 1e-13)]
+    #[schema(example = 1e-13, minimum = 0.0)]
     pub absolute: Option<f64>,
 }
 
@@ -80,7 +84,7 @@ impl Dependence {
     /// The common loading, None when independent.
     pub fn rho(&self) -> Option<f64> {
         match *self {
-            Dependence::Independent => None,
+            Dependence::Independent {} => None,
             Dependence::OneFactorGaussian { rho, .. } => Some(rho),
         }
     }

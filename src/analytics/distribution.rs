@@ -58,6 +58,7 @@ pub struct DistributionRequest {
     pub from: Option<u64>,
     pub to: Option<u64>,
     /// Probability mass allowed outside the range (half on each side), in (0, 1).
+    #[schema(exclusive_minimum = 0.0, exclusive_maximum = 1.0)]
     pub mass: Option<f64>,
     #[serde(default)]
     pub stress: Option<Stress>,

@@ -39,7 +39,7 @@ impl Law {
         let support = (model.support_min(), model.support_max());
         let moments = Moments::of(&model);
         Law {
-            dependence: Dependence::Independent,
+            dependence: Dependence::Independent {},
             kind: Kind::Independent { model: Box::new(model), moments },
             support,
         }

@@ -72,9 +72,9 @@ pub fn tail_expectation(law: &Law, level: f64) -> TailExpectation {
 #[derive(Debug, Clone, Copy, Deserialize, Serialize, ToSchema)]
 #[serde(remote = "Self", deny_unknown_fields)]
 pub struct LayerSpec {
-    #[schema(example = 20)]
+    #[schema(example = 20, maximum = 1_000_000_000)]
     pub attachment: u64,
-    #[schema(example = 10)]
+    #[schema(example = 10, maximum = 1_000_000_000)]
     pub limit: Option<u64>,
 }
 crate::portfolio::objects::objects_only!(LayerSpec);
@@ -85,10 +85,11 @@ crate::portfolio::objects::objects_only!(LayerSpec);
 pub struct LayersRequest {
     pub portfolio: PortfolioSpec,
     #[serde(default)]
+    #[schema(max_items = 10_000)]
     pub layers: Vec<LayerSpec>,
     /// Levels in (0, 1) at which to report E[S | S > q_level].
     #[serde(default)]
-    #[schema(example = json!([0.99]))]
+    #[schema(example = json!([0.99]), max_items = 10_000)]
     pub tail_levels: Vec<f64>,
     #[serde(default)]
     pub stress: Option<Stress>,

@@ -7,7 +7,7 @@
 //! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
 //! count itself and the two ends of the range that the error bound allows).
 
-use super::checks::{distinct_methods, list_size};
+use super::checks::{check_tolerance, distinct_methods, list_size};
 use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
@@ -159,7 +159,7 @@ pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolera
 pub struct QuantilesRequest {
     pub portfolio: PortfolioSpec,
     /// Levels strictly inside (0, 1).
-    #[schema(example = json!([0.95, 0.99, 0.995]), min_items = 1)]
+    #[schema(example = json!([0.95, 0.99, 0.995]), min_items = 1, max_items = 10_000)]
     pub levels: Vec<f64>,
     /// Methods; each level gets one quantile per method (default `exact`).
     #[serde(default = "default_methods")]
@@ -232,6 +232,8 @@ impl Analytic for Quantiles {
             errs.push(Violation::new("/methods", "at least one method is required"));
         }
         distinct_methods(&req.methods, errs);
+        // As for the tail: a tolerance of 0 (or below) cannot be met, and the document says > 0.
+        check_tolerance(req.tolerance, errs);
     }
 
     fn evaluations(req: &QuantilesRequest) -> Option<f64> {

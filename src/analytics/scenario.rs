@@ -264,7 +264,7 @@ pub fn check_work(model: &Model, evaluations: f64, factor: f64, limits: &Service
 
 /// The stressed and base laws under the dependence model (their integrations stop once `cancel` is set).
 pub fn build(model: Model, stress: Option<Stress>, dep: Option<Dependence>, cancel: &Cancel) -> Laws {
-    let dep = dep.unwrap_or(Dependence::Independent);
+    let dep = dep.unwrap_or(Dependence::Independent {});
     let law = |m: Model| Law::new(m, dep).cancellable(cancel);
     match stress {
         None => Laws { law: law(model), base: None, stress: None },

@@ -22,7 +22,7 @@ use utoipa::ToSchema;
 pub struct TailRequest {
     pub portfolio: PortfolioSpec,
     /// Counts k at which to evaluate the probability.
-    #[schema(example = json!([10, 25, 40]), min_items = 1)]
+    #[schema(example = json!([10, 25, 40]), min_items = 1, max_items = 10_000)]
     pub thresholds: Vec<u64>,
     /// Which probability: `upper` P(S >= k) (default), `lower` P(S <= k) or `point` P(S = k).
     #[serde(default)]

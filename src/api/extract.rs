@@ -8,6 +8,7 @@
 //! takes about a second to parse, which on an async worker would keep the probes waiting; small ones are
 //! parsed in place, a hand-off costing more than their parse.
 
+use super::integral::Integral;
 use super::problem::{escape_token, Problem};
 use super::tables::{self, Tabular};
 use super::AppState;
@@ -73,17 +74,19 @@ where
     }
 }
 
-/// Parse JSON, mapping serde's errors to problems with a JSON pointer.
+/// Parse JSON, mapping serde's errors to problems with a JSON pointer. Integral floats read as integers
+/// (`integral`), as JSON Schema's `integer` allows.
 ///
 /// Valid documents are read by serde_json alone; the path tracking that gives a failure its pointer wraps
 /// every value (about a fifth of the parse of a list of numbers), so it is paid only by a document that
-/// fails, read a second time. Both readers see the same bytes with the same rules, so they fail alike.
+/// fails, read a second time. The second reader accepts everything the first does (and integral floats
+/// besides), so a document the first refuses is answered by the second: accepted, or refused with a pointer.
 pub fn parse<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, Problem> {
     if let Ok(v) = serde_json::from_slice(bytes) {
         return Ok(v);
     }
     let mut de = serde_json::Deserializer::from_slice(bytes);
-    match serde_path_to_error::deserialize::<_, T>(&mut de) {
+    match serde_path_to_error::deserialize::<_, T>(Integral(&mut de)) {
         Ok(v) => {
             // Trailing garbage after the document is malformed JSON too.
             if let Err(e) = de.end() {

@@ -6,6 +6,7 @@
 pub mod batch;
 pub mod encode;
 pub mod extract;
+pub mod integral;
 pub mod offload;
 pub mod openapi;
 pub mod problem;

@@ -44,12 +44,13 @@ crate::portfolio::objects::objects_only!(PortfolioSpec);
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
 #[serde(remote = "Self", deny_unknown_fields)]
 pub struct GroupSpec {
-    #[schema(example = 250000)]
+    #[schema(example = 250000, maximum = 1_000_000_000)]
     pub size: u64,
-    #[schema(example = 0.004)]
+    #[schema(example = 0.004, minimum = 0.0, maximum = 1.0)]
     pub probability: f64,
     /// The group's factor loading in [0, 1) under a dependence model (default: the model's `rho`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
     pub loading: Option<f64>,
     /// Loss units each member adds when its event happens, a whole number in 1..=1e9 (default 1).
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -66,9 +67,12 @@ crate::portfolio::objects::objects_only!(GroupSpec);
 pub enum FamilySpec {
     /// n exposures with the same probability.
     Constant {
+        #[schema(maximum = 10_000_000)]
         n: u64,
+        #[schema(minimum = 0.0, maximum = 1.0)]
         probability: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         #[schema(minimum = 1, maximum = 1000000000)]
@@ -76,8 +80,10 @@ pub enum FamilySpec {
     },
     /// p_k = 1/k for k = 1..n (the number of cycles of a uniform random permutation of n items).
     Harmonic {
+        #[schema(maximum = 10_000_000)]
         n: u64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         #[schema(minimum = 1, maximum = 1000000000)]
@@ -85,9 +91,12 @@ pub enum FamilySpec {
     },
     /// p_k = theta / (theta + k - 1) for k = 1..n, theta > 0.
     Ewens {
+        #[schema(maximum = 10_000_000)]
         n: u64,
+        #[schema(exclusive_minimum = 0.0)]
         theta: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         #[schema(minimum = 1, maximum = 1000000000)]
@@ -95,10 +104,14 @@ pub enum FamilySpec {
     },
     /// p_k = first * ratio^(k-1) for k = 1..n.
     Geometric {
+        #[schema(maximum = 10_000_000)]
         n: u64,
+        #[schema(minimum = 0.0, maximum = 1.0)]
         first: f64,
+        #[schema(minimum = 0.0, maximum = 1.0)]
         ratio: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         #[schema(minimum = 1, maximum = 1000000000)]
@@ -106,10 +119,14 @@ pub enum FamilySpec {
     },
     /// n probabilities evenly spaced from `first` to `last` (inclusive).
     Linear {
+        #[schema(maximum = 10_000_000)]
         n: u64,
+        #[schema(minimum = 0.0, maximum = 1.0)]
         first: f64,
+        #[schema(minimum = 0.0, maximum = 1.0)]
         last: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         #[schema(minimum = 1, maximum = 1000000000)]
@@ -121,6 +138,7 @@ pub enum FamilySpec {
         intercept: f64,
         slope: f64,
         #[serde(default, skip_serializing_if = "Option::is_none")]
+        #[schema(minimum = 0.0, exclusive_maximum = 1.0)]
         loading: Option<f64>,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         #[schema(minimum = 1, maximum = 1000000000)]

@@ -35,13 +35,11 @@ Blank lines are skipped. Each line may be as long as `--max-body-bytes`; a batch
 #[utoipa::path(
     post, path = "/v1/batch", tag = "analytics",
     request_body(
-        content = String, content_type = "application/x-ndjson", description = LINE_FORMAT,
-        example = json!("{\"id\": 1, \"tail\": {\"portfolio\": {\"probabilities\": [0.1, 0.2]}, \"thresholds\": [1]}}\n{\"id\": \"q\", \"quantiles\": {\"portfolio\": {\"groups\": [{\"size\": 100, \"probability\": 0.05}]}, \"levels\": [0.99]}}\n")
+        content = String, content_type = "application/x-ndjson", description = LINE_FORMAT
     ),
     responses(
         (status = 200, description = "One NDJSON answer line per request line, in input order: `{\"id\": ..., \"<kind>\": <response>}` or `{\"id\": ..., \"problem\": <Problem>}`",
-            body = String, content_type = "application/x-ndjson",
-            example = json!("{\"id\":\"q\",\"problem\":{\"type\":\"/problems/invalid-request\",\"title\":\"Invalid request\",\"status\":422,\"detail\":\"line 2: /quantiles/levels/0: must be strictly between 0 and 1, got 2\",\"errors\":[{\"pointer\":\"/quantiles/levels/0\",\"detail\":\"must be strictly between 0 and 1, got 2\"}]}}\n")),
+            body = String, content_type = "application/x-ndjson"),
         (status = 408, description = "No body arrived within the request timeout", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Not NDJSON", body = Problem, content_type = "application/problem+json"),
         (status = 503, description = "All computing slots busy and the queue full", body = Problem, content_type = "application/problem+json"),
