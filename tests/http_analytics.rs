@@ -204,3 +204,33 @@ async fn contributions_rank_every_exposure_and_answer_under_dependence() {
     }
     s.shutdown().await.unwrap();
 }
+
+/// Found by the contract check (Schemathesis): a probability factor kept a certain exposure certain in the
+/// model but not in the listed probabilities, so the rows and the model disagreed and the route panicked; and
+/// under a factor near 1 the sensitivities' bounds were infinite (serialised as null where the schema says a
+/// number). Both now answer 200 with finite bounds, and a certain exposure stays certain under any factor.
+#[tokio::test]
+async fn contributions_survive_extreme_stress_and_a_factor_near_one() {
+    let s = start(&[]).await;
+    let body = json!({"portfolio": {"families": [{"kind": "harmonic", "n": 3000}]}, "threshold": 5,
+        "stress": {"probability_factor": 1e-107}, "top": 3});
+    let (st, _, v) = s.post_json("/v1/contributions", &body).await;
+    assert_eq!(st, 200, "{v}");
+    // Exposure 0 has p = 1 (harmonic: 1/1): still certain, so the stressed count is at least 1.
+    let rows = v["contributions"].as_array().unwrap();
+    assert_eq!(rows.len(), 3);
+    let body = json!({"dependence": {"model": "one_factor_gaussian", "rho": 0.999},
+        "portfolio": {"probabilities": [0.01, 0.02, 0.15, 0.3]}, "threshold": 2});
+    let (st, _, v) = s.post_json("/v1/contributions", &body).await;
+    assert_eq!(st, 200, "{v}");
+    for r in v["contributions"].as_array().unwrap() {
+        for fig in ["sensitivity", "tail_without"] {
+            let d = &r["detail"][fig];
+            let (value, bound) = (d["value"].as_f64().unwrap(), d["error_bound"].as_f64());
+            assert!(bound.is_some_and(f64::is_finite), "{fig} bound must be a number: {r}");
+            // dP/dp_i = E[P(S_-i = k - 1 | Z) dp_i(Z)/dp_i] and the weight integrates to 1: within [0, 1].
+            assert!((0.0..=1.0).contains(&value), "{r}");
+        }
+    }
+    s.shutdown().await.unwrap();
+}

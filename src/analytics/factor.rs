@@ -629,8 +629,10 @@ impl Factor {
                     let phi = lnphi[j].exp();
                     fs[j] = dens * s.value;
                     ft[j] = phi * t.value;
-                    es += rule[j].1 * dens * s.abs_err;
-                    et += rule[j].1 * phi * t.abs_err;
+                    // Both figures are probabilities in [0, 1], so no node's error exceeds 1; a node that
+                    // could not bound its own (an infinite bound) must not turn a zero weight into NaN.
+                    es += rule[j].1 * dens * s.abs_err.min(1.0);
+                    et += rule[j].1 * phi * t.abs_err.min(1.0);
                 }
                 let (ks, qs_err, _) = qk15(&rule, &fs);
                 let (kt, qt_err, _) = qk15(&rule, &ft);
@@ -651,8 +653,21 @@ impl Factor {
             };
             to_value(&i, 0.0, hi)
         };
-        let each: Vec<(Value, Value)> =
-            sens.into_iter().zip(without).map(|(s, t)| (fin(s, f64::INFINITY), fin(t, 1.0))).collect();
+        // dP/dp_i = E[P(S_-i = k - 1 | Z) dp_i(Z)/dp_i], and dp_i(z)/dp_i phi(z) is the density of Z given the
+        // latent variable at c_i, N(sqrt(r) c_i, 1 - r), which integrates to 1: so the sensitivity lies in
+        // [0, 1], and the weight's mass outside [-LIMIT, LIMIT] is that normal law's two tails there (not the
+        // factor's own, which is far smaller when sqrt(r) |c_i| is near LIMIT, i.e. rho near 1).
+        let each: Vec<(Value, Value)> = sens
+            .into_iter()
+            .zip(without)
+            .zip(&cons)
+            .map(|((s, t), &(mu, sd))| {
+                let outside =
+                    if sd > 0.0 { normal_law::sf((LIMIT - mu) / sd) + normal_law::sf((LIMIT + mu) / sd) } else { 0.0 };
+                let s = fin((s.0, s.1 + up(outside * (1.0 + 1e-12)), s.2), 1.0);
+                (s, fin(t, 1.0))
+            })
+            .collect();
         // Impossible and certain exposures.
         let ints = &out.integrals;
         let fixed_out = fixed

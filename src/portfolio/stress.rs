@@ -27,6 +27,8 @@ impl Stress {
     /// f p / (1 - p + f p).
     pub fn apply(&self, p: f64) -> f64 {
         match *self {
+            // A certain exposure stays certain, as in `stressed` (it is part of the shift, not a probability).
+            Stress::ProbabilityFactor(_) if p >= 1.0 => 1.0,
             Stress::ProbabilityFactor(f) => (f * p).min(1.0),
             Stress::OddsFactor(f) => {
                 if p >= 1.0 {
