@@ -6,22 +6,7 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
-PROFILE=${PROFILE:-release}
-if [ "$PROFILE" = release ]; then
-    nice -n 10 cargo build --release --locked --bin tailtally
-    BIN=target/release/tailtally
-else
-    nice -n 10 cargo build --locked --bin tailtally
-    BIN=target/debug/tailtally
-fi
-
-WORK=$(mktemp -d)
-SERVER_PID=
-cleanup() {
-    if [ -n "$SERVER_PID" ] && kill -0 "$SERVER_PID" 2>/dev/null; then kill -TERM "$SERVER_PID"; wait "$SERVER_PID" || true; fi
-    rm -rf "$WORK"
-}
-trap cleanup EXIT
+source scripts/serve.sh
 
 (cd "$WORK" && openapi-python-client generate --path "$OLDPWD/openapi/openapi.json" --meta setup \
     --config "$OLDPWD/tests/python_client/generator.yaml")
@@ -29,13 +14,5 @@ trap cleanup EXIT
 python3 -m venv "$WORK/venv"
 "$WORK/venv/bin/pip" install --quiet "$WORK/tailtally-client"
 
-"$BIN" --listen 127.0.0.1:0 --log-format json 2>"$WORK/server.log" &
-SERVER_PID=$!
-ADDR=
-for _ in $(seq 1 100); do
-    ADDR=$(grep -o '"addr":"[^"]*"' "$WORK/server.log" | head -1 | cut -d'"' -f4 || true)
-    [ -n "$ADDR" ] && break
-    sleep 0.1
-done
-[ -n "$ADDR" ] || { echo "the server did not start:"; cat "$WORK/server.log"; exit 1; }
+start_server
 "$WORK/venv/bin/python" tests/python_client/check_client.py "http://$ADDR" openapi/openapi.json

@@ -24,33 +24,10 @@ PROFILE=${PROFILE:-release}
 SEED=${SEED:-1}
 command -v schemathesis >/dev/null || { echo "schemathesis is missing: pip install schemathesis" >&2; exit 2; }
 
-if [ "$PROFILE" = release ]; then
-    nice -n 10 cargo build --release --locked --bin tailtally
-    BIN=target/release/tailtally
-else
-    nice -n 10 cargo build --locked --bin tailtally
-    BIN=target/debug/tailtally
-fi
+source scripts/serve.sh
 
-WORK=$(mktemp -d)
-SERVER_PID=
-cleanup() {
-    if [ -n "$SERVER_PID" ] && kill -0 "$SERVER_PID" 2>/dev/null; then kill -TERM "$SERVER_PID"; wait "$SERVER_PID" || true; fi
-    rm -rf "$WORK"
-}
-trap cleanup EXIT
-
-"$BIN" --listen 127.0.0.1:0 --log-format json \
-    --max-listed-exposures 20000 --max-total-exposures 100000000 --max-thresholds 50 --max-work 2e6 \
-    --request-timeout-secs 20 --max-body-bytes 1048576 2>"$WORK/server.log" &
-SERVER_PID=$!
-ADDR=
-for _ in $(seq 1 100); do
-    ADDR=$(grep -o '"addr":"[^"]*"' "$WORK/server.log" | head -1 | cut -d'"' -f4 || true)
-    [ -n "$ADDR" ] && break
-    sleep 0.1
-done
-[ -n "$ADDR" ] || { echo "the server did not start:"; cat "$WORK/server.log"; exit 1; }
+start_server --max-listed-exposures 20000 --max-total-exposures 100000000 --max-thresholds 50 --max-work 2e6 \
+    --request-timeout-secs 20 --max-body-bytes 1048576
 echo "tailtally at $ADDR; $MAX_EXAMPLES examples per operation, seed $SEED"
 
 status=0
