@@ -347,67 +347,95 @@ fn finish_capped(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f
 }
 
 /// E[min((S - a)+, l)], the expected number of events in the count layer (a, a + l], exactly and with a
-/// rigorous bound; `limit` None means no cap, E[(S - a)+].
+/// rigorous bound; `limit` None means no cap, E[(S - a)+]. With loss units, `a`, `limit` and the value are in
+/// units and the sum runs over the lattice points S = offset + span j (the stop-loss premium of the layer).
 ///
-/// How. The layer's expectation is sum_{j > a} min(j - a, l) P(S = j). Above the mean it is a far-tail sum
-/// like any other: tilt to x = a + 1 and weight the tilted law by min(j - a, l) exp(-t (j - x)), which is at
-/// most min(l, max(1, e^(t - 1) / t)) for every j >= x, so the window's absolute L1 error (truncated counts
-/// included) enters multiplied by that. Below the mean with a cap, the untilted law with weights <= l does.
-/// Below the mean without a cap, E[(S - a)+] = E[S] - a + E[(a - S)+], the last term a lower-tail sum of the
-/// same kind; E[S] is the compensated mean, exact to a few ulps (counted in the bound).
+/// How. The layer's expectation is sum over the points s > a of min(s - a, l) P(S = s). Above the mean it is
+/// a far-tail sum like any other: tilt to the first lattice index x with s(x) > a and weight the tilted law by
+/// min(s(j) - a, l) exp(-t (j - x)). With c = s(x) - a (1 for a count, at most the span h above the offset)
+/// that weight is (c + h d) e^(-t d) at d = j - x >= 0, at most c when t c / h >= 1 and h e^(t c / h - 1) / t
+/// otherwise (and at most l), so the window's absolute L1 error (truncated points included) enters multiplied
+/// by that. Below the mean with a cap, the untilted law with weights <= l does. Below the mean without a cap,
+/// E[(S - a)+] = E[S] - a + E[(a - S)+], the last term a lower-tail sum of the same kind; E[S] is the
+/// compensated mean, exact to a few ulps (counted in the bound).
 pub fn layer_expectation(model: &Model, moments: &Moments, a: u64, limit: Option<u64>) -> Value {
     let l = limit.map(|l| l as f64).unwrap_or(f64::INFINITY);
-    if l == 0.0 || model.support_max().is_some_and(|m| m <= a) {
+    let (h, offset) = (model.span(), model.offset);
+    if l == 0.0 || model.support_max().is_some_and(|m| model.units_of(m) <= a) {
         return Value::certain(0.0);
     }
     if model.is_degenerate() {
-        let s = model.shift as f64;
+        let s = model.units_of(model.shift) as f64;
         return Value::certain((s - a as f64).max(0.0).min(l));
     }
-    let x = a + 1;
+    // The first lattice index above a.
+    let x = if a < offset { 0 } else { (a - offset) / h + 1 };
     if (x as f64) > moments.mean || l.is_finite() {
         let t = if (x as f64) > moments.mean { solve_tilt(model, moments, x as f64, Dir::Up) } else { 0.0 };
         let law = tilted(model, t);
-        let sup = if t > 0.0 { (if t >= 1.0 { 1.0 } else { (t - 1.0).exp() / t }).min(l) } else { l };
+        // The tilt the law was built at (on a lattice t is rounded so that t u is exact).
+        let t = law.t;
+        let sup = weight_sup(t, (model.units_of(x) - a) as f64, h as f64).min(l);
         let rho = (-t).exp();
         let w = &law.window;
-        let (sum, dsum, terms) = walk(w, x, Dir::Up, rho, |j| ((j - a) as f64).min(l));
+        let (sum, dsum, terms) = walk(w, x, Dir::Up, rho, |j| ((model.units_of(j) - a) as f64).min(l));
         // One more rounding per term for the product by h.
         return finish_capped(&law, x, sum, dsum, terms, compose_rel(w.rel), w.abs * sup, f64::INFINITY);
     }
     // Below the mean, uncapped: E[S] - a + E[(a - S)+].
     let below = lower_deficit(model, moments, a);
     let mean_err = 4.0 * U * moments.mean.abs() + gamma(model.bernoulli.len() as f64 + 8.0) * moments.mean.abs();
+    if model.weighted() {
+        // In units: E[S] = offset + h E[j], its error h times that of E[j] plus two roundings.
+        let mean = offset as f64 + h as f64 * moments.mean;
+        let p = mean - a as f64 + below.value;
+        let abs_err = up(below.abs_err + h as f64 * mean_err + 4.0 * U * mean.abs() + 2.0 * U * p.abs());
+        return Value { value: p, ln_value: p.ln(), rel_err: up(abs_err / p), abs_err, kind: Rigorous };
+    }
     let base = moments.mean - a as f64;
     let p = base + below.value;
     let abs_err = up(below.abs_err + mean_err + 2.0 * U * p.abs());
     Value { value: p, ln_value: p.ln(), rel_err: up(abs_err / p), abs_err, kind: Rigorous }
 }
 
-/// E[(a - S)+] = sum_{j < a} (a - j) P(S = j), by a downward tilt to a - 1 (0 when a is at or below the
-/// support's minimum).
+/// The largest (c + h d) e^(-s d) over d >= 0: c when s c / h >= 1, h e^(s c / h - 1) / s otherwise (the
+/// maximum at d = 1 / s - c / h), unbounded at s = 0 (the caller caps it). For a count (c = h = 1): 1 when
+/// s >= 1, e^(s - 1) / s otherwise; with units the value is rounded up by one part in 10^12 to cover the
+/// roundings of c / h, the product and the exponential.
+fn weight_sup(s: f64, c: f64, h: f64) -> f64 {
+    if s <= 0.0 {
+        return f64::INFINITY;
+    }
+    let r = c / h;
+    let v = if s * r >= 1.0 { c } else { h * (s * r - 1.0).exp() / s };
+    if c == 1.0 && h == 1.0 {
+        v
+    } else {
+        v * (1.0 + 1e-12)
+    }
+}
+
+/// E[(a - S)+] = sum over the points s < a of (a - s) P(S = s), by a downward tilt to the last lattice index
+/// below a (0 when a is at or below the support's first point).
 fn lower_deficit(model: &Model, moments: &Moments, a: u64) -> Value {
-    if a <= model.support_min() {
+    let (h, offset) = (model.span(), model.offset);
+    if a <= model.units_of(model.support_min()) {
         return Value::certain(0.0);
     }
-    let x = a - 1;
+    let x = (a - offset - 1) / h;
     let t = if (x as f64) < moments.mean { solve_tilt(model, moments, x as f64, Dir::Down) } else { 0.0 };
     let law = tilted(model, t);
+    let t = law.t;
     let w = &law.window;
     let rho = t.exp();
-    // Weights (a - j) e^(t (x - j)) for j <= x, t <= 0: at most max(1, e^(-t - 1) / -t) (as above), or the
-    // largest deficit a - support_min when t = 0.
-    let s = -t;
-    let sup = if s > 0.0 {
-        if s >= 1.0 {
-            1.0
-        } else {
-            (s - 1.0).exp() / s
-        }
+    // Weights (a - s(j)) e^(t (x - j)) for j <= x, t <= 0: with c = a - s(x), (c + h d) e^(-|t| d), bounded
+    // as above, or the largest deficit a - s(support_min) when t = 0.
+    let sup = if t < 0.0 {
+        weight_sup(-t, (a - model.units_of(x)) as f64, h as f64)
     } else {
-        (a - model.support_min()) as f64
+        (a - model.units_of(model.support_min())) as f64
     };
-    let (sum, dsum, terms) = walk(w, x, Dir::Down, rho, |j| (a - j) as f64);
+    let (sum, dsum, terms) = walk(w, x, Dir::Down, rho, |j| (a - model.units_of(j)) as f64);
     finish_capped(&law, x, sum, dsum, terms, compose_rel(w.rel), w.abs * sup, f64::INFINITY)
 }
 
