@@ -2,6 +2,10 @@
 //! about, and the chosen approximations at the same counts, all as natural logarithms (so that values below
 //! the f64 range still plot on a log axis). The API draws it (`api::svg`). Validation and limits are those of
 //! the tail question; the choice of counts ([`plot_counts`]) is the one the explorer page applies too.
+//!
+//! Losses in units: the counts are chosen on the lattice index j (the law's moments are in steps there) and
+//! reported as the lattice points offset + span j, so the bars stand on the lattice and the threshold, in
+//! units, need not be one of them.
 
 use super::checks::unbounded_counts;
 use super::cost::{self, Footprint};
@@ -10,6 +14,7 @@ use super::law::Law;
 use super::pipeline::{Analytic, Ctx, Inputs};
 use super::scenario::work_of;
 use crate::config::ServiceLimits;
+use crate::engine::exact::lattice;
 use crate::engine::{self, Estimate, MethodId, Prepared, Side};
 use crate::portfolio::stress::Stress;
 use crate::portfolio::{Model, PortfolioSpec, Violation};
@@ -54,8 +59,12 @@ crate::portfolio::objects::objects_only!(ChartRequest);
 /// Everything one picture shows.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ChartData {
+    /// The plotted counts (with loss units: lattice points, in units).
     pub counts: Vec<u64>,
+    /// The distance between plotted counts (in units with loss units).
     pub stride: u64,
+    /// With loss units: the lattice span (units between lattice points); None for a count.
+    pub span: Option<u64>,
     /// Exact ln P(S = k) at each count (None where P = 0).
     pub exact_ln: Vec<Option<f64>>,
     /// Each approximation's ln P(S = k) at each count (None where it is 0), in the order asked.
@@ -118,6 +127,10 @@ impl Analytic for Chart {
         size(req.height, DEFAULT_HEIGHT, HEIGHT_RANGE, "/height", errs);
     }
 
+    fn check_units(req: &ChartRequest) -> Result<(), Vec<Violation>> {
+        super::quantiles::refuse_in_units(&req.methods, &None)
+    }
+
     fn check_model(req: &ChartRequest, model: &Model) -> Result<(), Error> {
         unbounded_counts(model, [("/threshold".to_string(), req.threshold)], "threshold")
     }
@@ -138,8 +151,18 @@ impl Analytic for Chart {
         let prep = Prepared { model, moments: *moments };
         let m = &prep.moments;
         let overlays = overlays(req);
-        let (counts, stride) =
-            plot_counts(m.mean, m.sd(), model.support_min(), model.support_max(), req.threshold, req.side);
+        // In units, the question about the threshold as one about the lattice index (or an exact answer off it),
+        // and the index the plot is anchored at.
+        let asked = if model.weighted() {
+            lattice::query(model, req.threshold, req.side)
+        } else {
+            Ok((req.threshold, req.side))
+        };
+        let anchor = match asked {
+            Ok((j, _)) => j,
+            Err(_) => lattice::query(model, req.threshold, Side::Upper).map_or(0, |(j, _)| j),
+        };
+        let (counts, stride) = plot_counts(m.mean, m.sd(), model.support_min(), model.support_max(), anchor, req.side);
         // One exact batch for the bars plus the title's tail, one batch per overlay.
         let work = work_of(model, counts.len() * (1 + overlays.len()) + 1);
         if work > ctx.limits.max_work {
@@ -149,11 +172,16 @@ impl Analytic for Chart {
             )));
         }
         let mut queries: Vec<(u64, Side)> = counts.iter().map(|&k| (k, Side::Point)).collect();
-        queries.push((req.threshold, req.side));
+        if let Ok(q) = asked {
+            queries.push(q);
+        }
         let ln_of = |e: &Estimate| e.value().ln();
         let exact = engine::run(MethodId::Exact, &prep, &queries, None);
         let exact_ln: Vec<Option<f64>> = exact[..counts.len()].iter().map(ln_of).collect();
-        let tail_ln = ln_of(&exact[counts.len()]);
+        let tail_ln = match asked {
+            Ok(_) => ln_of(&exact[counts.len()]),
+            Err(p) => crate::engine::Value::certain(p).ln(),
+        };
         let points = &queries[..counts.len()];
         let lines = overlays
             .iter()
@@ -162,17 +190,26 @@ impl Analytic for Chart {
                 Ok((id, engine::run(id, &prep, points, None).iter().map(ln_of).collect()))
             })
             .collect::<Result<Vec<_>, Error>>()?;
+        // Back to units: the lattice points, their spacing and the moments of the total.
+        let (span, mean, sd) = if model.weighted() {
+            let h = model.span();
+            (Some(h), model.offset as f64 + h as f64 * m.mean, h as f64 * m.sd())
+        } else {
+            (None, m.mean, m.sd())
+        };
+        let counts = if span.is_some() { counts.iter().map(|&j| model.units_of(j)).collect() } else { counts };
         Ok(ChartData {
             counts,
-            stride,
+            stride: stride * span.unwrap_or(1),
+            span,
             exact_ln,
             overlays: lines,
             threshold: req.threshold,
             side: req.side,
             tail_ln,
             exposures: model.exposures,
-            mean: m.mean,
-            sd: m.sd(),
+            mean,
+            sd,
             log_scale: req.log_scale,
             width: req.width.unwrap_or(DEFAULT_WIDTH),
             height: req.height.unwrap_or(DEFAULT_HEIGHT),

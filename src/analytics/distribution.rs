@@ -3,6 +3,10 @@
 //!
 //! Every value comes from the exact engine's tilted laws (one per cluster of nearby counts), so far-tail
 //! values keep their relative accuracy and their logarithms stay finite where the values underflow.
+//!
+//! Losses in units. The range asked is in units and the rows are the lattice points S = offset + span j inside
+//! it, `step` (the span) apart: a total off the lattice has probability exactly 0 and gets no row, so a book
+//! in units of 1000 does not list 999 zeros between its points. The row limit counts lattice points.
 
 use super::checks::unbounded_counts;
 use super::cost::{self, Footprint};
@@ -13,6 +17,7 @@ use super::pipeline::{Analytic, Ctx, Inputs};
 use super::quantiles::quantiles;
 use super::scenario::{assumptions, Assumptions, ModelOut};
 use crate::config::ServiceLimits;
+use crate::engine::exact::lattice;
 use crate::engine::{BoundKind, MethodId, Side, Value};
 use crate::portfolio::stress::Stress;
 use crate::portfolio::{Model, PortfolioSpec, Violation};
@@ -55,7 +60,9 @@ pub const DEFAULT_MASS: f64 = 1e-12;
 #[serde(remote = "Self", deny_unknown_fields)]
 pub struct DistributionRequest {
     pub portfolio: PortfolioSpec,
+    /// First count of the range (inclusive); with loss units a total in units, on the lattice or not.
     pub from: Option<u64>,
+    /// Last count of the range (inclusive); with loss units a total in units, on the lattice or not.
     pub to: Option<u64>,
     /// Probability mass allowed outside the range (half on each side), in (0, 1).
     #[schema(exclusive_minimum = 0.0, exclusive_maximum = 1.0)]
@@ -67,13 +74,21 @@ pub struct DistributionRequest {
 }
 crate::portfolio::objects::objects_only!(DistributionRequest);
 
-/// POST /v1/distribution response (arrays over the counts from..=to).
+/// POST /v1/distribution response (arrays over the counts from..=to; with loss units over the lattice points
+/// from, from + step, ..., to).
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
 pub struct DistributionResponse {
     pub summary: Summary,
     pub model: ModelOut,
+    /// The first row's count; with loss units the first lattice point of the range asked, in units.
     pub from: u64,
+    /// The last row's count; with loss units the last lattice point of the range asked, in units.
     pub to: u64,
+    /// Only with loss units: the units between consecutive rows (the lattice span), row i being the total
+    /// from + i step. Totals off the lattice (offset + span j) have probability exactly 0 and get no row; every
+    /// lattice point of the range gets one, 0 included.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub step: Option<u64>,
     pub pmf: Vec<f64>,
     /// P(S <= k).
     pub cdf: Vec<f64>,
@@ -115,7 +130,7 @@ impl Analytic for Distribution {
             (Some(a), Some(b), None) => {
                 if b < a {
                     errs.push(Violation::new("/to", format!("must be >= from ({a}), got {b}")));
-                } else if b - a >= limits.max_thresholds as u64 {
+                } else if b - a >= limits.max_thresholds as u64 && !has_units(&req.portfolio) {
                     errs.push(Violation::new(
                         "/to",
                         format!("the range holds {} counts, over the limit of {}", b - a + 1, limits.max_thresholds),
@@ -134,6 +149,10 @@ impl Analytic for Distribution {
         }
     }
 
+    fn check_units(req: &DistributionRequest) -> Result<(), Vec<Violation>> {
+        super::quantiles::refuse_in_units(&[], &req.dependence)
+    }
+
     fn check_model(req: &DistributionRequest, model: &Model) -> Result<(), Error> {
         // With a Poisson part the support is unbounded and the exact engine's window grows with the count (the
         // tilted Poisson window is about 25 sqrt(k) long): an explicit range meets the same limit as a
@@ -149,6 +168,10 @@ impl Analytic for Distribution {
 
     fn footprint(req: &DistributionRequest, model: &Model, limits: &ServiceLimits) -> Footprint {
         let counts = match (req.from, req.to) {
+            // In units: the lattice points of the range, no more than the row limit (`answer` refuses more).
+            (Some(a), Some(b)) if has_units(&req.portfolio) => {
+                lattice_range(model, a, b).map_or(0, |(j0, j1)| j1 - j0 + 1).min(limits.max_thresholds as u64)
+            }
             (Some(a), Some(b)) => b.saturating_sub(a) + 1,
             _ => limits.max_thresholds as u64,
         };
@@ -164,6 +187,10 @@ impl Analytic for Distribution {
         ctx: &Ctx,
     ) -> Result<DistributionResponse, Error> {
         let max_counts = ctx.limits.max_thresholds;
+        let model = law.model();
+        if model.weighted() || has_units(&req.portfolio) {
+            return in_units(req, law, stress, ctx);
+        }
         let (from, to) = match (req.from, req.to) {
             (Some(a), Some(b)) => (a, b),
             _ => central_range(law, req.mass.unwrap_or(DEFAULT_MASS)),
@@ -175,29 +202,101 @@ impl Analytic for Distribution {
                 max_counts
             )));
         }
-        let t = table(law, from, to);
-        let ln = |v: &[Value]| v.iter().map(Value::ln).collect::<Vec<_>>();
-        let kind = t.pmf.iter().chain(&t.cdf).chain(&t.sf).fold(BoundKind::Rigorous, |k, v| k.and(v.kind));
-        Ok(DistributionResponse {
-            summary: Summary::of_law(law),
-            model: ModelOut::of(law, stress),
-            from,
-            to,
-            pmf: t.pmf.iter().map(|v| v.value).collect(),
-            cdf: t.cdf.iter().map(|v| v.value).collect(),
-            sf: t.sf.iter().map(|v| v.value).collect(),
-            ln_pmf: ln(&t.pmf),
-            ln_cdf: ln(&t.cdf),
-            ln_sf: ln(&t.sf),
-            pmf_error_bound: t.pmf.iter().map(|v| v.abs_err).collect(),
-            cdf_sf_max_error_bound: t.cdf.iter().chain(&t.sf).map(|v| v.abs_err).fold(0.0, f64::max),
-            bound_kind: kind,
-            base: None,
-            assumptions: assumptions(),
-        })
+        Ok(response(law, stress, table(law, from, to), None))
     }
 
     fn with_base(answer: &mut DistributionResponse, base: DistributionResponse) {
         answer.base = Some(Box::new(base));
+    }
+}
+
+/// Whether the request gives loss units anywhere (even all 1: the range is then counted in lattice points,
+/// which are the counts themselves).
+fn has_units(spec: &PortfolioSpec) -> bool {
+    !spec.units.is_empty()
+        || spec.groups.iter().any(|g| g.units.is_some())
+        || spec.families.iter().any(|f| f.units().is_some())
+}
+
+/// The first and last lattice index whose point lies in [a, b] (totals in units), None when none does.
+fn lattice_range(model: &Model, a: u64, b: u64) -> Option<(u64, u64)> {
+    let (j0, _) = lattice::query(model, a, Side::Upper).ok()?;
+    let (j1, _) = lattice::query(model, b, Side::Lower).ok()?;
+    (j1 >= j0).then_some((j0, j1))
+}
+
+/// The answer in units: rows at the lattice points of the range asked (or of the central range by mass).
+fn in_units(
+    req: &DistributionRequest,
+    law: &Law,
+    stress: Option<Stress>,
+    ctx: &Ctx,
+) -> Result<DistributionResponse, Error> {
+    let model = law.model();
+    let max_counts = ctx.limits.max_thresholds as u64;
+    let (j0, j1) = match (req.from, req.to) {
+        (Some(a), Some(b)) => {
+            let (j0, j1) = lattice_range(model, a, b).ok_or_else(|| {
+                Error::Invalid(vec![Violation::new(
+                    "/to",
+                    format!(
+                        "no total from {a} to {b} is a point of the lattice {} + {} j on which the losses lie; widen the range",
+                        model.offset,
+                        model.span()
+                    ),
+                )])
+            })?;
+            if j1 - j0 >= max_counts {
+                return Err(Error::Invalid(vec![Violation::new(
+                    "/to",
+                    format!(
+                        "the range holds {} lattice points ({} units apart), over the limit of {max_counts}",
+                        j1 - j0 + 1,
+                        model.span()
+                    ),
+                )]));
+            }
+            (j0, j1)
+        }
+        _ => {
+            let (j0, j1) = central_range(law, req.mass.unwrap_or(DEFAULT_MASS));
+            if j1 - j0 >= max_counts {
+                return Err(Error::TooLarge(format!(
+                    "the range {}..{} that holds the requested mass has {} lattice points, over the limit of {max_counts} (see --max-thresholds); ask for a larger mass or an explicit range",
+                    model.units_of(j0),
+                    model.units_of(j1),
+                    j1 - j0 + 1,
+                )));
+            }
+            (j0, j1)
+        }
+    };
+    let t = table(law, j0, j1);
+    let mut out = response(law, stress, t, Some(model.span()));
+    (out.from, out.to) = (model.units_of(j0), model.units_of(j1));
+    Ok(out)
+}
+
+/// The answer's arrays from a table (`step`: the units between rows, for a book in units).
+fn response(law: &Law, stress: Option<Stress>, t: Table, step: Option<u64>) -> DistributionResponse {
+    let ln = |v: &[Value]| v.iter().map(Value::ln).collect::<Vec<_>>();
+    let kind = t.pmf.iter().chain(&t.cdf).chain(&t.sf).fold(BoundKind::Rigorous, |k, v| k.and(v.kind));
+    DistributionResponse {
+        summary: Summary::of_law(law),
+        model: ModelOut::of(law, stress),
+        from: t.from,
+        to: t.to,
+        step,
+        pmf: t.pmf.iter().map(|v| v.value).collect(),
+        cdf: t.cdf.iter().map(|v| v.value).collect(),
+        sf: t.sf.iter().map(|v| v.value).collect(),
+        ln_pmf: ln(&t.pmf),
+        ln_cdf: ln(&t.cdf),
+        ln_sf: ln(&t.sf),
+        pmf_error_bound: t.pmf.iter().map(|v| v.abs_err).collect(),
+        cdf_sf_max_error_bound: t.cdf.iter().chain(&t.sf).map(|v| v.abs_err).fold(0.0, f64::max),
+        bound_kind: kind,
+        base: None,
+        assumptions: assumptions(),
     }
 }

@@ -4,6 +4,10 @@
 //!
 //! The expectations come from the exact engine's weighted tilted sums (`exact::layer_expectation`), so a layer
 //! far in the tail keeps its relative accuracy; the probabilities are ordinary exact tails.
+//!
+//! Losses in units. Attachments, limits, quantiles and expectations are all in units: E[min((S - a)+, l)] is
+//! then the layer's stop-loss premium, summed over the lattice points S = offset + span j (attachments need
+//! not be lattice points), and the probabilities are tails of the lattice index (`lattice::query`).
 
 use super::cost::{self, Footprint};
 use super::dependence::Dependence;
@@ -13,6 +17,7 @@ use super::pipeline::{Analytic, Ctx, Inputs};
 use super::quantiles::quantiles;
 use super::scenario::{assumptions, Assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
 use crate::config::ServiceLimits;
+use crate::engine::exact::lattice;
 use crate::engine::numerics::float::{up, U};
 use crate::engine::{BoundKind, MethodId, Side, Value};
 use crate::portfolio::stress::Stress;
@@ -34,9 +39,23 @@ pub fn layer(law: &Law, attachment: u64, limit: Option<u64>) -> Layer {
     if let Some(l) = limit {
         qs.push((attachment.saturating_add(l), Side::Upper));
     }
-    let v = law.exact(&qs);
+    let v = upper_tails(law, &qs);
     let exhausted = if limit.is_some() { v[1] } else { Value::default() };
     Layer { attachment, limit, expected_count, probability_touched: v[0], probability_exhausted: exhausted }
+}
+
+/// Exact upper tails P(S >= k), with k in units when the book has loss units (an upper tail is always a
+/// question about a lattice index).
+fn upper_tails(law: &Law, qs: &[(u64, Side)]) -> Vec<Value> {
+    let model = law.model();
+    if !model.weighted() {
+        return law.exact(qs);
+    }
+    let mapped: Vec<(u64, Side)> = qs
+        .iter()
+        .map(|&(k, side)| lattice::query(model, k, side).expect("an upper tail maps onto the lattice"))
+        .collect();
+    law.exact(&mapped)
 }
 
 pub struct TailExpectation {
@@ -50,8 +69,9 @@ pub struct TailExpectation {
 }
 
 pub fn tail_expectation(law: &Law, level: f64) -> TailExpectation {
-    let q = quantiles(law, &[level], MethodId::Exact, None).remove(0).count;
-    let beyond = law.exact(&[(q.saturating_add(1), Side::Upper)])[0];
+    // The quantile search runs on the lattice index; everything after it is in units.
+    let q = law.model().units_of(quantiles(law, &[level], MethodId::Exact, None).remove(0).count);
+    let beyond = upper_tails(law, &[(q.saturating_add(1), Side::Upper)])[0];
     if beyond.value <= 0.0 {
         let v =
             Value { value: q as f64, ln_value: (q as f64).ln(), abs_err: 0.0, rel_err: 0.0, kind: BoundKind::Rigorous };
@@ -68,7 +88,8 @@ pub fn tail_expectation(law: &Law, level: f64) -> TailExpectation {
     TailExpectation { level, quantile: q, expected_count, probability_beyond: beyond }
 }
 
-/// A count layer (attachment, attachment + limit]; no `limit` means unlimited.
+/// A count layer (attachment, attachment + limit]; no `limit` means unlimited. With loss units both are in
+/// units (any whole number, on the lattice or not).
 #[derive(Debug, Clone, Copy, Deserialize, Serialize, ToSchema)]
 #[serde(remote = "Self", deny_unknown_fields)]
 pub struct LayerSpec {
@@ -102,7 +123,7 @@ crate::portfolio::objects::objects_only!(LayersRequest);
 pub struct LayerOut {
     pub attachment: u64,
     pub limit: Option<u64>,
-    /// E[min((S - attachment)+, limit)].
+    /// E[min((S - attachment)+, limit)]; with loss units, in units: the layer's stop-loss premium.
     pub expected_count: f64,
     /// P(S > attachment).
     pub probability_touched: f64,
@@ -122,9 +143,9 @@ pub struct LayerDetail {
 #[derive(Debug, Clone, Serialize, Deserialize, ToSchema)]
 pub struct TailExpectationOut {
     pub level: f64,
-    /// q: the smallest count with P(S <= q) >= level.
+    /// q: the smallest count with P(S <= q) >= level (with loss units: the lattice point, in units).
     pub quantile: u64,
-    /// E[S | S > q] (q itself when nothing lies beyond it).
+    /// E[S | S > q] (q itself when nothing lies beyond it); in units when the book has loss units.
     pub expected_count: ValueOut,
     /// P(S > q).
     pub probability_beyond: ValueOut,
@@ -183,6 +204,10 @@ impl Analytic for Layers {
                 ));
             }
         }
+    }
+
+    fn check_units(req: &LayersRequest) -> Result<(), Vec<Violation>> {
+        super::quantiles::refuse_in_units(&[], &req.dependence)
     }
 
     fn evaluations(req: &LayersRequest) -> Option<f64> {

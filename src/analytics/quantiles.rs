@@ -6,6 +6,11 @@
 //! doubling steps until the level is bracketed, then bisection. Every probe is one evaluation of the chosen
 //! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
 //! count itself and the two ends of the range that the error bound allows).
+//!
+//! Losses in units. The law lives on the lattice S = offset + span j, so the search runs on the index j (no
+//! total between two lattice points has mass of its own) and the answer reports the lattice point in units:
+//! the smallest total s with P(S <= s) >= level is always a lattice point, and P(S <= s - 1) is P(S <= the
+//! previous lattice point).
 
 use super::checks::{check_tolerance, distinct_methods, list_size};
 use super::cost::{self, Footprint};
@@ -153,6 +158,31 @@ pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolera
         .collect()
 }
 
+/// The refusals of a question asked in loss units: the methods that do not yet compute on the lattice (exact
+/// and normal do; the other approximations are being taught it), at their place in `methods`, and the factor
+/// model. The one place to relax when they learn.
+pub fn refuse_in_units(methods: &[MethodId], dependence: &Option<Dependence>) -> Result<(), Vec<Violation>> {
+    let mut errs: Vec<Violation> = methods
+        .iter()
+        .enumerate()
+        .filter(|(_, &m)| !matches!(m, MethodId::Exact | MethodId::Normal))
+        .map(|(i, m)| {
+            Violation::new(
+                format!("/methods/{i}"),
+                format!("{m:?} does not yet take loss units; ask for exact or normal").to_lowercase(),
+            )
+        })
+        .collect();
+    if dependence.as_ref().is_some_and(|d| d.rho().is_some()) {
+        errs.push(Violation::new("/dependence", "a dependence model does not yet take loss units"));
+    }
+    if errs.is_empty() {
+        Ok(())
+    } else {
+        Err(errs)
+    }
+}
+
 /// POST /v1/quantiles request.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
 #[serde(remote = "Self", deny_unknown_fields)]
@@ -179,18 +209,20 @@ crate::portfolio::objects::objects_only!(QuantilesRequest);
 pub struct QuantileOut {
     pub level: f64,
     pub method: MethodId,
-    /// The smallest count k with P(S <= k) >= level (by the method's value).
+    /// The smallest count k with P(S <= k) >= level (by the method's value). With loss units: the smallest
+    /// total in units, always a point of the lattice offset + span j.
     pub count: u64,
     /// P(S <= count).
     pub cdf_at_count: f64,
-    /// P(S <= count - 1).
+    /// P(S <= count - 1) (with loss units: P(S <= the lattice point below `count`), the same probability).
     pub cdf_below: f64,
     pub ln_cdf_at_count: Option<f64>,
     pub ln_cdf_below: Option<f64>,
     /// Error bounds of `cdf_at_count` and `cdf_below`.
     pub cdf_error_bounds: [f64; 2],
     pub bound_kind: BoundKind,
-    /// [lo, hi]: every count that the error bound leaves possible as the quantile (hi null: unbounded).
+    /// [lo, hi]: every count that the error bound leaves possible as the quantile (hi null: unbounded); lattice
+    /// points in units when the book has loss units.
     pub count_range: [Option<u64>; 2],
 }
 
@@ -236,6 +268,10 @@ impl Analytic for Quantiles {
         check_tolerance(req.tolerance, errs);
     }
 
+    fn check_units(req: &QuantilesRequest) -> Result<(), Vec<Violation>> {
+        refuse_in_units(&req.methods, &req.dependence)
+    }
+
     fn evaluations(req: &QuantilesRequest) -> Option<f64> {
         Some(req.levels.len() as f64 * req.methods.len() as f64 * PROBES_PER_LEVEL)
     }
@@ -257,6 +293,9 @@ impl Analytic for Quantiles {
             .iter()
             .map(|&m| ctx.cancel.check().map(|()| quantiles(law, &req.levels, m, req.tolerance)))
             .collect::<Result<Vec<_>, Error>>()?;
+        // In units: every count below is a lattice index, reported as its point offset + span j.
+        let model = law.model();
+        let units = |j: u64| model.units_of(j);
         let mut out = Vec::new();
         // Levels in the order asked, and for each level the methods in the order asked.
         for i in 0..req.levels.len() {
@@ -266,14 +305,14 @@ impl Analytic for Quantiles {
                 out.push(QuantileOut {
                     level: q.level,
                     method: m,
-                    count: q.count,
+                    count: units(q.count),
                     cdf_at_count: a.value,
                     cdf_below: b.value,
                     ln_cdf_at_count: a.ln(),
                     ln_cdf_below: b.ln(),
                     cdf_error_bounds: [a.abs_err, b.abs_err],
                     bound_kind: a.kind.and(b.kind),
-                    count_range: [Some(q.count_range.0), q.count_range.1],
+                    count_range: [Some(units(q.count_range.0)), q.count_range.1.map(units)],
                 });
             }
         }

@@ -261,7 +261,15 @@ fn header(s: &mut String, c: &ChartData, f: &Frame) {
         fmt_count(c.exposures),
         fmt_real(c.mean, 5),
         fmt_real(c.sd, 4),
-        if c.stride > 1 { format!(" \u{b7} every {}th count plotted", c.stride) } else { String::new() }
+        match c.span {
+            // With loss units the stride counts lattice points, each `span` units apart.
+            Some(h) if c.stride > h =>
+                format!(" \u{b7} every {}th lattice point ({h} units apart) plotted", c.stride / h),
+            Some(h) if h > 1 => format!(" \u{b7} lattice points {h} units apart"),
+            Some(_) => String::new(),
+            None if c.stride > 1 => format!(" \u{b7} every {}th count plotted", c.stride),
+            None => String::new(),
+        }
     );
     let _ = write!(
         s,
@@ -368,11 +376,12 @@ fn overlays(s: &mut String, c: &ChartData, f: &Frame) {
 
 /// The threshold's dashed line and label (at the nearest edge when it is outside the plotted counts).
 fn threshold_marker(s: &mut String, c: &ChartData, f: &Frame) {
+    // A threshold in units between two lattice points is marked at the next one (where S >= k begins).
     let at = c.counts.iter().position(|&k| k == c.threshold).or_else(|| {
         if c.threshold < *c.counts.first()? {
             Some(0)
         } else {
-            Some(c.counts.len() - 1)
+            c.counts.iter().position(|&k| k > c.threshold).or(Some(c.counts.len() - 1))
         }
     });
     if let Some(i) = at {
@@ -418,9 +427,10 @@ fn x_axis(s: &mut String, c: &ChartData, f: &Frame) {
         }
     }
     s.push_str("</g>\n");
+    let xlab = if c.span.is_some() { "total loss k, in units" } else { "number of events k" };
     let _ = writeln!(
         s,
-        "<text class=\"x-label\" x=\"{:.2}\" y=\"{:.2}\" font-size=\"12\" text-anchor=\"middle\" fill=\"{INK}\">number of events k</text>",
+        "<text class=\"x-label\" x=\"{:.2}\" y=\"{:.2}\" font-size=\"12\" text-anchor=\"middle\" fill=\"{INK}\">{xlab}</text>",
         left + pw / 2.0,
         base_y + 34.0
     );

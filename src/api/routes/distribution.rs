@@ -53,18 +53,21 @@ fn opt(x: Option<f64>) -> String {
 
 /// Leading `# ` comment lines (the assumptions and cautions every answer carries; `comment="#"` in pandas,
 /// skipped rows in a spreadsheet), then count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound; one row per
-/// count (the stressed law under stress). `sf` is P(S > k).
+/// count (the stressed law under stress). `sf` is P(S > k). With loss units the first column is `total`, in
+/// units, one row per lattice point (`step` apart; totals off the lattice have probability 0 and no row).
 pub fn to_csv(d: &DistributionResponse) -> String {
     let mut s = String::new();
     for a in d.assumptions.iter() {
         let _ = writeln!(s, "# {}", a.replace(['\r', '\n'], " "));
     }
-    s.push_str("count,pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound\n");
+    s.push_str(if d.step.is_some() { "total" } else { "count" });
+    s.push_str(",pmf,cdf,sf,ln_pmf,ln_cdf,ln_sf,pmf_error_bound\n");
+    let step = d.step.unwrap_or(1);
     for i in 0..d.pmf.len() {
         let _ = writeln!(
             s,
             "{},{:e},{:e},{:e},{},{},{},{:e}",
-            d.from + i as u64,
+            d.from + i as u64 * step,
             d.pmf[i],
             d.cdf[i],
             d.sf[i],
