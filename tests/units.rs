@@ -8,6 +8,9 @@
 //! Every threshold from below the support to beyond it, every side, through the service's own path: the spec
 //! validated into a lattice model, each question mapped onto the lattice, the exact engine.
 
+#[path = "common/de_pril.rs"]
+mod de_pril;
+use de_pril::{brute_force, de_pril, rat, Class};
 use num_rational::BigRational;
 use num_traits::{One, Signed, ToPrimitive, Zero};
 use rand::{Rng, SeedableRng};
@@ -16,86 +19,6 @@ use tailtally::engine::exact::{self, lattice};
 use tailtally::engine::{numerics::moments::Moments, Side, Value};
 use tailtally::portfolio::spec::{GroupSpec, PortfolioSpec};
 use tailtally::portfolio::validate::{build_model, Limits};
-
-fn rat(x: f64) -> BigRational {
-    BigRational::from_float(x).expect("finite")
-}
-
-/// One exposure class of De Pril's recursion: `count` exposures of `units` each with probability p < 1.
-struct Class {
-    units: u64,
-    p: f64,
-    count: u64,
-}
-
-/// De Pril (1986): with h(i, k) = i (-1)^(k+1) sum_j n_ij (q_j / (1 - q_j))^k,
-///   P(S = 0) = prod (1 - q_j)^n_ij,  P(S = s) = (1/s) sum_(i=1..s) sum_(k=1..s/i) h(i, k) P(S = s - i k),
-/// over the classes of random exposures; `shift` certain units move the whole law.
-fn de_pril(classes: &[Class], shift: u64) -> Vec<BigRational> {
-    let top: u64 = classes.iter().map(|c| c.units * c.count).sum();
-    let n = top as usize;
-    let mut p0 = BigRational::one();
-    for c in classes {
-        let q = BigRational::one() - rat(c.p);
-        for _ in 0..c.count {
-            p0 *= &q;
-        }
-    }
-    // h(i, k) for every unit size i and k <= top / i.
-    let max_i = classes.iter().map(|c| c.units).max().unwrap_or(1) as usize;
-    let mut h = vec![Vec::new(); max_i + 1];
-    for (i, hi) in h.iter_mut().enumerate().skip(1) {
-        *hi = vec![BigRational::zero(); n / i + 1];
-        for c in classes.iter().filter(|c| c.units as usize == i) {
-            let odds = rat(c.p) / (BigRational::one() - rat(c.p));
-            let mut pw = BigRational::one();
-            for (k, h) in hi.iter_mut().enumerate().skip(1) {
-                pw *= &odds;
-                let term = &pw * BigRational::from_integer((c.count as i64 * i as i64).into());
-                if k % 2 == 1 {
-                    *h += term;
-                } else {
-                    *h -= term;
-                }
-            }
-        }
-    }
-    let mut f = vec![BigRational::zero(); n + 1];
-    f[0] = p0;
-    for s in 1..=n {
-        let mut acc = BigRational::zero();
-        for (i, hi) in h.iter().enumerate().skip(1).take(s) {
-            for k in 1..=(s / i) {
-                if !hi[k].is_zero() {
-                    acc += &hi[k] * &f[s - i * k];
-                }
-            }
-        }
-        f[s] = acc / BigRational::from_integer((s as i64).into());
-    }
-    let mut out = vec![BigRational::zero(); shift as usize];
-    out.extend(f);
-    out
-}
-
-/// Every outcome of a tiny book of (units, p), enumerated.
-fn brute_force(book: &[(u64, f64)]) -> Vec<BigRational> {
-    let top: u64 = book.iter().map(|b| b.0).sum();
-    let mut f = vec![BigRational::zero(); top as usize + 1];
-    for mask in 0u32..(1 << book.len()) {
-        let (mut s, mut pr) = (0usize, BigRational::one());
-        for (i, &(u, p)) in book.iter().enumerate() {
-            if mask >> i & 1 == 1 {
-                s += u as usize;
-                pr *= rat(p);
-            } else {
-                pr *= BigRational::one() - rat(p);
-            }
-        }
-        f[s] += pr;
-    }
-    f
-}
 
 /// The service's answer to (k, side) on a spec: validated into its lattice, mapped, evaluated exactly.
 fn answers(spec: &PortfolioSpec, queries: &[(u64, Side)]) -> Vec<Value> {
