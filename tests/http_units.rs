@@ -1,7 +1,9 @@
 //! Losses in units end to end: the tail in units over HTTP (against enumeration of the book in exact
 //! rationals), a CSV table's units column, and the problems: bad units at their pointers, questions and
 //! methods that do not yet take units (422 at the field), a lattice over the work budget (413 that says how
-//! much coarser a unit would fit).
+//! much coarser a unit would fit); the other questions in units over HTTP (layers' stop-loss premiums, the
+//! distribution as JSON and CSV, quantiles, the chart's SVG), a batch line and `eval`, and a distribution over
+//! a lattice too wide for the work budget (413 before anything is allocated).
 
 mod common;
 use common::{assert_problem, start};
@@ -76,11 +78,14 @@ async fn the_tail_in_units_matches_enumeration_and_bad_requests_get_problems() {
     let q = json!({"portfolio": portfolio, "thresholds": [5], "methods": ["exact", "saddlepoint"]});
     let (st, ct, body) = s.post_json("/v1/tail", &q).await;
     assert_problem(st, &ct, &body, 422, Some("/methods/1"));
-    let (st, ct, body) = s.post_json("/v1/distribution", &json!({"portfolio": portfolio})).await;
+    let (st, ct, body) = s.post_json("/v1/contributions", &json!({"portfolio": portfolio, "threshold": 5})).await;
     assert_problem(st, &ct, &body, 422, Some("/portfolio/units"));
     let fam = json!({"families": [{"kind": "constant", "n": 10, "probability": 0.1, "units": 7}]});
-    let (st, ct, body) = s.post_json("/v1/quantiles", &json!({"portfolio": fam, "levels": [0.5]})).await;
+    let (st, ct, body) = s.post_json("/v1/contributions", &json!({"portfolio": fam, "threshold": 5})).await;
     assert_problem(st, &ct, &body, 422, Some("/portfolio/families/0/units"));
+    let q = json!({"portfolio": fam, "levels": [0.5], "methods": ["normal", "poisson"]});
+    let (st, ct, body) = s.post_json("/v1/quantiles", &q).await;
+    assert_problem(st, &ct, &body, 422, Some("/methods/1"));
     s.shutdown().await.unwrap();
 }
 
@@ -144,7 +149,7 @@ async fn a_batch_line_in_units_answers_as_the_route_does() {
     let body = format!(
         "{}\n{}\n",
         json!({"id": "units", "tail": tail}),
-        json!({"id": "not-yet", "layers": {"portfolio": {"probabilities": P, "units": U}, "layers": [{"attachment": 10}]}})
+        json!({"id": "not-yet", "contributions": {"portfolio": {"probabilities": P, "units": U}, "threshold": 10}})
     );
     let res = s
         .client
@@ -163,6 +168,162 @@ async fn a_batch_line_in_units_answers_as_the_route_does() {
         assert_eq!(got, &want["results"][i]["estimates"][0]["probability"], "{text}");
     }
     assert_eq!(lines[1]["problem"]["status"], 422, "{text}");
-    assert_eq!(lines[1]["problem"]["errors"][0]["pointer"], "/layers/portfolio/units", "{text}");
+    assert_eq!(lines[1]["problem"]["errors"][0]["pointer"], "/contributions/portfolio/units", "{text}");
+    s.shutdown().await.unwrap();
+}
+
+/// E[min((S - a)+, l)] and P(S = s) by enumeration of the 2^6 outcomes in exact rationals.
+fn pmf() -> Vec<BigRational> {
+    let top: u64 = U.iter().sum();
+    let mut f = vec![BigRational::zero(); top as usize + 1];
+    for mask in 0u32..64 {
+        let (mut s, mut pr) = (0usize, BigRational::one());
+        for i in 0..6 {
+            let p = BigRational::from_float(P[i]).unwrap();
+            if mask >> i & 1 == 1 {
+                s += U[i] as usize;
+                pr *= p;
+            } else {
+                pr *= BigRational::one() - p;
+            }
+        }
+        f[s] += pr;
+    }
+    f
+}
+
+fn layer(a: u64, l: Option<u64>) -> f64 {
+    let mut acc = BigRational::zero();
+    for (s, p) in pmf().iter().enumerate().skip(a as usize + 1) {
+        let x = l.map_or(s as u64 - a, |l| (s as u64 - a).min(l));
+        acc += p * BigRational::from_integer((x as i64).into());
+    }
+    acc.to_f64().unwrap()
+}
+
+#[tokio::test]
+async fn the_other_questions_answer_in_units_over_http() {
+    let s = start(&[]).await;
+    // The enumeration's book (span 2: every unit is even) doubled, plus a certain 3: the lattice 3 + 4 j.
+    let (p2, u2): (Vec<f64>, Vec<u64>) =
+        (P.iter().copied().chain([1.0]).collect(), U.iter().map(|u| 2 * u).chain([3]).collect());
+    let doubled = json!({"probabilities": p2, "units": u2});
+    let portfolio = json!({"probabilities": P, "units": U});
+    // Layers: the stop-loss premium at a few attachments, by enumeration.
+    let q = json!({"portfolio": portfolio, "layers": [{"attachment": 13}, {"attachment": 20, "limit": 30}]});
+    let (st, _, body) = s.post_json("/v1/layers", &q).await;
+    assert_eq!(st, 200, "{body}");
+    for (r, want) in body["layers"].as_array().unwrap().iter().zip([layer(13, None), layer(20, Some(30))]) {
+        let got = r["expected_count"].as_f64().unwrap();
+        assert!((got - want).abs() <= 1e-13 * want, "{r}: want {want}");
+    }
+    // The same book doubled plus 3: every premium in units doubles (attachment 2a + 3).
+    let q = json!({"portfolio": doubled, "layers": [{"attachment": 29}], "tail_levels": [0.9]});
+    let (st, _, body) = s.post_json("/v1/layers", &q).await;
+    assert_eq!(st, 200, "{body}");
+    let got = body["layers"][0]["expected_count"].as_f64().unwrap();
+    assert!((got - 2.0 * layer(13, None)).abs() <= 1e-13 * got, "{body}");
+    assert_eq!(body["tail_expectations"][0]["quantile"].as_u64().unwrap() % 2, 1, "{body}");
+    // The distribution: rows at the lattice points only, `step` apart, as JSON and as CSV.
+    let q = json!({"portfolio": doubled, "from": 0, "to": 60});
+    let (st, _, body) = s.post_json("/v1/distribution", &q).await;
+    assert_eq!(st, 200, "{body}");
+    assert_eq!((body["from"].as_u64(), body["to"].as_u64(), body["step"].as_u64()), (Some(3), Some(59), Some(4)));
+    let f = pmf();
+    for (i, v) in body["pmf"].as_array().unwrap().iter().enumerate() {
+        // Total 3 + 4 i is the enumeration's total 2 i.
+        let want = f.get(2 * i).map_or(0.0, |x| x.to_f64().unwrap());
+        assert!((v.as_f64().unwrap() - want).abs() <= 1e-13 * want, "row {i}: {v} vs {want}");
+    }
+    let res = s
+        .client
+        .post(format!("{}/v1/distribution", s.base))
+        .header("accept", "text/csv")
+        .json(&q)
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(res.status().as_u16(), 200);
+    let csv = res.text().await.unwrap();
+    assert!(csv.starts_with("# "), "the caution lines stay");
+    let rows: Vec<&str> = csv.lines().filter(|l| !l.starts_with('#')).collect();
+    assert!(rows[0].starts_with("total,pmf,"), "{}", rows[0]);
+    assert!(rows[1].starts_with("3,") && rows[2].starts_with("7,") && rows.last().unwrap().starts_with("59,"), "{csv}");
+    // Quantiles in units: a lattice point.
+    let (st, _, body) = s.post_json("/v1/quantiles", &json!({"portfolio": doubled, "levels": [0.5, 0.99]})).await;
+    assert_eq!(st, 200, "{body}");
+    for q in body["quantiles"].as_array().unwrap() {
+        assert_eq!(q["count"].as_u64().unwrap() % 2, 1, "{q}");
+    }
+    // The chart: its axis says units.
+    let res = s
+        .client
+        .post(format!("{}/v1/chart", s.base))
+        .json(&json!({"portfolio": doubled, "threshold": 30}))
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(res.status().as_u16(), 200);
+    let svg = res.text().await.unwrap();
+    assert!(svg.contains("total loss k, in units") && svg.contains("lattice points 4 units apart"), "{svg}");
+    // A range with no lattice point, at the field.
+    let (st, ct, body) = s.post_json("/v1/distribution", &json!({"portfolio": doubled, "from": 4, "to": 4})).await;
+    assert_problem(st, &ct, &body, 422, Some("/to"));
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn a_layers_batch_line_and_eval_answer_in_units_as_the_route() {
+    let s = start(&[]).await;
+    let layers = json!({"portfolio": {"probabilities": P, "units": U}, "layers": [{"attachment": 13, "limit": 40}]});
+    let input = format!("{}\n", json!({"id": "l", "layers": layers}));
+    let res = s
+        .client
+        .post(format!("{}/v1/batch", s.base))
+        .header("content-type", "application/x-ndjson")
+        .body(input.clone())
+        .send()
+        .await
+        .unwrap();
+    let text = res.text().await.unwrap();
+    let line: serde_json::Value = serde_json::from_str(text.lines().next().unwrap()).unwrap();
+    let (_, _, want) = s.post_json("/v1/layers", &layers).await;
+    assert_eq!(line["layers"]["layers"], want["layers"], "{text}");
+    let truth = layer(13, Some(40));
+    assert!((want["layers"][0]["expected_count"].as_f64().unwrap() - truth).abs() <= 1e-13 * truth);
+    // `eval` on standard input: the same line.
+    use std::io::Write;
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_tailtally"))
+        .args(["eval", "-"])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    child.stdin.take().unwrap().write_all(input.as_bytes()).unwrap();
+    let out = child.wait_with_output().unwrap();
+    assert!(out.status.success());
+    let cli: serde_json::Value =
+        serde_json::from_str(String::from_utf8(out.stdout).unwrap().lines().next().unwrap()).unwrap();
+    assert_eq!(cli["layers"]["layers"], want["layers"]);
+    s.shutdown().await.unwrap();
+}
+
+#[tokio::test]
+async fn a_distribution_over_a_wide_lattice_is_413_before_allocating() {
+    let s = start(&["--max-work", "100000"]).await;
+    // 100 exposures of about a million units each with no common factor: a lattice 10^8 points wide.
+    let units: Vec<u64> = (0..100).map(|i| 1_000_000 + i).collect();
+    let portfolio = json!({"probabilities": vec![0.01; 100], "units": units});
+    for q in [json!({"portfolio": portfolio}), json!({"portfolio": portfolio, "from": 0, "to": 1000})] {
+        let (st, ct, body) = s.post_json("/v1/distribution", &q).await;
+        assert_problem(st, &ct, &body, 413, None);
+    }
+    let (st, ct, body) = s.post_json("/v1/quantiles", &json!({"portfolio": portfolio, "levels": [0.5]})).await;
+    assert_problem(st, &ct, &body, 413, None);
+    let (st, ct, body) =
+        s.post_json("/v1/layers", &json!({"portfolio": portfolio, "layers": [{"attachment": 5}]})).await;
+    assert_problem(st, &ct, &body, 413, None);
+    let (st, ct, body) = s.post_json("/v1/chart", &json!({"portfolio": portfolio, "threshold": 5})).await;
+    assert_problem(st, &ct, &body, 413, None);
     s.shutdown().await.unwrap();
 }
