@@ -375,7 +375,13 @@ pub fn layer_expectation(model: &Model, moments: &Moments, a: u64, limit: Option
         let law = tilted(model, t);
         // The tilt the law was built at (on a lattice t is rounded so that t u is exact).
         let t = law.t;
-        let sup = weight_sup(t, (model.units_of(x) - a) as f64, h as f64).min(l);
+        let mut sup = weight_sup(t, (model.units_of(x) - a) as f64, h as f64).min(l);
+        if let (true, Some(m)) = (model.weighted(), model.support_max()) {
+            // Every weight is also at most the largest excess s(max) - a (e^(-t d) <= 1), which binds for a
+            // tilt near 0 where the bound above grows like 1 / t. (It would tighten a count's bound too; kept
+            // to units so that answers about counts stay as they were.)
+            sup = sup.min((model.units_of(m) - a) as f64);
+        }
         let rho = (-t).exp();
         let w = &law.window;
         let (sum, dsum, terms) = walk(w, x, Dir::Up, rho, |j| ((model.units_of(j) - a) as f64).min(l));
@@ -430,10 +436,14 @@ fn lower_deficit(model: &Model, moments: &Moments, a: u64) -> Value {
     let rho = t.exp();
     // Weights (a - s(j)) e^(t (x - j)) for j <= x, t <= 0: with c = a - s(x), (c + h d) e^(-|t| d), bounded
     // as above, or the largest deficit a - s(support_min) when t = 0.
-    let sup = if t < 0.0 {
+    let largest = (a - model.units_of(model.support_min())) as f64;
+    let sup = if t < 0.0 && model.weighted() {
+        // As above: every weight is at most the largest deficit, which binds for a tilt near 0.
+        weight_sup(-t, (a - model.units_of(x)) as f64, h as f64).min(largest)
+    } else if t < 0.0 {
         weight_sup(-t, (a - model.units_of(x)) as f64, h as f64)
     } else {
-        (a - model.units_of(model.support_min())) as f64
+        largest
     };
     let (sum, dsum, terms) = walk(w, x, Dir::Down, rho, |j| (a - model.units_of(j)) as f64);
     finish_capped(&law, x, sum, dsum, terms, compose_rel(w.rel), w.abs * sup, f64::INFINITY)
