@@ -369,3 +369,71 @@ fn the_chart_in_units_stands_on_the_lattice() {
         other => panic!("expected a 422 at /methods/0, got {:?}", other.map(|_| ())),
     }
 }
+
+/// Wider books (lattices of thousands of points, so the exact engine truncates and may use the FFT, whose
+/// absolute errors enter the layer through the weight bound) against the naive recursion over the whole
+/// lattice in f64, f_j <- f_j (1 - p) + f_(j - u) p: all its terms are non-negative, so each entry, and each
+/// non-negatively weighted sum of entries, is accurate to about 2 n ulps relative (Higham 2002, section 3.1).
+/// Every layer's rigorous bound must cover the difference, from the bulk to the far tail.
+#[test]
+fn layers_on_wide_lattices_keep_their_rigorous_bounds() {
+    let mut rng = ChaCha8Rng::seed_from_u64(4242);
+    let mut checked = 0;
+    for case in 0..6 {
+        let n = rng.gen_range(100..=300);
+        let factor = [1u64, 3][case % 2];
+        let (mut ps, mut us) = (vec![], vec![]);
+        for _ in 0..n {
+            ps.push(rng.gen_range(0.001..0.3f64));
+            us.push(factor * rng.gen_range(1..=60));
+        }
+        let width: u64 = us.iter().sum();
+        let mut pmf = vec![0.0f64; width as usize + 1];
+        pmf[0] = 1.0;
+        let mut filled = 0usize;
+        for (&p, &u) in ps.iter().zip(&us) {
+            let u = u as usize;
+            filled += u;
+            for j in (u..=filled).rev() {
+                pmf[j] = pmf[j] * (1.0 - p) + pmf[j - u] * p;
+            }
+            for x in &mut pmf[..u] {
+                *x *= 1.0 - p;
+            }
+        }
+        let ulps = 4.0 * n as f64 * f64::EPSILON;
+        let mean: f64 = ps.iter().zip(&us).map(|(&p, &u)| p * u as f64).sum();
+        let sd: f64 = ps.iter().zip(&us).map(|(&p, &u)| p * (1.0 - p) * (u * u) as f64).sum::<f64>().sqrt();
+        let mut layers = Vec::new();
+        for z in [-2.0, 0.0, 1.5, 4.0, 9.0] {
+            let a = (mean + z * sd).max(0.0).round() as u64;
+            for l in [None, Some(factor), Some((sd as u64).max(1))] {
+                layers.push(json!({"attachment": a, "limit": l}));
+            }
+        }
+        let out = ask::<Layers>(json!({"portfolio": {"probabilities": ps, "units": us}, "layers": layers}))
+            .unwrap_or_else(|e| panic!("case {case}: {e:?}"));
+        let out = serde_json::to_value(out).unwrap();
+        for r in out["layers"].as_array().unwrap() {
+            let (a, l) = (r["attachment"].as_u64().unwrap() as usize, r["limit"].as_u64());
+            let truth: f64 = pmf
+                .iter()
+                .enumerate()
+                .skip(a + 1)
+                .map(|(s, &p)| p * l.map_or((s - a) as f64, |l| ((s - a) as u64).min(l) as f64))
+                .sum();
+            if truth < 1e-280 {
+                continue;
+            }
+            let e = &r["detail"]["expected_count"];
+            let (got, bound) = (f(&e["value"]), f(&e["error_bound"]));
+            assert!(
+                (got - truth).abs() <= bound + 2.0 * ulps * truth,
+                "case {case} a={a} l={l:?}: |{got} - {truth}| over the bound {bound:e}"
+            );
+            assert!(bound <= 1e-9 * truth, "case {case} a={a} l={l:?}: bound {bound:e} for {truth:e}");
+            checked += 1;
+        }
+    }
+    assert!(checked >= 80, "checked {checked}");
+}
