@@ -255,7 +255,11 @@ fn approximations_in_units_match_the_mpmath_formulas_and_cover_exact_rationals()
             let e = engine::run(id, &prep, &[q], None).remove(0);
             let want = f(&row[name]);
             // Edgeworth's upper tail is 1 - cdf, so absolutely accurate only (1e-15).
-            assert!((e.probability - want).abs() <= 1e-9 * want + 1e-15, "k={k} {name}: {} vs mpmath {want}", e.probability);
+            assert!(
+                (e.probability - want).abs() <= 1e-9 * want + 1e-15,
+                "k={k} {name}: {} vs mpmath {want}",
+                e.probability
+            );
             let err = (e.probability - exact).abs();
             assert!(err <= e.error_bound, "k={k} {name}: off exact by {err:e}, bound {:e}", e.error_bound);
         }
