@@ -102,19 +102,30 @@ struct Tally {
     covered: usize,
     ratios: Vec<f64>,
     misses: Vec<String>,
+    /// Largest error / bound among the misses.
+    worst_miss: f64,
+    /// Per side (upper, lower, point): estimates, covered, bound / error ratios.
+    sides: [(usize, usize, Vec<f64>); 3],
 }
 
 impl Tally {
-    fn add(&mut self, e: &Estimate, x: &Estimate, what: impl FnOnce() -> String) {
+    fn add(&mut self, e: &Estimate, x: &Estimate, side: Side, what: impl FnOnce() -> String) {
         let err = (e.probability - x.probability).abs();
+        let by_side = &mut self.sides[side as usize];
         self.n += 1;
+        by_side.0 += 1;
         if err <= e.error_bound + x.error_bound + 1e-15 {
             self.covered += 1;
-        } else if self.misses.len() < 20 {
-            self.misses.push(format!("{} err {err:e} bound {:e} exact {:e}", what(), e.error_bound, x.probability));
+            by_side.1 += 1;
+        } else {
+            self.worst_miss = self.worst_miss.max(err / e.error_bound);
+            if self.misses.len() < 40 {
+                self.misses.push(format!("{} err {err:e} bound {:e} exact {:e}", what(), e.error_bound, x.probability));
+            }
         }
         if err > 1e-15 {
             self.ratios.push(e.error_bound / err);
+            by_side.2.push(e.error_bound / err);
         }
     }
 
@@ -191,20 +202,28 @@ fn bounds_cover_the_error_on_random_books_in_units() {
                     MethodId::Normal => assert_eq!(e.bound_kind, BoundKind::Rigorous),
                     _ => assert_eq!(e.bound_kind, BoundKind::Estimated),
                 }
-                tally.add(e, x, what);
+                tally.add(e, x, side, what);
             }
         }
     }
     for (id, t) in methods.iter().zip(tallies.iter_mut()) {
         let median = t.median_ratio();
         eprintln!(
-            "{id:?}: {} of {} covered ({:.3}%), median bound/error {median:.3e}",
+            "{id:?}: {} of {} covered ({:.3}%), median bound/error {median:.3e}, worst miss error/bound {:.2}",
             t.covered,
             t.n,
-            100.0 * t.rate()
+            100.0 * t.rate(),
+            t.worst_miss
         );
-        for m in &t.misses {
-            eprintln!("  MISS {m}");
+        for (name, (n, c, r)) in ["upper", "lower", "point"].iter().zip(t.sides.iter_mut()) {
+            r.sort_by(f64::total_cmp);
+            let med = r.get(r.len() / 2).copied().unwrap_or(f64::NAN);
+            eprintln!("  {name}: {c} of {n} covered, median bound/error {med:.3e}");
+        }
+        if std::env::var("UNITS_DEBUG").is_ok() {
+            for m in &t.misses {
+                eprintln!("  MISS {m}");
+            }
         }
     }
     eprintln!("exact against the naive recursion: {exact_checked} values");
@@ -228,9 +247,11 @@ fn approximations_in_units_match_the_mpmath_formulas_and_cover_exact_rationals()
     let r: serde_json::Value =
         serde_json::from_str(include_str!("../fixtures/reference/units_methods.json")).expect("reference");
     let f = |v: &serde_json::Value| v.as_f64().unwrap();
-    let mut spec = PortfolioSpec::default();
-    spec.probabilities = r["probabilities"].as_array().unwrap().iter().map(f).collect();
-    spec.units = r["units"].as_array().unwrap().iter().map(|u| u.as_u64().unwrap()).collect();
+    let mut spec = PortfolioSpec {
+        probabilities: r["probabilities"].as_array().unwrap().iter().map(f).collect(),
+        units: r["units"].as_array().unwrap().iter().map(|u| u.as_u64().unwrap()).collect(),
+        ..PortfolioSpec::default()
+    };
     let g = &r["group"];
     spec.groups.push(GroupSpec {
         size: g["size"].as_u64().unwrap(),

@@ -13,8 +13,9 @@
 //! The bound is `estimated`: the size of the next-order term of the expansion (Daniels 1987). Alongside,
 //! the rigorous Chernoff bound P(S >= k) <= exp(K(s) - s k) (any s >= 0; likewise below) is returned.
 //!
-//! Losses in units (`Model::weighted`): the same formulas in lattice steps, K(t) = sum ln(1 - p_i + p_i e^(t u_i))
-//! + groups m_g ln(1 - p_g + p_g e^(t u_g)) + lambda (e^t - 1) (`cgf`), and the same (first) continuity
+//! Losses in units (`Model::weighted`): the same formulas in lattice steps, with K(t) the sum of
+//! ln(1 - p_i + p_i e^(t u_i)), of m_g ln(1 - p_g + p_g e^(t u_g)) over groups and of lambda (e^t - 1) (`cgf`),
+//! and the same (first) continuity
 //! correction for the lattice of span 1 in steps, kept for the reason above and so that one formula serves
 //! both. A total of a few large units is lumpy: its law has gaps and steps on scales far above one lattice
 //! step, which no smooth expansion sees, and the next-order term then misses the error (it covered 65% of the
