@@ -3,7 +3,9 @@
 //! methods that do not yet take units (422 at the field), a lattice over the work budget (413 that says how
 //! much coarser a unit would fit); the other questions in units over HTTP (layers' stop-loss premiums, the
 //! distribution as JSON and CSV, quantiles, the chart's SVG), a batch line and `eval`, and a distribution over
-//! a lattice too wide for the work budget (413 before anything is allocated).
+//! a lattice too wide for the work budget (413 before anything is allocated);
+//! every method of the tail on a lumpy book against fixtures/reference/make_units_methods.py (mpmath
+//! formulas, exact rationals).
 
 mod common;
 use common::{assert_problem, start};
@@ -75,7 +77,7 @@ async fn the_tail_in_units_matches_enumeration_and_bad_requests_get_problems() {
     assert_problem(st, &ct, &body, 422, Some("/portfolio/units"));
 
     // What does not take units yet says so at the field.
-    let q = json!({"portfolio": portfolio, "thresholds": [5], "methods": ["exact", "saddlepoint"]});
+    let q = json!({"portfolio": portfolio, "thresholds": [5], "methods": ["exact", "poisson"]});
     let (st, ct, body) = s.post_json("/v1/tail", &q).await;
     assert_problem(st, &ct, &body, 422, Some("/methods/1"));
     let (st, ct, body) = s.post_json("/v1/contributions", &json!({"portfolio": portfolio, "threshold": 5})).await;
@@ -325,5 +327,92 @@ async fn a_distribution_over_a_wide_lattice_is_413_before_allocating() {
     assert_problem(st, &ct, &body, 413, None);
     let (st, ct, body) = s.post_json("/v1/chart", &json!({"portfolio": portfolio, "threshold": 5})).await;
     assert_problem(st, &ct, &body, 413, None);
+    s.shutdown().await.unwrap();
+}
+
+/// The lumpy book of fixtures/reference/make_units_methods.py (mpmath at 50 digits; the exact tails in exact
+/// rationals) as a request, and the reference rows.
+fn reference_book() -> (serde_json::Value, Vec<serde_json::Value>) {
+    let r: serde_json::Value =
+        serde_json::from_str(include_str!("../fixtures/reference/units_methods.json")).expect("reference");
+    let portfolio = json!({"probabilities": r["probabilities"], "units": r["units"], "groups": [r["group"]]});
+    (portfolio, r["rows"].as_array().unwrap().clone())
+}
+
+/// One method on the reference book over HTTP: for every threshold, (its estimate, its reference row).
+async fn tail_in_units(method: &str) -> Vec<(serde_json::Value, serde_json::Value)> {
+    let s = start(&[]).await;
+    let (portfolio, rows) = reference_book();
+    let ks: Vec<u64> = rows.iter().map(|r| r["threshold"].as_u64().unwrap()).collect();
+    let (st, _, body) =
+        s.post_json("/v1/tail", &json!({"portfolio": portfolio, "thresholds": ks, "methods": [method]})).await;
+    assert_eq!(st, 200, "{body}");
+    s.shutdown().await.unwrap();
+    body["results"].as_array().unwrap().iter().map(|r| r["estimates"][0].clone()).zip(rows).collect()
+}
+
+/// The estimate is the reference formula's value (to `rel`, plus 1e-15 absolutely) and its bound, of the kind
+/// given, covers the distance to the exact tail.
+fn check_against_reference(method: &str, got: &[(serde_json::Value, serde_json::Value)], rel: f64, kind: &str) {
+    for (e, row) in got {
+        let (p, bound) = (e["probability"].as_f64().unwrap(), e["error_bound"].as_f64().unwrap());
+        assert_eq!(e["method"], method);
+        assert_eq!(e["bound_kind"], kind, "{e}");
+        let want = row[method].as_f64().unwrap();
+        assert!((p - want).abs() <= rel * want + 1e-15, "{method} at {}: {p} vs {want}", row["threshold"]);
+        let miss = (p - row["exact"].as_f64().unwrap()).abs();
+        assert!(miss <= bound, "{method} at {}: off the exact tail by {miss:e}, bound {bound:e}", row["threshold"]);
+    }
+}
+
+#[tokio::test]
+async fn exact_in_units_matches_exact_rationals() {
+    let got = tail_in_units("exact").await;
+    check_against_reference("exact", &got, 1e-13, "rigorous");
+}
+
+#[tokio::test]
+async fn normal_in_units_is_the_continuity_corrected_normal_law() {
+    let got = tail_in_units("normal").await;
+    check_against_reference("normal", &got, 1e-12, "rigorous");
+}
+
+#[tokio::test]
+async fn edgeworth_in_units_is_the_one_term_expansion() {
+    let got = tail_in_units("edgeworth").await;
+    check_against_reference("edgeworth", &got, 1e-9, "estimated");
+}
+
+#[tokio::test]
+async fn saddlepoint_in_units_is_lugannani_rice_with_daniels_correction() {
+    let got = tail_in_units("saddlepoint").await;
+    check_against_reference("saddlepoint", &got, 1e-9, "estimated");
+    // The Chernoff bound comes along and lies above the exact tail.
+    for (e, row) in &got {
+        assert!(e["chernoff_ln_bound"].as_f64().unwrap() >= row["exact"].as_f64().unwrap().ln(), "{e}");
+    }
+}
+
+#[tokio::test]
+async fn auto_in_units_meets_its_tolerance_with_normal_or_exact() {
+    let got = tail_in_units("auto").await;
+    for (e, row) in &got {
+        let exact = row["exact"].as_f64().unwrap();
+        // The default tolerance: 1e-3 relative.
+        assert!((e["probability"].as_f64().unwrap() - exact).abs() <= 1e-3 * exact, "{e}");
+        let checked: Vec<&str> =
+            e["selection"]["checked"].as_array().unwrap().iter().map(|c| c["method"].as_str().unwrap()).collect();
+        assert_eq!(checked, ["normal", "exact"], "{e}");
+    }
+}
+
+#[tokio::test]
+async fn poisson_in_units_is_refused_at_its_method() {
+    let s = start(&[]).await;
+    let (portfolio, _) = reference_book();
+    let q = json!({"portfolio": portfolio, "thresholds": [40], "methods": ["saddlepoint", "poisson"]});
+    let (st, ct, body) = s.post_json("/v1/tail", &q).await;
+    assert_problem(st, &ct, &body, 422, Some("/methods/1"));
+    assert!(body.to_string().contains("poisson does not yet take loss units"), "{body}");
     s.shutdown().await.unwrap();
 }

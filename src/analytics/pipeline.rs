@@ -42,7 +42,7 @@ pub trait Analytic {
     fn check_units(_req: &Self::Request) -> Result<(), Vec<Violation>> {
         Err(vec![Violation::new(
             "",
-            "this question does not yet take loss units (it answers about the count of events); /v1/tail with methods exact and normal does",
+            "this question does not yet take loss units (it answers about the count of events); /v1/tail does, with every method but poisson",
         )])
     }
 

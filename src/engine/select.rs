@@ -3,6 +3,9 @@
 //! Candidates in order of cost: normal (O(1) after the moments), Poisson (O(sqrt(mean))), exact. Estimated bounds
 //! (Edgeworth, saddlepoint) are never used to certify a tolerance. A relative tolerance r is met when
 //! bound <= r * (probability - bound), i.e. relative to the smallest value the truth can take.
+//!
+//! Losses in units: the Poisson law of the count is not a law of a total in units (its compound form is
+//! another method), so the candidates there are normal (Berry-Esseen with the weighted third moments) and exact.
 
 use super::exact::Exact;
 use super::normal::Normal;
@@ -18,12 +21,12 @@ fn check(e: &Estimate, tol: &Tolerance) -> Check {
 
 pub fn auto(prep: &Prepared, queries: &[(u64, Side)], tol: Tolerance) -> Vec<Estimate> {
     let normal = Normal.estimate(prep, queries);
-    let poisson = PoissonApprox.estimate(prep, queries);
+    let poisson = if prep.model.weighted() { Vec::new() } else { PoissonApprox.estimate(prep, queries) };
     let mut out: Vec<Option<Estimate>> = vec![None; queries.len()];
     let mut checks: Vec<Vec<Check>> = vec![Vec::new(); queries.len()];
     let mut need_exact = Vec::new();
     for i in 0..queries.len() {
-        for cand in [&normal[i], &poisson[i]] {
+        for cand in std::iter::once(&normal[i]).chain(poisson.get(i)) {
             checks[i].push(check(cand, &tol));
             if tol.met_by(cand) {
                 out[i] = Some(cand.clone());
