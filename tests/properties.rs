@@ -177,6 +177,50 @@ proptest! {
         }
     }
 
+    /// Compound sources and loss units with hostile values (rates, sizes, severity probabilities and lengths at
+    /// the edges): an answer or a 413/422, never a panic, for every method and question; and where the tail
+    /// is answered, every rigorous bound's interval holds the exact value's.
+    #[test]
+    fn compound_sources_get_an_answer_or_a_problem(p in portfolio(), sources in prop::collection::vec(
+            (number(), prop::collection::vec(count(), 0..4), prop::collection::vec(number(), 0..4), any::<bool>(),
+             count(), count(), count(), number()), 1..3),
+            units in prop::collection::vec(count(), 0..4), ks in prop::collection::vec(count(), 1..4),
+            side in prop_oneof![Just("upper"), Just("lower"), Just("point")]) {
+        let l = limits();
+        let mut p = p;
+        p["units"] = json!(units);
+        p["compound_sources"] = sources.iter().map(|(rate, sizes, probs, listed, first, step, largest, ratio)| {
+            let severity = if *listed {
+                json!({"kind": "listed", "sizes": sizes, "probabilities": probs})
+            } else {
+                json!({"kind": "geometric", "first": first, "step": step, "largest": largest, "ratio": ratio})
+            };
+            json!({"rate": rate, "severity": severity})
+        }).collect();
+        let t = json!({"portfolio": p, "thresholds": ks, "side": side,
+            "methods": ["exact", "normal", "poisson", "saddlepoint", "auto"]});
+        if let Ok(req) = serde_json::from_value::<tail::TailRequest>(t.clone()) {
+            check(compute::<tail::Tail>(&req, &l));
+        }
+        let mut t = t;
+        t["methods"] = json!(["exact", "normal", "poisson"]);
+        if let Ok(req) = serde_json::from_value::<tail::TailRequest>(t) {
+            if let Ok(answer) = compute::<tail::Tail>(&req, &l) {
+                for r in &answer.results {
+                    let x = &r.estimates[0];
+                    for e in &r.estimates[1..] {
+                        let gap = (e.probability - x.probability).abs();
+                        prop_assert!(gap <= e.error_bound + x.error_bound + 1e-15, "{:?} k={}: {gap:e}", e.method, r.threshold);
+                    }
+                }
+            }
+        }
+        let q = json!({"portfolio": p, "levels": [0.5]});
+        if let Ok(req) = serde_json::from_value::<quantiles::QuantilesRequest>(q) {
+            check(compute::<quantiles::Quantiles>(&req, &l));
+        }
+    }
+
     /// P(S >= k) = P(S without i >= k) + p_i P(S without i = k - 1), and the quantile brackets its level.
     #[test]
     fn answers_satisfy_their_identities(ps in prop::collection::vec(1e-9f64..0.999, 1..60), k in 0u64..30,

@@ -17,66 +17,9 @@ use tailtally::engine::{numerics::moments::Moments, Side, Value};
 use tailtally::portfolio::spec::{GroupSpec, PortfolioSpec};
 use tailtally::portfolio::validate::{build_model, Limits};
 
-fn rat(x: f64) -> BigRational {
-    BigRational::from_float(x).expect("finite")
-}
-
-/// One exposure class of De Pril's recursion: `count` exposures of `units` each with probability p < 1.
-struct Class {
-    units: u64,
-    p: f64,
-    count: u64,
-}
-
-/// De Pril (1986): with h(i, k) = i (-1)^(k+1) sum_j n_ij (q_j / (1 - q_j))^k,
-///   P(S = 0) = prod (1 - q_j)^n_ij,  P(S = s) = (1/s) sum_(i=1..s) sum_(k=1..s/i) h(i, k) P(S = s - i k),
-/// over the classes of random exposures; `shift` certain units move the whole law.
-fn de_pril(classes: &[Class], shift: u64) -> Vec<BigRational> {
-    let top: u64 = classes.iter().map(|c| c.units * c.count).sum();
-    let n = top as usize;
-    let mut p0 = BigRational::one();
-    for c in classes {
-        let q = BigRational::one() - rat(c.p);
-        for _ in 0..c.count {
-            p0 *= &q;
-        }
-    }
-    // h(i, k) for every unit size i and k <= top / i.
-    let max_i = classes.iter().map(|c| c.units).max().unwrap_or(1) as usize;
-    let mut h = vec![Vec::new(); max_i + 1];
-    for (i, hi) in h.iter_mut().enumerate().skip(1) {
-        *hi = vec![BigRational::zero(); n / i + 1];
-        for c in classes.iter().filter(|c| c.units as usize == i) {
-            let odds = rat(c.p) / (BigRational::one() - rat(c.p));
-            let mut pw = BigRational::one();
-            for (k, h) in hi.iter_mut().enumerate().skip(1) {
-                pw *= &odds;
-                let term = &pw * BigRational::from_integer((c.count as i64 * i as i64).into());
-                if k % 2 == 1 {
-                    *h += term;
-                } else {
-                    *h -= term;
-                }
-            }
-        }
-    }
-    let mut f = vec![BigRational::zero(); n + 1];
-    f[0] = p0;
-    for s in 1..=n {
-        let mut acc = BigRational::zero();
-        for (i, hi) in h.iter().enumerate().skip(1).take(s) {
-            for k in 1..=(s / i) {
-                if !hi[k].is_zero() {
-                    acc += &hi[k] * &f[s - i * k];
-                }
-            }
-        }
-        f[s] = acc / BigRational::from_integer((s as i64).into());
-    }
-    let mut out = vec![BigRational::zero(); shift as usize];
-    out.extend(f);
-    out
-}
+#[path = "common/de_pril.rs"]
+mod de_pril;
+use de_pril::{de_pril, rat, Class};
 
 /// Every outcome of a tiny book of (units, p), enumerated.
 fn brute_force(book: &[(u64, f64)]) -> Vec<BigRational> {

@@ -140,7 +140,7 @@ impl Analytic for Tail {
             .methods
             .iter()
             .enumerate()
-            .filter(|(_, &m)| !matches!(m, MethodId::Exact | MethodId::Normal))
+            .filter(|(_, &m)| !matches!(m, MethodId::Exact | MethodId::Normal | MethodId::Poisson))
             .map(|(i, m)| {
                 Violation::new(
                     format!("/methods/{i}"),
