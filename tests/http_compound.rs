@@ -143,3 +143,19 @@ async fn what_does_not_take_compound_sources_says_so_and_large_ones_are_refused(
     assert_problem(st, &ct, &body, 422, Some("/stress/probability_factor"));
     s.shutdown().await.unwrap();
 }
+
+#[tokio::test]
+async fn the_approximations_wider_model_is_counted_in_the_memory_ceiling() {
+    let s = start(&["--max-request-memory", "50000000"]).await;
+    // Forty exposures of distinct units near a thousand: the book's lattice is 41,000 steps, but each
+    // exposure's Poisson part in the approximation spans about fifty events of a thousand steps.
+    let units: Vec<u64> = (0..40).map(|i| 1000 + i).collect();
+    let portfolio = json!({"probabilities": vec![0.01; 40], "units": units});
+    let q = json!({"portfolio": portfolio, "thresholds": [2000], "methods": ["exact"]});
+    let (st, _, body) = s.post_json("/v1/tail", &q).await;
+    assert_eq!(st, 200, "{body}");
+    let q = json!({"portfolio": portfolio, "thresholds": [2000], "methods": ["exact", "poisson"]});
+    let (st, ct, body) = s.post_json("/v1/tail", &q).await;
+    assert_problem(st, &ct, &body, 413, None);
+    s.shutdown().await.unwrap();
+}

@@ -173,7 +173,13 @@ impl Analytic for Tail {
         let top = req.thresholds.iter().copied().max().unwrap_or(0);
         // One estimate is about 600 bytes as a structure and as JSON.
         let answer = 600.0 * req.thresholds.len() as f64 * req.methods.len() as f64;
-        Footprint { windows: 8.0 * cost::exact_window_doubles(model, top), working: 0.0, answer }
+        let mut windows = cost::exact_window_doubles(model, top);
+        if model.weighted() && req.methods.contains(&MethodId::Poisson) {
+            // The compound Poisson approximation computes on its own model, whose Poisson parts are wider.
+            let approx = crate::engine::poisson::PoissonApprox::compound_model(model);
+            windows = windows.max(cost::exact_window_doubles(&approx, top));
+        }
+        Footprint { windows: 8.0 * windows, working: 0.0, answer }
     }
 
     fn answer(req: &TailRequest, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<TailResponse, Error> {
