@@ -325,9 +325,15 @@ fn scaled_poisson_phi(model: &Model, t: f64, phi: &mut Sum) -> f64 {
     let mut abs = 0.0;
     for &(s, lam) in &model.scaled_poisson {
         let ts = t * s as f64;
-        let v = if ts < 700.0 { lam * ts.exp_m1() } else { tilted_rate(lam, ts) - lam };
+        let (v, weight) = if ts < 700.0 {
+            (lam * ts.exp_m1(), 1.0)
+        } else {
+            // exp(ln lambda + t s): the rounding of the exponent, about U |ln lambda + t s| absolute, is a
+            // relative error of the value that size; the weight scales this term's share of the 8 U bound.
+            (tilted_rate(lam, ts) - lam, 1.0 + lam.ln().abs() + ts)
+        };
         phi.add(v);
-        abs += v.abs();
+        abs += v.abs() * weight;
     }
     abs
 }
