@@ -77,7 +77,8 @@ async fn the_tail_in_units_matches_enumeration_and_bad_requests_get_problems() {
     assert_problem(st, &ct, &body, 422, Some("/portfolio/units"));
 
     // What does not take units yet says so at the field.
-    let q = json!({"portfolio": portfolio, "thresholds": [5], "methods": ["exact", "poisson"]});
+    let source = json!({"rate": 2.0, "severity": {"kind": "listed", "sizes": [3, 5], "probabilities": [0.5, 0.5]}});
+    let q = json!({"portfolio": {"compound_sources": [source]}, "thresholds": [5], "methods": ["exact", "saddlepoint"]});
     let (st, ct, body) = s.post_json("/v1/tail", &q).await;
     assert_problem(st, &ct, &body, 422, Some("/methods/1"));
     let (st, ct, body) = s.post_json("/v1/contributions", &json!({"portfolio": portfolio, "threshold": 5})).await;
@@ -407,12 +408,14 @@ async fn auto_in_units_meets_its_tolerance_with_normal_or_exact() {
 }
 
 #[tokio::test]
-async fn poisson_in_units_is_refused_at_its_method() {
+async fn edgeworth_with_compound_sources_is_refused_at_its_method() {
     let s = start(&[]).await;
-    let (portfolio, _) = reference_book();
-    let q = json!({"portfolio": portfolio, "thresholds": [40], "methods": ["saddlepoint", "poisson"]});
+    let (mut portfolio, _) = reference_book();
+    portfolio["compound_sources"] =
+        json!([{"rate": 0.5, "severity": {"kind": "listed", "sizes": [2, 4], "probabilities": [0.75, 0.25]}}]);
+    let q = json!({"portfolio": portfolio, "thresholds": [40], "methods": ["poisson", "edgeworth"]});
     let (st, ct, body) = s.post_json("/v1/tail", &q).await;
     assert_problem(st, &ct, &body, 422, Some("/methods/1"));
-    assert!(body.to_string().contains("poisson does not yet take loss units"), "{body}");
+    assert!(body.to_string().contains("does not yet take compound sources"), "{body}");
     s.shutdown().await.unwrap();
 }

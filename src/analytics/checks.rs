@@ -49,7 +49,7 @@ pub fn unbounded_counts(
     counts: impl IntoIterator<Item = (String, u64)>,
     what: &str,
 ) -> Result<(), Error> {
-    if model.poisson <= 0.0 {
+    if model.support_max().is_some() {
         return Ok(());
     }
     let bad: Vec<Violation> = counts

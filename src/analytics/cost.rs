@@ -46,6 +46,7 @@ pub fn exact_window_doubles(model: &Model, top: u64) -> f64 {
         // count windows spread over their step, products no wider in all than the leaves.
         let blocks = (model.bernoulli.len() as f64 / BLOCK as f64).ceil();
         let mut d = blocks + super::scenario::lattice_work(model);
+        d += super::scenario::compound_width(model, top / model.span());
         if model.poisson > 0.0 {
             let mu = model.poisson.max(top.min(super::scenario::MAX_UNBOUNDED_COUNT) as f64);
             d += 2.0 * Window::bernstein_radius_step(mu, 1.0) + 4.0;
@@ -117,7 +118,8 @@ pub fn inline_work<A: Analytic>(req: &A::Request) -> Option<f64> {
         exposures += g.size as f64;
     }
     let rate: f64 = spec.poisson_rates.iter().sum();
-    if !(0.0..=1_000.0).contains(&rate) {
+    // Compound sources' windows grow with their sizes: never inline.
+    if !(0.0..=1_000.0).contains(&rate) || !spec.compound_sources.is_empty() {
         return None;
     }
     exposures += rate;

@@ -140,7 +140,23 @@ pub fn lattice_work(model: &Model) -> f64 {
             (m + 1.0).min(2.0 * crate::engine::exact::window::Window::bernstein_radius_step(m / 4.0, 1.0) + 4.0) * u
         })
         .sum();
-    bern + groups
+    bern + groups + compound_width(model, 0)
+}
+
+/// Lattice steps the windows of the compound sources' scaled parts span when the question reaches `top`
+/// steps: a part of s steps tilted towards top carries at most about top / s events (its tilted mean is at most
+/// the total's), or its rate when that is more, and its window is its Bernstein range in events spread over s
+/// steps each. 0 without compound sources.
+pub fn compound_width(model: &Model, top: u64) -> f64 {
+    model
+        .scaled_poisson
+        .iter()
+        .map(|&(s, lam)| {
+            let s = s as f64;
+            let mu = lam.max(top as f64 / s);
+            (2.0 * crate::engine::exact::window::Window::bernstein_radius_step(mu, 1.0) + 4.0) * s
+        })
+        .sum()
 }
 
 /// Pointer to the first field that gives loss units (where a question that does not take them says so).
@@ -153,6 +169,9 @@ pub fn units_pointer(spec: &PortfolioSpec) -> String {
     }
     if let Some(i) = spec.families.iter().position(|f| f.units().is_some()) {
         return format!("/portfolio/families/{i}/units");
+    }
+    if !spec.compound_sources.is_empty() {
+        return "/portfolio/compound_sources".into();
     }
     "/portfolio".into()
 }
@@ -194,7 +213,7 @@ pub fn model(
         }
     };
     if let Some(s) = stress {
-        let rate = m.poisson * s.factor();
+        let rate = (m.poisson + m.scaled_rate()) * s.factor();
         let max = limits.portfolio.max_poisson_rate;
         if !(rate.is_finite() && rate <= max) {
             let at = match s {

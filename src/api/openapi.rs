@@ -132,6 +132,7 @@ fn rules(doc: &mut Value) {
     }
     // Internally tagged enums: each variant a closed, named schema, and the tag their discriminator.
     tagged(schemas, "FamilySpec", "Family", "kind");
+    tagged(schemas, "SeveritySpec", "Severity", "kind");
     tagged(schemas, "Dependence", "Dependence", "model");
     merge(&mut schemas["FamilyLogistic"]["properties"]["scores"], &json!({"maxItems": LISTED}));
 }

@@ -15,7 +15,8 @@ pub struct Binomial {
     pub p: f64,
 }
 
-/// S = shift + sum of Bernoulli(p_i) + sum of Binomial(m_g, p_g) + Poisson(rate), all independent.
+/// S = shift + sum of Bernoulli(p_i) + sum of Binomial(m_g, p_g) + Poisson(rate) + sum of s Poisson(rate_s)
+/// (the compound Poisson sources, one scaled part per size), all independent.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Model {
     /// Number of exposures that are certain events (p = 1): the support starts here.
@@ -40,6 +41,11 @@ pub struct Model {
     pub span: u64,
     /// Units of the total below the first lattice point: S = offset + span * j.
     pub offset: u64,
+    /// Compound Poisson sources (the collective risk model) as scaled Poisson parts: a source of rate lambda
+    /// whose events have size s_j with probability q_j is the sum of independent Poisson(lambda q_j) counts of
+    /// s_j units each (a thinning of one Poisson process by the event's size). Held as (steps, rate), merged by
+    /// size, sorted by steps, every steps > 1 (a part of one step is added to `poisson`); empty without sources.
+    pub scaled_poisson: Vec<(u64, f64)>,
 }
 
 /// Greatest common divisor (Euclid).
@@ -133,7 +139,7 @@ impl Model {
     /// Largest value of S with positive probability (in lattice steps), or None when a Poisson part makes it
     /// unbounded.
     pub fn support_max(&self) -> Option<u64> {
-        if self.poisson > 0.0 {
+        if self.poisson > 0.0 || !self.scaled_poisson.is_empty() {
             None
         } else if self.weighted() {
             Some(self.shift + self.lattice_width())
@@ -144,7 +150,11 @@ impl Model {
 
     /// Whether any exposure adds more than one step, or the lattice is not the count itself.
     pub fn weighted(&self) -> bool {
-        !self.units.is_empty() || !self.group_units.is_empty() || self.span > 1 || self.offset > 0
+        !self.units.is_empty()
+            || !self.group_units.is_empty()
+            || self.span > 1
+            || self.offset > 0
+            || !self.scaled_poisson.is_empty()
     }
 
     /// Units per lattice step (1 unless units were given).
@@ -165,7 +175,33 @@ impl Model {
 
     /// Largest number of steps one exposure adds (1 for a count).
     pub fn max_step(&self) -> u64 {
-        self.units.iter().chain(&self.group_units).copied().max().unwrap_or(1)
+        let scaled = self.scaled_poisson.iter().map(|&(s, _)| s);
+        self.units.iter().chain(&self.group_units).copied().chain(scaled).max().unwrap_or(1)
+    }
+
+    /// Add a compound source's events of `size` units (steps, once the lattice is set) at `rate`.
+    pub fn push_scaled_poisson(&mut self, size: u64, rate: f64) {
+        if rate > 0.0 {
+            self.scaled_poisson.push((size, rate));
+        }
+    }
+
+    /// The total rate of the compound sources' events (all sizes).
+    pub fn scaled_rate(&self) -> f64 {
+        self.scaled_poisson.iter().map(|&(_, r)| r).sum()
+    }
+
+    /// Merge the scaled parts by size (rates added), sorted by size; parts of one step join `poisson`.
+    pub fn merge_scaled(&mut self) {
+        let mut parts = std::mem::take(&mut self.scaled_poisson);
+        parts.sort_by_key(|&(s, _)| s);
+        for (s, r) in parts {
+            match self.scaled_poisson.last_mut() {
+                _ if s == 1 => self.poisson += r,
+                Some(last) if last.0 == s => last.1 += r,
+                _ => self.scaled_poisson.push((s, r)),
+            }
+        }
     }
 
     /// [`Model::push_bernoulli`] for an exposure of `u` units (steps, once the lattice is set).
@@ -201,9 +237,12 @@ impl Model {
     /// when every random exposure adds one step.
     pub fn set_lattice(&mut self) {
         let h = self.units.iter().chain(&self.group_units).fold(0, |g, &u| gcd(g, u));
+        let h = self.scaled_poisson.iter().fold(h, |g, &(s, _)| gcd(g, s));
         // A Poisson part adds single units; with no random exposure at all any span will do.
         let h = if self.poisson > 0.0 { 1 } else { h.max(1) };
         self.units.iter_mut().chain(self.group_units.iter_mut()).for_each(|u| *u /= h);
+        self.scaled_poisson.iter_mut().for_each(|(s, _)| *s /= h);
+        self.merge_scaled();
         self.span = if h > 1 { h } else { 0 };
         self.offset = self.shift % h;
         self.shift /= h;
@@ -231,6 +270,6 @@ impl Model {
 
     /// True when S is a constant (all exposures certain or impossible).
     pub fn is_degenerate(&self) -> bool {
-        self.bernoulli.is_empty() && self.binomials.is_empty() && self.poisson <= 0.0
+        self.bernoulli.is_empty() && self.binomials.is_empty() && self.poisson <= 0.0 && self.scaled_poisson.is_empty()
     }
 }

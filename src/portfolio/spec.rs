@@ -37,8 +37,111 @@ pub struct PortfolioSpec {
     /// Generated probability sequences, appended to `probabilities` in order.
     #[serde(default)]
     pub families: Vec<FamilySpec>,
+    /// Compound Poisson sources (the collective risk model): each a rate of events per period and the law of
+    /// an event's size in whole loss units. A source adds the sum of its events' sizes to S. Their sizes enter
+    /// the lattice like exposures' units.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub compound_sources: Vec<CompoundSourceSpec>,
 }
 crate::portfolio::objects::objects_only!(PortfolioSpec);
+
+/// A compound Poisson source: a Poisson(`rate`) number of events over the period, each of an independent size
+/// drawn from `severity`.
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(remote = "Self", deny_unknown_fields)]
+pub struct CompoundSourceSpec {
+    /// Expected number of events per period (the same period as the probabilities), finite and >= 0.
+    #[schema(example = 2.5, minimum = 0.0)]
+    pub rate: f64,
+    pub severity: SeveritySpec,
+}
+crate::portfolio::objects::objects_only!(CompoundSourceSpec);
+
+/// Tolerance on the sum of a listed severity's probabilities: it must be within this of 1, and is then divided
+/// by its sum so that the law is a proper one.
+pub const SEVERITY_SUM_TOLERANCE: f64 = 1e-9;
+
+/// The law of one event's size, in whole loss units (each size in 1..=1e9).
+#[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum SeveritySpec {
+    /// Sizes with their probabilities (parallel lists; the probabilities sum to 1 within 1e-9, and are
+    /// divided by their sum).
+    Listed {
+        #[schema(example = json!([1, 5, 20]))]
+        sizes: Vec<u64>,
+        #[schema(example = json!([0.6, 0.3, 0.1]))]
+        probabilities: Vec<f64>,
+    },
+    /// Sizes first, first + step, ... up to `largest`, with probabilities in the ratio `ratio` from one size
+    /// to the next (a geometric law truncated at `largest`; the truncated mass is spread back by
+    /// renormalising over the sizes kept).
+    Geometric {
+        #[schema(example = 1, minimum = 1, maximum = 1000000000)]
+        first: u64,
+        #[schema(example = 1, minimum = 1, maximum = 1000000000)]
+        step: u64,
+        #[schema(example = 50, minimum = 1, maximum = 1000000000)]
+        largest: u64,
+        #[schema(example = 0.8, minimum = 0.0, maximum = 1.0)]
+        ratio: f64,
+    },
+}
+
+impl SeveritySpec {
+    /// Number of sizes the law lists or generates (computed without generating them).
+    pub fn len(&self) -> u64 {
+        match *self {
+            SeveritySpec::Listed { ref sizes, .. } => sizes.len() as u64,
+            SeveritySpec::Geometric { first, step, largest, .. } => {
+                if step == 0 || largest < first {
+                    0
+                } else {
+                    (largest - first) / step + 1
+                }
+            }
+        }
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Call `sink(size, probability)` for each size of a validated law, the probabilities summing to 1 (up to
+    /// rounding).
+    pub fn expand(&self, mut sink: impl FnMut(u64, f64)) {
+        match *self {
+            SeveritySpec::Listed { ref sizes, ref probabilities } => {
+                let total: f64 = probabilities.iter().sum();
+                for (&s, &q) in sizes.iter().zip(probabilities) {
+                    sink(s, q / total);
+                }
+            }
+            SeveritySpec::Geometric { first, step, ratio, .. } => {
+                let n = self.len();
+                // sum_(k < n) ratio^k = (1 - ratio^n) / (1 - ratio), in forms that keep ratio near 0 and 1 accurate.
+                let ln_r = ratio.ln();
+                let total = if ratio == 1.0 {
+                    n as f64
+                } else if ratio == 0.0 {
+                    1.0
+                } else {
+                    -(n as f64 * ln_r).exp_m1() / -ln_r.exp_m1()
+                };
+                for k in 0..n {
+                    let w = if k == 0 {
+                        1.0
+                    } else if ratio == 0.0 {
+                        0.0
+                    } else {
+                        (k as f64 * ln_r).exp()
+                    };
+                    sink(first + k * step, w / total);
+                }
+            }
+        }
+    }
+}
 
 /// `size` identical exposures, each with event probability `probability`.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]

@@ -52,6 +52,9 @@ pub fn stressed(model: &Model, s: &Stress) -> Model {
         // makes some exposures certain may leave a coarser one, which this one contains).
         m.span = model.span;
         m.offset = model.offset;
+        // Compound sources' rates scale like the Poisson rate.
+        m.scaled_poisson =
+            model.scaled_poisson.iter().map(|&(u, r)| (u, r * s.factor())).filter(|p| p.1 > 0.0).collect();
         let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1);
         for (i, &p) in model.bernoulli.iter().enumerate() {
             let n = m.bernoulli.len();

@@ -5,7 +5,7 @@
 
 use super::families::{expand, expected_len};
 use super::model::Model;
-use super::spec::{FamilySpec, PortfolioSpec};
+use super::spec::{FamilySpec, PortfolioSpec, SeveritySpec, SEVERITY_SUM_TOLERANCE};
 
 /// Size limits for one portfolio. All are configurable at start-up.
 #[derive(Debug, Clone, Copy)]
@@ -172,12 +172,32 @@ pub fn build_model_with(
             rate += r;
         }
     }
+    for (i, c) in spec.compound_sources.iter().enumerate() {
+        let at = format!("{base}/compound_sources/{i}");
+        if !(c.rate.is_finite() && c.rate >= 0.0) {
+            push(
+                &mut errs,
+                Violation::new(format!("{at}/rate"), format!("must be a finite rate >= 0, got {}", c.rate)),
+            );
+        } else {
+            rate += c.rate;
+        }
+        // Each size is a scaled Poisson part held in memory: the sizes count as listed exposures, checked
+        // (below) before any is generated.
+        listed = listed.saturating_add(c.severity.len());
+        for v in check_severity(&c.severity, &format!("{at}/severity")) {
+            push(&mut errs, v);
+        }
+    }
     if rate > limits.max_poisson_rate {
         push(
             &mut errs,
             Violation::new(
                 format!("{base}/poisson_rates"),
-                format!("total rate {rate} exceeds the limit {}", limits.max_poisson_rate),
+                format!(
+                    "total rate {rate} (Poisson and compound sources) exceeds the limit {}",
+                    limits.max_poisson_rate
+                ),
             ),
         );
     }
@@ -229,11 +249,12 @@ pub fn build_model_with(
     if !errs.is_empty() {
         return Err(errs);
     }
-    let mut model = Model { poisson: rate, ..Model::default() };
+    let direct: f64 = spec.poisson_rates.iter().sum();
+    let mut model = Model { poisson: direct, ..Model::default() };
     let explicit = !spec.loadings.is_empty()
         || spec.groups.iter().any(|g| g.loading.is_some())
         || spec.families.iter().any(|f| f.loading().is_some());
-    if has_units(spec) {
+    if has_units(spec) || !spec.compound_sources.is_empty() {
         // Loss units: every exposure pushed in units (with its loading, as below), then the lattice (span,
         // offset, steps) set once.
         let rho = default_loading.filter(|_| explicit);
@@ -265,6 +286,9 @@ pub fn build_model_with(
                     model.group_loadings.push(r);
                 }
             }
+        }
+        for c in &spec.compound_sources {
+            c.severity.expand(|size, q| model.push_scaled_poisson(size, c.rate * q));
         }
         model.set_lattice();
         return Ok(model);
@@ -304,6 +328,78 @@ pub fn has_units(spec: &PortfolioSpec) -> bool {
     !spec.units.is_empty()
         || spec.groups.iter().any(|g| g.units.is_some())
         || spec.families.iter().any(|f| f.units().is_some())
+}
+
+/// Largest number of sizes one severity law may list or generate (each is a part of the exact product).
+pub const MAX_SEVERITY_SIZES: u64 = 100_000;
+
+fn check_severity(sev: &SeveritySpec, at: &str) -> Vec<Violation> {
+    let mut v = Vec::new();
+    let n = sev.len();
+    if n > MAX_SEVERITY_SIZES {
+        v.push(Violation::new(
+            at,
+            format!("{n} sizes exceed the limit of {MAX_SEVERITY_SIZES} per severity law: use coarser units"),
+        ));
+    }
+    match *sev {
+        SeveritySpec::Listed { ref sizes, ref probabilities } => {
+            if sizes.is_empty() {
+                v.push(Violation::new(format!("{at}/sizes"), "at least one size is required"));
+            }
+            if sizes.len() != probabilities.len() {
+                v.push(Violation::new(
+                    format!("{at}/probabilities"),
+                    format!("must hold one probability per size ({}), got {}", sizes.len(), probabilities.len()),
+                ));
+            }
+            for (i, &s) in sizes.iter().enumerate().take(MAX_SEVERITY_SIZES as usize) {
+                if let Some(x) = units_violation(format!("{at}/sizes/{i}"), s) {
+                    v.push(x);
+                    break;
+                }
+            }
+            let mut total = 0.0;
+            let mut ok = true;
+            for (i, &q) in probabilities.iter().enumerate().take(MAX_SEVERITY_SIZES as usize) {
+                if !probability_ok(q) {
+                    v.push(Violation::new(
+                        format!("{at}/probabilities/{i}"),
+                        format!("must be a probability in [0, 1], got {q}"),
+                    ));
+                    ok = false;
+                    break;
+                }
+                total += q;
+            }
+            if ok && !probabilities.is_empty() && (total - 1.0).abs() > SEVERITY_SUM_TOLERANCE {
+                v.push(Violation::new(
+                    format!("{at}/probabilities"),
+                    format!("must sum to 1 within {SEVERITY_SUM_TOLERANCE}, got {total}"),
+                ));
+            }
+        }
+        SeveritySpec::Geometric { first, step, largest, ratio } => {
+            for (name, x) in [("first", first), ("step", step), ("largest", largest)] {
+                if let Some(e) = units_violation(format!("{at}/{name}"), x) {
+                    v.push(e);
+                }
+            }
+            if largest < first {
+                v.push(Violation::new(
+                    format!("{at}/largest"),
+                    format!("must be at least first ({first}), got {largest}"),
+                ));
+            }
+            if !(ratio.is_finite() && (0.0..=1.0).contains(&ratio)) {
+                v.push(Violation::new(
+                    format!("{at}/ratio"),
+                    format!("must be in [0, 1] (the ratio of the probabilities of consecutive sizes), got {ratio}"),
+                ));
+            }
+        }
+    }
+    v
 }
 
 fn check_family(f: &FamilySpec, at: &str) -> Vec<Violation> {

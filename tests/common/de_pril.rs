@@ -1,8 +1,8 @@
 //! Exact references for losses in units, in rational arithmetic (num-rational's BigRational; f64 inputs are
 //! dyadic rationals and convert without loss): De Pril's recursion for the individual life model (N. De Pril,
 //! "On the exact computation of the aggregate claims distribution in the individual life model", ASTIN
-//! Bulletin 16, 1986, Theorem 1) and brute-force enumeration. Shared by tests/units.rs and
-//! tests/units_routes.rs (each includes it by path).
+//! Bulletin 16, 1986, Theorem 1) and brute-force enumeration. Shared by tests/units.rs,
+//! tests/units_routes.rs and tests/compound.rs (each includes it by path).
 #![allow(dead_code)]
 
 use num_rational::BigRational;

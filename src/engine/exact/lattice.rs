@@ -10,7 +10,12 @@
 //!   so each entry keeps the same relative error per exposure as for a count;
 //! - a binomial group of u steps each is the tilted Binomial(m, q(t u)) of the count, spread onto every u-th
 //!   lattice point;
-//! - truncations place Bernstein's radius for summands of up to b = max u_i steps (`window::with_step`).
+//! - a compound Poisson source is one Poisson part per event size s (`Model::scaled_poisson`): tilted by
+//!   exp(t s N) it is Poisson(lambda e^(t s)), truncated by its own Bernstein window in events, and spread onto
+//!   every s-th lattice point. It is unbounded, but a Poisson law is the limit of sums of rare Bernoulli
+//!   events of s steps each, so Bernstein's inequality holds for the products with b = s as well;
+//! - truncations place Bernstein's radius for summands of up to b = max u_i steps, compound sizes included
+//!   (`window::with_step`).
 //!
 //! Also here: a question about S in units as one about the lattice index (`query`).
 
@@ -77,11 +82,16 @@ pub fn tilted(model: &Model, t: f64) -> Tilted {
     if model.poisson > 0.0 {
         parts.push(leaf::poisson(model.poisson, &TiltConsts::new(t)));
     }
+    for &(s, lam) in &model.scaled_poisson {
+        // A compound source's events of s steps: Poisson(lambda e^(t s)) on every s-th lattice point.
+        parts.push(spread(leaf::poisson(lam, &TiltConsts::new(t * s as f64)), s));
+    }
     // A lattice with gaps can leave the tilted law little mass at the threshold itself (a total reached only
     // by rare combinations), where the FFT's or a truncation's absolute error would weigh as a relative one.
     // Narrow lattices are therefore multiplied whole and directly (relative errors only), which costs little;
     // wide ones, whose many unit sizes fill the lattice, by the planner as usual.
-    let mut window = if model.lattice_width() + model.shift <= KEEP_WHOLE && model.poisson <= 0.0 {
+    let bounded = model.poisson <= 0.0 && model.scaled_poisson.is_empty();
+    let mut window = if model.lattice_width() + model.shift <= KEEP_WHOLE && bounded {
         direct_all(parts)
     } else {
         window::with_step(model.max_step(), || convolve::product_all(parts))

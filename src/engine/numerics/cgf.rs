@@ -236,6 +236,7 @@ fn finish_scale(model: &Model, c: &TiltConsts, mut phi: Sum, mut err: f64, mut b
         phi.add(v);
         abs += v.abs();
     }
+    abs += scaled_poisson_phi(model, c.t, &mut phi);
     // The product by a group size adds one rounding to the ~6 of each phi.
     err += 8.0 * super::float::U * abs;
     let phi_err = phi.error_bound() + err;
@@ -312,8 +313,42 @@ fn eval_weighted(model: &Model, t: f64) -> CgfValue {
     for (i, b) in model.binomials.iter().enumerate() {
         add(b.size as f64, b.p, step(&model.group_units, i));
     }
+    scaled_poisson_cumulants(model, t, &mut k);
     let extra = if model.poisson > 0.0 { tilted_rate(model.poisson, t) } else { 0.0 };
     CgfValue { t, k1: k[0] + extra + model.shift as f64, k2: k[1] + extra, k3: k[2] + extra, k4: k[3] + extra }
+}
+
+/// The compound sources' part of K(t): each scaled part s Poisson(lambda) adds lambda (e^(t s) - 1) to phi
+/// (its b is 0). Returns the part's absolute size for the error bound (each term within a few ulps: the
+/// caller keeps t s exact, and exp_m1 and the product add three roundings).
+fn scaled_poisson_phi(model: &Model, t: f64, phi: &mut Sum) -> f64 {
+    let mut abs = 0.0;
+    for &(s, lam) in &model.scaled_poisson {
+        let ts = t * s as f64;
+        let (v, weight) = if ts < 700.0 {
+            (lam * ts.exp_m1(), 1.0)
+        } else {
+            // exp(ln lambda + t s): the rounding of the exponent, about U |ln lambda + t s| absolute, is a
+            // relative error of the value that size; the weight scales this term's share of the 8 U bound.
+            (tilted_rate(lam, ts) - lam, 1.0 + lam.ln().abs() + ts)
+        };
+        phi.add(v);
+        abs += v.abs() * weight;
+    }
+    abs
+}
+
+/// The compound sources' part of K'(t)..K''''(t): s Poisson(lambda) tilted by t is s Poisson(lambda e^(t s)),
+/// whose r-th cumulant is lambda e^(t s) s^r.
+fn scaled_poisson_cumulants(model: &Model, t: f64, k: &mut [f64; 4]) {
+    for &(s, lam) in &model.scaled_poisson {
+        let s = s as f64;
+        let mu = tilted_rate(lam, t * s);
+        k[0] += mu * s;
+        k[1] += mu * s * s;
+        k[2] += mu * s * s * s;
+        k[3] += mu * s * s * s * s;
+    }
 }
 
 /// Variance of the tilted law, K''(t).

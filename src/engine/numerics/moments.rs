@@ -105,7 +105,8 @@ impl Moments {
         for (i, b) in model.binomials.iter().enumerate() {
             add(b.size as f64, b.p, step(&model.group_units, i));
         }
-        let [mean, var, m3, a3, p2] = acc;
+        let [mut mean, mut var, mut m3, mut a3, p2] = acc;
+        scaled_poisson_terms(model, [&mut mean, &mut var, &mut m3, &mut a3]);
         let lam = model.poisson;
         Moments {
             mean: mean.value() + model.shift as f64 + lam,
@@ -135,6 +136,18 @@ impl Moments {
         } else {
             f64::INFINITY
         }
+    }
+}
+
+/// The compound sources' scaled Poisson parts: s times Poisson(lambda) has cumulants kappa_r = lambda s^r, and
+/// (as the limit of many rare Bernoulli events of s steps) sum E|X - EX|^3 = lambda s^3.
+fn scaled_poisson_terms(model: &Model, [mean, var, m3, a3]: [&mut Sum; 4]) {
+    for &(s, lam) in &model.scaled_poisson {
+        let s = s as f64;
+        mean.add(lam * s);
+        var.add(lam * s * s);
+        m3.add(lam * s * s * s);
+        a3.add(lam * s * s * s);
     }
 }
 
