@@ -163,19 +163,10 @@ impl Analytic for ReverseStress {
         }
     }
 
-    fn check_units(req: &ReverseStressRequest) -> Result<(), Vec<Violation>> {
-        // The factors stress an independent book on its lattice; the factor model does not yet take units.
-        let mut errs = Vec::new();
-        if req.which == Which::Rho {
-            errs.push(Violation::new("/which", "the rho search does not yet take loss units"));
-        } else if req.dependence.as_ref().is_some_and(|d| d.rho().is_some()) {
-            errs.push(Violation::new("/dependence", "a dependence model does not yet take loss units"));
-        }
-        if errs.is_empty() {
-            Ok(())
-        } else {
-            Err(errs)
-        }
+    fn check_units(_req: &ReverseStressRequest) -> Result<(), Vec<Violation>> {
+        // Every search runs on the lattice: a stressed book keeps it (`stress::stressed`), and so does each
+        // conditional portfolio under the factor (`dependence::conditional`).
+        Ok(())
     }
 
     fn check_model(req: &ReverseStressRequest, model: &Model) -> Result<(), Error> {

@@ -135,8 +135,9 @@ impl Analytic for Tail {
     fn check_units(req: &TailRequest) -> Result<(), Vec<Violation>> {
         // The exact method computes on the lattice, and so does the normal one: in lattice steps its continuity
         // correction is half the span, and Berry-Esseen (Shevtsova 2010, non-identical summands) holds with the
-        // weighted third moments. The other approximations and the factor model do not yet.
-        let mut errs: Vec<Violation> = req
+        // weighted third moments. The other approximations do not yet. Under the factor model each conditional
+        // portfolio keeps the units and the lattice (`dependence::conditional`).
+        let errs: Vec<Violation> = req
             .methods
             .iter()
             .enumerate()
@@ -148,9 +149,6 @@ impl Analytic for Tail {
                 )
             })
             .collect();
-        if req.dependence.as_ref().is_some_and(|d| d.rho().is_some()) {
-            errs.push(Violation::new("/dependence", "a dependence model does not yet take loss units"));
-        }
         if errs.is_empty() {
             Ok(())
         } else {
