@@ -254,6 +254,9 @@ pub struct Profile {
 
 const EXACT_PROFILE: usize = 512;
 
+/// One bin of the profile: (members, sum of alpha, sum of beta, sum of u, sum of u^2).
+type Bin = (f64, f64, f64, f64, f64);
+
 impl Profile {
     pub fn of(model: &Model, loads: &Loads) -> Profile {
         // Losses in units: the profile is in lattice steps, each exposure weighted by its steps.
@@ -265,7 +268,7 @@ impl Profile {
                 buckets.push((u, u * u, a, loads.beta_of(i)));
             }
         } else {
-            let mut bins: HashMap<(i64, i64), (f64, f64, f64, f64, f64)> = HashMap::new();
+            let mut bins: HashMap<(i64, i64), Bin> = HashMap::new();
             for (i, &a) in loads.alpha.iter().enumerate() {
                 let b = loads.beta_of(i);
                 let u = step(&model.units, i);
