@@ -210,6 +210,28 @@ async fn the_route_answers_as_the_analytic_and_refuses_bad_fields() {
         let (st, ct, body) = s.post_json("/v1/reverse-stress", &bad(patch)).await;
         assert_problem(st, &ct, &body, 422, pointer);
     }
+    // Extreme books are answered, never a 5xx: the largest Poisson rate at the largest threshold, a subnormal
+    // probability under an odds factor (the range ends at 1e300: every factor up to it keeps the tail under),
+    // a level below every representable tail.
+    for (q, outcome) in [
+        (
+            json!({"portfolio": {"poisson_rates": [1e9]}, "threshold": 1_000_000_000u64, "level": 0.5,
+                "which": "probability_factor"}),
+            "found",
+        ),
+        (
+            json!({"portfolio": {"probabilities": [5e-324, 0.5]}, "threshold": 2, "level": 0.3, "which": "odds_factor"}),
+            "every_keeps",
+        ),
+        (
+            json!({"portfolio": {"probabilities": [5e-324, 0.5]}, "threshold": 2, "level": 1e-300,
+                "which": "probability_factor", "tolerance": 1e-12}),
+            "found",
+        ),
+    ] {
+        let (st, _, body) = s.post_json("/v1/reverse-stress", &q).await;
+        assert_eq!((st, &body["outcome"]), (200, &json!(outcome)), "{q}: {body}");
+    }
     // The batch kind answers the same.
     let line = json!({"id": "r", "reverse_stress": q}).to_string() + "\n";
     let res = s

@@ -378,14 +378,11 @@ impl Search<'_> {
         let Some((x_hi, v_hi)) = crossing else {
             notes.push(match self.req.which {
                 Which::Rho => format!(
-                    "every rho on the grid 0, {RHO_STEP}, ..., {} and {top} keeps the tail under the level (between grid points it was not evaluated)",
+                    "every rho on the grid 0, {RHO_STEP}, ..., {:.2} and {top} keeps the tail under the level (between grid points it was not evaluated)",
                     (RHO_GRID - 1) as f64 * RHO_STEP
                 ),
-                Which::ProbabilityFactor => format!(
-                    "every factor up to {top} keeps the tail under the level (the end of the range: every probability 1, or the Poisson rate at its cap)"
-                ),
-                Which::OddsFactor => format!(
-                    "every factor up to {top} keeps the tail under the level (the end of the range: every probability 1 in floating point, or the Poisson rate at its cap)"
+                _ => format!(
+                    "every factor up to {top:e} keeps the tail under the level: the end of the range searched (where every probability is 1 in floating point, the Poisson rate reaches its cap, or 1e300)"
                 ),
             });
             return Ok(Found {
