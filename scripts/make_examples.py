@@ -15,7 +15,7 @@ import subprocess
 import sys
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
-BATCH_KINDS = ("tail", "quantiles", "distribution", "layers", "contributions")
+BATCH_KINDS = ("tail", "quantiles", "distribution", "layers", "contributions", "reverse_stress")
 
 
 def main() -> None:

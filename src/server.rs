@@ -57,6 +57,7 @@ fn router_with(opts: &Options, intake: Arc<intake::Intake>) -> Router {
         .route("/v1/distribution", post(routes::distribution::distribution))
         .route("/v1/layers", post(routes::layers::layers))
         .route("/v1/contributions", post(routes::contributions::contributions))
+        .route("/v1/reverse-stress", post(routes::reverse_stress::reverse_stress))
         .route("/v1/chart", post(routes::chart::chart))
         .route_layer(
             ServiceBuilder::new()

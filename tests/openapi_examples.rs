@@ -50,7 +50,7 @@ async fn every_example_request_is_answered_with_the_documented_example() {
             None => assert!(ok.get("image/svg+xml").is_some() && ct.starts_with("image/svg+xml"), "{path}: {ct}"),
         }
     }
-    assert_eq!(answered, 5, "tail, quantiles, distribution, layers and contributions have examples");
+    assert_eq!(answered, 6, "tail, quantiles, distribution, layers, contributions and reverse-stress have examples");
 
     // The batch: its example lines, answered line by line with the documented answer lines.
     let batch = &doc["paths"]["/v1/batch"]["post"];

@@ -21,7 +21,7 @@ use super::dependence::Dependence;
 use super::error::Error;
 use super::law::{Law, Summary, ValueOut};
 use super::pipeline::{Analytic, Ctx, Inputs};
-use super::scenario::{assumptions, Assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
+use super::scenario::{self, assumptions, Assumptions, ModelOut, MAX_UNBOUNDED_COUNT};
 use crate::config::ServiceLimits;
 use crate::engine::exact::leaf::BLOCK;
 use crate::engine::exact::window::Window;
@@ -111,6 +111,15 @@ fn listed_count(spec: &PortfolioSpec) -> u64 {
     spec.probabilities.len() as u64 + spec.families.iter().map(expected_len).sum::<u64>()
 }
 
+/// The listed exposures' loss units in the order of `listed_probabilities` (1 where none is given).
+fn listed_units(spec: &PortfolioSpec) -> Vec<u64> {
+    let mut out: Vec<u64> = if spec.units.is_empty() { vec![1; spec.probabilities.len()] } else { spec.units.clone() };
+    for f in &spec.families {
+        out.extend(std::iter::repeat_n(f.units().unwrap_or(1), expected_len(f) as usize));
+    }
+    out
+}
+
 /// Work of the contribution tree in units of one exact evaluation (log2 of the blocks times a full product,
 /// plus the per-exposure block sums).
 const EVALUATIONS: f64 = 40.0;
@@ -187,6 +196,46 @@ impl Contributions {
         }
     }
 
+    /// The figures of an independent book in units (`leave_one_out::contributions_in_units`): the exact law
+    /// without each distinct (p_i, u_i), so the work budget is checked again here with their number.
+    /// Impossible and certain exposures are not in the model: S without one is S, or S - u_i.
+    #[allow(clippy::too_many_arguments)]
+    fn in_units(
+        req: &ContributionsRequest,
+        law: &Law,
+        stress: Option<Stress>,
+        listed: &[f64],
+        model: &Model,
+        moments: &crate::engine::numerics::moments::Moments,
+        ctx: &Ctx,
+    ) -> Result<ContributionsResponse, Error> {
+        let classes = leave_one_out::classes_in_units(model) as f64;
+        scenario::check_work(model, EVALUATIONS + classes, if stress.is_some() { 2.0 } else { 1.0 }, ctx.limits)?;
+        let k = req.threshold;
+        let per = leave_one_out::contributions_in_units(model, k);
+        ctx.cancel.check()?;
+        let units = listed_units(&req.portfolio);
+        let tail = leave_one_out::upper_in_units(model, moments, &[k])[0];
+        let fixed: Vec<(Value, Value)> = listed
+            .iter()
+            .zip(&units)
+            .filter(|(&p, _)| p <= 0.0 || p >= 1.0)
+            .map(|(&p, &u)| {
+                if p <= 0.0 {
+                    let t = leave_one_out::upper_in_units(model, moments, &[k.saturating_sub(u)])[0];
+                    (leave_one_out::difference(t, tail), tail)
+                } else {
+                    let t = leave_one_out::upper_in_units(model, moments, &[k.saturating_add(u)])[0];
+                    (leave_one_out::difference(tail, t), t)
+                }
+            })
+            .collect();
+        Ok(Self::respond(req, law, stress, tail, listed, |slot, _| match slot {
+            Slot::Each(j) => (per[j].sensitivity, per[j].tail_without),
+            Slot::Fixed(j) => fixed[j],
+        }))
+    }
+
     /// The figures under the one-factor model (`factor::Factor::contributions`).
     fn under_factor(
         req: &ContributionsRequest,
@@ -220,6 +269,15 @@ impl Analytic for Contributions {
         }
     }
 
+    fn check_units(req: &ContributionsRequest) -> Result<(), Vec<Violation>> {
+        // Independent books in units: each exposure's law without it on the lattice. The factor model does not
+        // yet take units.
+        match req.dependence.as_ref().and_then(|d| d.rho()) {
+            Some(_) => Err(vec![Violation::new("/dependence", "a dependence model does not yet take loss units")]),
+            None => Ok(()),
+        }
+    }
+
     fn evaluations(_req: &ContributionsRequest) -> Option<f64> {
         Some(EVALUATIONS)
     }
@@ -247,7 +305,7 @@ impl Analytic for Contributions {
         req: &ContributionsRequest,
         law: &Law,
         stress: Option<Stress>,
-        _ctx: &Ctx,
+        ctx: &Ctx,
     ) -> Result<ContributionsResponse, Error> {
         let mut listed = listed_probabilities(&req.portfolio);
         if let Some(s) = stress {
@@ -257,6 +315,9 @@ impl Analytic for Contributions {
         let Some((model, moments)) = law.single() else {
             return Ok(Self::under_factor(req, law, stress, &listed));
         };
+        if model.weighted() {
+            return Self::in_units(req, law, stress, &listed, model, moments, ctx);
+        }
         let per = leave_one_out::contributions(model, moments, k);
         // Exposures that are impossible or certain are not in the model: S without them is S, or S - 1.
         let fixed = exact::evaluate(

@@ -171,8 +171,14 @@ impl Loads {
     }
 }
 
-/// The independent portfolio conditional on Z = z.
+/// The independent portfolio conditional on Z = z. Losses in units keep their steps and the unconditional
+/// lattice (span, offset): an exposure whose p_i(z) rounds to 1 moves its steps into the shift and one that rounds
+/// to 0 leaves, and neither changes the lattice the questions were mapped onto (a coarser one would fit the
+/// remaining exposures, but this one contains it).
 pub fn conditional(model: &Model, loads: &Loads, z: f64) -> Model {
+    if model.weighted() {
+        return conditional_weighted(model, loads, z);
+    }
     let mut m = Model { shift: model.shift, poisson: model.poisson, ..Model::default() };
     m.bernoulli.reserve(model.bernoulli.len());
     match &loads.beta {
@@ -189,6 +195,35 @@ pub fn conditional(model: &Model, loads: &Loads, z: f64) -> Model {
     }
     for ((g, &a), &b) in model.binomials.iter().zip(&loads.group_alpha).zip(&loads.group_beta) {
         m.push_group(g.size, normal_law::cdf(a - b * z));
+    }
+    m.exposures = model.exposures;
+    m
+}
+
+fn conditional_weighted(model: &Model, loads: &Loads, z: f64) -> Model {
+    let mut m = Model {
+        shift: model.shift,
+        poisson: model.poisson,
+        // Compound sources are independent of the factor.
+        scaled_poisson: model.scaled_poisson.clone(),
+        span: model.span,
+        offset: model.offset,
+        ..Model::default()
+    };
+    m.bernoulli.reserve(model.bernoulli.len());
+    m.units.reserve(model.bernoulli.len());
+    let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1);
+    for (i, &a) in loads.alpha.iter().enumerate() {
+        m.push_weighted(normal_law::cdf(a - loads.beta_of(i) * z), step(&model.units, i));
+    }
+    for (i, ((g, &a), &b)) in model.binomials.iter().zip(&loads.group_alpha).zip(&loads.group_beta).enumerate() {
+        m.push_group_weighted(g.size, normal_law::cdf(a - b * z), step(&model.group_units, i));
+    }
+    if m.units.iter().all(|&u| u == 1) {
+        m.units.clear();
+    }
+    if m.group_units.iter().all(|&u| u == 1) {
+        m.group_units.clear();
     }
     m.exposures = model.exposures;
     m
@@ -212,8 +247,8 @@ pub fn large_portfolio_cdf(x: f64, p: f64, rho: f64) -> f64 {
 /// guesses use it, never a value.
 #[derive(Debug, Clone)]
 pub struct Profile {
-    /// (count, alpha, beta)
-    buckets: Vec<(f64, f64, f64)>,
+    /// (steps: sum of u over the members, sum of u^2, alpha, beta); u = 1 for a count.
+    buckets: Vec<(f64, f64, f64, f64)>,
     /// Shift plus the Poisson rate, and the Poisson rate (its variance).
     constant_mean: f64,
     constant_var: f64,
@@ -221,28 +256,40 @@ pub struct Profile {
 
 const EXACT_PROFILE: usize = 512;
 
+/// One bin of the profile: (members, sum of alpha, sum of beta, sum of u, sum of u^2).
+type Bin = (f64, f64, f64, f64, f64);
+
 impl Profile {
     pub fn of(model: &Model, loads: &Loads) -> Profile {
-        let mut buckets: Vec<(f64, f64, f64)> = Vec::new();
+        // Losses in units: the profile is in lattice steps, each exposure weighted by its steps.
+        let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1) as f64;
+        let mut buckets: Vec<(f64, f64, f64, f64)> = Vec::new();
         if model.bernoulli.len() <= EXACT_PROFILE {
             for (i, &a) in loads.alpha.iter().enumerate() {
-                buckets.push((1.0, a, loads.beta_of(i)));
+                let u = step(&model.units, i);
+                buckets.push((u, u * u, a, loads.beta_of(i)));
             }
         } else {
-            let mut bins: HashMap<(i64, i64), (f64, f64, f64)> = HashMap::new();
+            let mut bins: HashMap<(i64, i64), Bin> = HashMap::new();
             for (i, &a) in loads.alpha.iter().enumerate() {
                 let b = loads.beta_of(i);
-                let e = bins.entry(((a * 16.0).floor() as i64, (b * 32.0).floor() as i64)).or_insert((0.0, 0.0, 0.0));
+                let u = step(&model.units, i);
+                let e = bins
+                    .entry(((a * 16.0).floor() as i64, (b * 32.0).floor() as i64))
+                    .or_insert((0.0, 0.0, 0.0, 0.0, 0.0));
                 e.0 += 1.0;
                 e.1 += a;
                 e.2 += b;
+                e.3 += u;
+                e.4 += u * u;
             }
             let mut v: Vec<_> = bins.into_iter().collect();
             v.sort_by_key(|(k, _)| *k);
-            buckets.extend(v.into_iter().map(|(_, (n, a, b))| (n, a / n, b / n)));
+            buckets.extend(v.into_iter().map(|(_, (n, a, b, u, u2))| (u, u2, a / n, b / n)));
         }
-        for ((g, &a), &b) in model.binomials.iter().zip(&loads.group_alpha).zip(&loads.group_beta) {
-            buckets.push((g.size as f64, a, b));
+        for (i, ((g, &a), &b)) in model.binomials.iter().zip(&loads.group_alpha).zip(&loads.group_beta).enumerate() {
+            let (n, u) = (g.size as f64, step(&model.group_units, i));
+            buckets.push((n * u, n * u * u, a, b));
         }
         Profile { buckets, constant_mean: model.shift as f64 + model.poisson, constant_var: model.poisson }
     }
@@ -250,11 +297,11 @@ impl Profile {
     /// (mean, variance, d mean / dz) of the conditional law at z.
     pub fn at(&self, z: f64) -> (f64, f64, f64) {
         let (mut m, mut v, mut d) = (self.constant_mean, self.constant_var, 0.0);
-        for &(n, a, b) in &self.buckets {
+        for &(n, n2, a, b) in &self.buckets {
             let u = a - b * z;
             let p = normal_law::cdf(u);
             m += n * p;
-            v += n * p * (1.0 - p);
+            v += n2 * p * (1.0 - p);
             d -= n * b * (normal_law::ln_pdf(u)).exp();
         }
         (m, v, d)

@@ -73,13 +73,14 @@ pub struct Factor {
     parallel: bool,
 }
 
-/// Bernstein's bound on P(S - ES >= x) (and on P(ES - S >= x)) for a sum of independent parts each within 1
-/// of its mean (Bernoulli and binomial exposures; the Poisson part as their limit), variance v.
-fn bernstein(x: f64, v: f64) -> f64 {
+/// Bernstein's bound on P(S - ES >= x) (and on P(ES - S >= x)) for a sum of independent parts each within
+/// `step` of its mean (Bernoulli and binomial exposures, 1 for a count and their largest lattice step in units;
+/// the Poisson part as their limit), variance v.
+fn bernstein(x: f64, v: f64, step: f64) -> f64 {
     if x <= 0.0 {
         1.0
     } else {
-        (-x * x / (2.0 * (v + x / 3.0))).exp()
+        (-x * x / (2.0 * (v + step * x / 3.0))).exp()
     }
 }
 
@@ -90,7 +91,7 @@ fn pinned(low: bool, bound: f64, cap: f64) -> Value {
 }
 
 /// The tail figure at a node from Bernstein's bound, when it is below `pin`.
-fn pin_tail(mom: &Moments, k: u64, side: Side, pin: f64) -> Option<Value> {
+fn pin_tail(mom: &Moments, step: f64, k: u64, side: Side, pin: f64) -> Option<Value> {
     if pin <= 0.0 {
         return None;
     }
@@ -99,7 +100,7 @@ fn pin_tail(mom: &Moments, k: u64, side: Side, pin: f64) -> Option<Value> {
     let (m, v, kf) = (mom.mean, mom.variance, k as f64);
     let up_x = kf - m - slack; // k above the mean
     let dn_x = m - kf - slack; // k below the mean
-    let b = |x: f64| bernstein(x, v);
+    let b = |x: f64| bernstein(x, v, step);
     let got = match side {
         Side::Upper => {
             if b(up_x) <= pin {
@@ -129,8 +130,9 @@ fn pin_tail(mom: &Moments, k: u64, side: Side, pin: f64) -> Option<Value> {
 
 /// The bound on E[min((S - a)+, l)] at a node above the mean: sum_{j >= 1} P(S >= a + j) with Bernstein's
 /// exponent f convex, so the terms fall at least geometrically by exp(-f'(x0)) from x0 = a + 1 - m.
-fn pin_layer(mom: &Moments, a: u64, limit: Option<u64>, pin: f64) -> Option<Value> {
-    if pin <= 0.0 {
+fn pin_layer(mom: &Moments, step: f64, a: u64, limit: Option<u64>, pin: f64) -> Option<Value> {
+    // The geometric fall of the terms below is derived for unit steps; losses in units go to the exact engine.
+    if pin <= 0.0 || step > 1.0 {
         return None;
     }
     let x0 = a as f64 + 1.0 - mom.mean - 1e-9 * (1.0 + mom.mean.abs());
@@ -139,7 +141,7 @@ fn pin_layer(mom: &Moments, a: u64, limit: Option<u64>, pin: f64) -> Option<Valu
     }
     let c = 3.0 * mom.variance;
     let slope = 1.5 * (x0 * x0 + 2.0 * c * x0) / ((c + x0) * (c + x0));
-    let first = bernstein(x0, mom.variance);
+    let first = bernstein(x0, mom.variance, 1.0);
     let mut bound = first / -(-slope).exp_m1();
     if let Some(l) = limit {
         bound = bound.min(l as f64 * first);
@@ -386,7 +388,7 @@ impl Factor {
             for (i, &(k, side)) in all.iter().enumerate() {
                 match exact::trivial(&m, k, side) {
                     Some(p) => vals[i] = Value::certain(p),
-                    None => match pin_tail(&mom, k, side, pin) {
+                    None => match pin_tail(&mom, m.max_step() as f64, k, side, pin) {
                         Some(v) => vals[i] = v,
                         None => {
                             active.push((k, side));
@@ -412,7 +414,14 @@ impl Factor {
         let top = match self.model.support_max() {
             Some(m) => m.saturating_sub(a) as f64,
             // E[(S - a)+ | z] <= E[S | z] <= the bounded part's largest count plus the Poisson rate.
-            None => (self.model.shift + self.model.random_exposures_bounded()) as f64 + self.model.poisson,
+            None => {
+                let bounded = if self.model.weighted() {
+                    self.model.lattice_width()
+                } else {
+                    self.model.random_exposures_bounded()
+                };
+                (self.model.shift + bounded) as f64 + self.model.poisson
+            }
         };
         limit.map_or(top, |l| top.min(l as f64))
     }
@@ -431,7 +440,8 @@ impl Factor {
         let pin = self.pin();
         let node = |z: f64| -> Vec<Value> {
             let (m, mom) = self.at(z);
-            vec![pin_layer(&mom, a, limit, pin).unwrap_or_else(|| exact::layer_expectation(&m, &mom, a, limit))]
+            let step = m.max_step() as f64;
+            vec![pin_layer(&mom, step, a, limit, pin).unwrap_or_else(|| exact::layer_expectation(&m, &mom, a, limit))]
         };
         let specs = [Spec::new(Shape::Decreasing, (0.0, cap))];
         let out = self.run(&specs, &breaks, self.tol, node);
@@ -538,7 +548,10 @@ impl Factor {
             let mut active = Vec::new();
             let mut where_ = Vec::new();
             for (i, &(kk, side)) in qs.iter().enumerate() {
-                match exact::trivial(m, kk, side).map(Value::certain).or_else(|| pin_tail(mom, kk, side, pin)) {
+                match exact::trivial(m, kk, side)
+                    .map(Value::certain)
+                    .or_else(|| pin_tail(mom, m.max_step() as f64, kk, side, pin))
+                {
                     Some(v) => vals[i] = v,
                     None => {
                         active.push((kk, side));

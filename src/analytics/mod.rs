@@ -28,6 +28,7 @@ pub mod law;
 pub mod layers;
 pub mod pipeline;
 pub mod quantiles;
+pub mod reverse_stress;
 pub mod scenario;
 pub mod tail;
 

@@ -202,6 +202,11 @@ pub fn model(
     mut errs: Vec<Violation>,
 ) -> Result<Model, Error> {
     check_ids(spec, &mut errs);
+    // The factor's integration pins conditional tails with the conditional exposures' moments (`factor`), which
+    // do not yet count compound sources: refuse the pair rather than answer with a bound that may not hold.
+    if dep.and_then(|d| d.rho()).is_some() && !spec.compound_sources.is_empty() {
+        errs.push(Violation::new("/dependence", "the one-factor model does not yet take compound sources"));
+    }
     // Under a dependence model the exposures' own factor loadings are kept (the default is its rho).
     let rho = dep.and_then(|d| d.rho()).filter(|r| r.is_finite() && (0.0..1.0).contains(r));
     let m = match build_model_with(spec, "/portfolio", &limits.portfolio, rho) {

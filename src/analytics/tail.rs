@@ -151,17 +151,15 @@ impl Analytic for Tail {
     }
 
     fn check_units(req: &TailRequest) -> Result<(), Vec<Violation>> {
-        // Every method computes on the lattice (in steps; see each method's module note).
+        // Every method computes on the lattice (in steps; see each method's module note). Under the factor model
+        // each conditional portfolio keeps the units and the lattice (`dependence::conditional`).
         let compound = !req.portfolio.compound_sources.is_empty();
-        let mut errs: Vec<Violation> = req
+        let errs: Vec<Violation> = req
             .methods
             .iter()
             .enumerate()
             .filter_map(|(i, &m)| refused_in_units(m, compound).map(|why| Violation::new(format!("/methods/{i}"), why)))
             .collect();
-        if req.dependence.as_ref().is_some_and(|d| d.rho().is_some()) {
-            errs.push(Violation::new("/dependence", "a dependence model does not yet take loss units"));
-        }
         if errs.is_empty() {
             Ok(())
         } else {

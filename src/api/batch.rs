@@ -1,7 +1,7 @@
 //! Batches of requests as NDJSON, shared by POST /v1/batch (`routes::batch`) and `tailtally eval`.
 //!
 //! Each non-blank input line is one object `{"id": <string or number>, "<kind>": <request>}` where `<kind>`
-//! is one of `tail`, `quantiles`, `distribution`, `layers`, `contributions` and the request is that endpoint's body. Each
+//! is one of `tail`, `quantiles`, `distribution`, `layers`, `contributions`, `reverse_stress` and the request is that endpoint's body. Each
 //! line gets one answer line, in input order: `{"id": ..., "<kind>": <response>}`, or
 //! `{"id": ..., "problem": <problem details>}` whose pointers are relative to the line's object (e.g.
 //! `/tail/thresholds/0`) and whose detail starts with the line number (1-based, blank lines counted).
@@ -18,6 +18,7 @@ use crate::analytics::contributions::Contributions;
 use crate::analytics::distribution::Distribution;
 use crate::analytics::layers::Layers;
 use crate::analytics::quantiles::Quantiles;
+use crate::analytics::reverse_stress::ReverseStress;
 use crate::analytics::tail::Tail;
 use crate::analytics::{self, Analytic};
 use crate::api::extract;
@@ -40,12 +41,14 @@ pub enum Kind {
     Distribution,
     Layers,
     Contributions,
+    ReverseStress,
 }
 
 impl Kind {
-    pub const ALL: [Kind; 5] = [Kind::Tail, Kind::Quantiles, Kind::Distribution, Kind::Layers, Kind::Contributions];
+    pub const ALL: [Kind; 6] =
+        [Kind::Tail, Kind::Quantiles, Kind::Distribution, Kind::Layers, Kind::Contributions, Kind::ReverseStress];
 
-    /// The line's key for this kind (the route's last path segment).
+    /// The line's key for this kind (the route's last path segment, in snake case).
     pub fn key(self) -> &'static str {
         match self {
             Kind::Tail => "tail",
@@ -53,6 +56,7 @@ impl Kind {
             Kind::Distribution => "distribution",
             Kind::Layers => "layers",
             Kind::Contributions => "contributions",
+            Kind::ReverseStress => "reverse_stress",
         }
     }
 
@@ -330,6 +334,7 @@ pub fn answer_line(
         Kind::Distribution => run::<Distribution>(body, limits, cancel),
         Kind::Layers => run::<Layers>(body, limits, cancel),
         Kind::Contributions => run::<Contributions>(body, limits, cancel),
+        Kind::ReverseStress => run::<ReverseStress>(body, limits, cancel),
     };
     line_of(no, &env, result)
 }
@@ -349,6 +354,7 @@ fn small_line(no: u64, line: &[u8], limits: &ServiceLimits) -> Option<Vec<u8>> {
         Kind::Distribution => run_small::<Distribution>(body, limits),
         Kind::Layers => run_small::<Layers>(body, limits),
         Kind::Contributions => run_small::<Contributions>(body, limits),
+        Kind::ReverseStress => run_small::<ReverseStress>(body, limits),
     }?;
     Some(line_of(no, &env, result))
 }

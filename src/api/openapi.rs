@@ -25,6 +25,7 @@ use utoipa::OpenApi;
         crate::api::routes::distribution::distribution,
         crate::api::routes::layers::layers,
         crate::api::routes::contributions::contributions,
+        crate::api::routes::reverse_stress::reverse_stress,
         crate::api::routes::chart::chart,
         crate::api::routes::batch::batch,
         crate::api::routes::page::explorer,
@@ -154,7 +155,8 @@ fn examples(doc: &mut Value) {
         batch["responses"]["200"]["content"]["application/x-ndjson"]["example"] = ndjson(answer);
     }
     for (name, request) in requests.as_object().expect("an object").iter().filter(|(k, _)| *k != "batch") {
-        let op = &mut doc["paths"][format!("/v1/{name}")]["post"];
+        // A line's key is the route's last segment in snake case (`reverse_stress` for /v1/reverse-stress).
+        let op = &mut doc["paths"][format!("/v1/{}", name.replace('_', "-"))]["post"];
         // Every question needs its body (utoipa leaves `required` out, so generated clients made it optional).
         op["requestBody"]["required"] = json!(true);
         op["requestBody"]["content"]["application/json"]["example"] = request.clone();

@@ -22,6 +22,7 @@ use crate::analytics::contributions::ContributionsRequest;
 use crate::analytics::distribution::DistributionRequest;
 use crate::analytics::layers::LayersRequest;
 use crate::analytics::quantiles::QuantilesRequest;
+use crate::analytics::reverse_stress::ReverseStressRequest;
 use crate::analytics::tail::TailRequest;
 use crate::config::ServiceLimits;
 use crate::portfolio::families::expected_len;
@@ -72,7 +73,8 @@ tabular!(
     DistributionRequest => false,
     LayersRequest => false,
     ContributionsRequest => true,
-    ChartRequest => false
+    ChartRequest => false,
+    ReverseStressRequest => false
 );
 
 /// The `table` object of a multipart request's JSON part: which columns of the `exposures` table to read.

@@ -14,7 +14,7 @@ import sys
 
 import httpx
 from tailtally_client import Client
-from tailtally_client.api.analytics import contributions, distribution, layers, quantiles
+from tailtally_client.api.analytics import contributions, distribution, layers, quantiles, reverse_stress
 from tailtally_client.api.operations import docs, explorer, healthz, metrics, readyz
 from tailtally_client.api.probabilities import tail
 from tailtally_client.models import (
@@ -26,6 +26,8 @@ from tailtally_client.models import (
     LayersResponse,
     QuantilesRequest,
     QuantilesResponse,
+    ReverseStressRequest,
+    ReverseStressResponse,
     TailRequest,
     TailResponse,
 )
@@ -37,6 +39,7 @@ JSON_OPERATIONS = {
     "/v1/distribution": (distribution, DistributionRequest, DistributionResponse),
     "/v1/layers": (layers, LayersRequest, LayersResponse),
     "/v1/contributions": (contributions, ContributionsRequest, ContributionsResponse),
+    "/v1/reverse-stress": (reverse_stress, ReverseStressRequest, ReverseStressResponse),
 }
 
 

@@ -19,7 +19,7 @@ pub const NDJSON: &str = "application/x-ndjson";
 
 /// What the OpenAPI document shows of a batch body (it is NDJSON, not one JSON document).
 const LINE_FORMAT: &str = "NDJSON: one request per line, `{\"id\": <string or number>, \"<kind>\": <request>}` \
-where `<kind>` is one of `tail`, `quantiles`, `distribution`, `layers`, `contributions` and the request is that endpoint's body. \
+where `<kind>` is one of `tail`, `quantiles`, `distribution`, `layers`, `contributions`, `reverse_stress` (POST /v1/reverse-stress) and the request is that endpoint's body. \
 Blank lines are skipped. Each line may be as long as `--max-body-bytes`; a batch holds at most \
 `--max-batch-lines` lines.";
 

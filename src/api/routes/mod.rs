@@ -37,4 +37,5 @@ pub mod layers;
 pub mod metrics;
 pub mod page;
 pub mod quantiles;
+pub mod reverse_stress;
 pub mod tail;
