@@ -18,8 +18,8 @@ def _portfolio_ok(body: dict) -> bool:
     if not isinstance(p, dict):
         return True
     n = len(p.get("probabilities") or [])
-    # `ids` and `loadings`: one per entry of `probabilities`, or none.
-    for key in ("ids", "loadings"):
+    # `ids`, `loadings` and `units`: one per entry of `probabilities`, or none.
+    for key in ("ids", "loadings", "units"):
         if p.get(key) and len(p[key]) != n:
             return False
     families = p.get("families") or []
@@ -38,6 +38,24 @@ def _portfolio_ok(body: dict) -> bool:
             except OverflowError:
                 return False
     return True
+
+
+@schemathesis.hook
+def map_body(context, body):
+    """A geometric severity's `largest` not below its `first`, and a listed severity's probabilities sum to 1 (within 1e-9) and pair with its sizes: a rule between values
+    that JSON Schema cannot state; make generated ones meet it (equal weights over the sizes given)."""
+    p = body.get("portfolio") if isinstance(body, dict) else None
+    for src in (p.get("compound_sources") or []) if isinstance(p, dict) else []:
+        sev = src.get("severity") if isinstance(src, dict) else None
+        if isinstance(sev, dict) and sev.get("kind") == "listed" and isinstance(sev.get("sizes"), list):
+            n = len(sev["sizes"])
+            sev["probabilities"] = [1.0 / n] * n if n else []
+        elif isinstance(sev, dict) and sev.get("kind") == "geometric":
+            # `largest` >= `first`, and at most MAX_SEVERITY_SIZES sizes between them.
+            first, step = sev.get("first"), sev.get("step")
+            if isinstance(first, int) and isinstance(step, int) and step > 0:
+                sev["largest"] = min(first + 10 * step, 1_000_000_000) if first <= 1_000_000_000 else first
+    return body
 
 
 @schemathesis.hook

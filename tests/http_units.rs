@@ -78,17 +78,15 @@ async fn the_tail_in_units_matches_enumeration_and_bad_requests_get_problems() {
 
     // What does not take units yet says so at the field.
     let source = json!({"rate": 2.0, "severity": {"kind": "listed", "sizes": [3, 5], "probabilities": [0.5, 0.5]}});
-    let q = json!({"portfolio": {"compound_sources": [source]}, "thresholds": [5], "methods": ["exact", "saddlepoint"]});
+    let q =
+        json!({"portfolio": {"compound_sources": [source]}, "thresholds": [5], "methods": ["exact", "saddlepoint"]});
     let (st, ct, body) = s.post_json("/v1/tail", &q).await;
     assert_problem(st, &ct, &body, 422, Some("/methods/1"));
-    let (st, ct, body) = s.post_json("/v1/contributions", &json!({"portfolio": portfolio, "threshold": 5})).await;
-    assert_problem(st, &ct, &body, 422, Some("/portfolio/units"));
-    let fam = json!({"families": [{"kind": "constant", "n": 10, "probability": 0.1, "units": 7}]});
-    let (st, ct, body) = s.post_json("/v1/contributions", &json!({"portfolio": fam, "threshold": 5})).await;
-    assert_problem(st, &ct, &body, 422, Some("/portfolio/families/0/units"));
-    let q = json!({"portfolio": fam, "levels": [0.5], "methods": ["normal", "poisson"]});
-    let (st, ct, body) = s.post_json("/v1/quantiles", &q).await;
-    assert_problem(st, &ct, &body, 422, Some("/methods/1"));
+    // Contributions under the factor model do not take units yet (independent books do).
+    let factor = json!({"model": "one_factor_gaussian", "rho": 0.2});
+    let q = json!({"portfolio": portfolio, "threshold": 5, "dependence": factor});
+    let (st, ct, body) = s.post_json("/v1/contributions", &q).await;
+    assert_problem(st, &ct, &body, 422, Some("/dependence"));
     s.shutdown().await.unwrap();
 }
 
@@ -152,7 +150,8 @@ async fn a_batch_line_in_units_answers_as_the_route_does() {
     let body = format!(
         "{}\n{}\n",
         json!({"id": "units", "tail": tail}),
-        json!({"id": "not-yet", "contributions": {"portfolio": {"probabilities": P, "units": U}, "threshold": 10}})
+        json!({"id": "not-yet", "contributions": {"portfolio": {"probabilities": P, "units": U}, "threshold": 10,
+            "dependence": {"model": "one_factor_gaussian", "rho": 0.2}}})
     );
     let res = s
         .client
@@ -171,7 +170,7 @@ async fn a_batch_line_in_units_answers_as_the_route_does() {
         assert_eq!(got, &want["results"][i]["estimates"][0]["probability"], "{text}");
     }
     assert_eq!(lines[1]["problem"]["status"], 422, "{text}");
-    assert_eq!(lines[1]["problem"]["errors"][0]["pointer"], "/contributions/portfolio/units", "{text}");
+    assert_eq!(lines[1]["problem"]["errors"][0]["pointer"], "/contributions/dependence", "{text}");
     s.shutdown().await.unwrap();
 }
 

@@ -150,7 +150,7 @@ impl Analytic for Distribution {
     }
 
     fn check_units(req: &DistributionRequest) -> Result<(), Vec<Violation>> {
-        super::quantiles::refuse_in_units(&[], &req.dependence)
+        super::quantiles::refuse_in_units(&[], &req.dependence, &req.portfolio)
     }
 
     fn check_model(req: &DistributionRequest, model: &Model) -> Result<(), Error> {

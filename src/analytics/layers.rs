@@ -207,7 +207,7 @@ impl Analytic for Layers {
     }
 
     fn check_units(req: &LayersRequest) -> Result<(), Vec<Violation>> {
-        super::quantiles::refuse_in_units(&[], &req.dependence)
+        super::quantiles::refuse_in_units(&[], &req.dependence, &req.portfolio)
     }
 
     fn evaluations(req: &LayersRequest) -> Option<f64> {

@@ -15,7 +15,7 @@ use utoipa::ToSchema;
 /// The model's assumptions, returned with every answer.
 pub const ASSUMPTIONS: &[&str] = &[
     "Exposures and sources are mutually independent unless a dependence model is named in `model`; under the one-factor Gaussian model they are independent given the common factor, and Poisson sources are independent of it.",
-    "Each listed probability is the exposure's event probability over the same period (at most one event each), and Poisson rates are over that period too; a count is not a loss.",
+    "Each listed probability is the exposure's event probability over the same period (at most one event each), and Poisson rates and compound sources' rates are over that period too; without loss units S counts events (a count is not a loss), with them S is the total loss in those whole units.",
     "Error bounds cover the computation only, not the uncertainty of the input probabilities, rates or rho.",
     "The one-factor Gaussian model has no tail dependence, and its rho must be calibrated to the book; it is not estimated here.",
     "Results support, and do not replace, the judgement of a qualified actuary or engineer and the rules of local regulation.",

@@ -119,7 +119,7 @@ pub struct Tail;
 /// compound Poisson approximation. Edgeworth and the saddlepoint carry lumpiness terms measured on books of
 /// exposures in units (docs/accuracy.md); their coverage with compound sources is not measured yet, so those
 /// books go to the methods whose bounds are rigorous there (exact, normal, poisson) or to `auto`.
-fn refused_in_units(m: MethodId, compound: bool) -> Option<&'static str> {
+pub fn refused_in_units(m: MethodId, compound: bool) -> Option<&'static str> {
     match m {
         MethodId::Edgeworth | MethodId::Saddlepoint if compound => Some(
             "does not yet take compound sources (its estimated bound is not measured there); ask for exact, normal, poisson or auto",

@@ -74,6 +74,7 @@ fn rules(doc: &mut Value) {
     let portfolio = &mut schemas["PortfolioSpec"]["properties"];
     list(&mut portfolio["probabilities"], &probability, LISTED);
     list(&mut portfolio["loadings"], &loading, LISTED);
+    list(&mut portfolio["units"], &json!({"minimum": 1, "maximum": 1_000_000_000}), LISTED);
     list(&mut portfolio["poisson_rates"], &json!({"minimum": 0.0, "maximum": POISSON_RATE}), LISTED);
     merge(&mut portfolio["ids"], &json!({"maxItems": LISTED}));
     merge(&mut schemas["ExposureId"]["oneOf"][0], &json!({"minimum": i64::MIN, "maximum": i64::MAX}));
@@ -134,6 +135,12 @@ fn rules(doc: &mut Value) {
     // Internally tagged enums: each variant a closed, named schema, and the tag their discriminator.
     tagged(schemas, "FamilySpec", "Family", "kind");
     tagged(schemas, "SeveritySpec", "Severity", "kind");
+    // A listed severity: sizes in 1..=1e9, probabilities in [0, 1] (their sum is a rule between values).
+    let listed = &mut schemas["SeverityListed"]["properties"];
+    let most = crate::portfolio::validate::MAX_SEVERITY_SIZES;
+    list(&mut listed["sizes"], &json!({"minimum": 1, "maximum": 1_000_000_000}), most);
+    list(&mut listed["probabilities"], &probability, most);
+    merge(&mut listed["sizes"], &json!({"minItems": 1}));
     tagged(schemas, "Dependence", "Dependence", "model");
     merge(&mut schemas["FamilyLogistic"]["properties"]["scores"], &json!({"maxItems": LISTED}));
 }
