@@ -133,6 +133,28 @@ fn heterogeneous_books_bracket_the_root_in_exact_rationals() {
     }
 }
 
+/// A group in units beside the listed book: at factors near 1e-100 the exact engine's relative bound can fail
+/// (an absolute bound of 1 that straddles any level), and the search must still bisect on the estimates rather
+/// than stop at factor 0. The truth enumerates the group's two members as listed exposures.
+#[test]
+fn a_group_in_units_still_brackets_the_root() {
+    const P: [f64; 8] = [0.05, 0.12, 0.3, 0.07, 0.2, 0.01, 0.03, 0.03];
+    const U: [u64; 8] = [12, 30, 4, 18, 8, 250, 2, 2];
+    let portfolio = json!({"probabilities": P[..6], "units": U[..6],
+        "groups": [{"size": 2, "probability": 0.03, "units": 2}]});
+    for (k, level) in [(100u64, 0.01), (60, 0.02)] {
+        let r = ask(json!({"portfolio": portfolio, "threshold": k, "level": level, "which": "probability_factor"}));
+        assert_eq!(r.outcome, Outcome::Found, "k {k}");
+        let (lo, hi) = bracket(&r);
+        let at = |f: f64| {
+            let q: Vec<BigRational> = P.iter().map(|&p| stress(Which::ProbabilityFactor, f, p)).collect();
+            enumerate_upper(&q, &U, k)
+        };
+        assert!(at(lo) <= rat(level) && at(hi) > rat(level), "k {k}: [{lo}, {hi}]");
+        assert!(hi / lo - 1.0 <= 1e-4 * (1.0 + 1e-6), "k {k}: [{lo}, {hi}]");
+    }
+}
+
 /// The largest rho: the mpmath root of the mixture's tail lies in the bracket, of width at most the tolerance;
 /// the same pool in units (each member 7 units, beside a certain exposure of 3) has the same root.
 #[test]

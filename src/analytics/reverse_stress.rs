@@ -399,12 +399,13 @@ impl Search<'_> {
             let v = self.tail(SMALLEST_FACTOR)?;
             if self.below(&v) {
                 low = (SMALLEST_FACTOR, v);
-            } else {
-                if self.above(&v) {
-                    high = Some(SMALLEST_FACTOR);
-                }
+            } else if self.above(&v) {
+                high = Some(SMALLEST_FACTOR);
                 hi = lo;
             }
+            // Otherwise the bound straddles the level there (the exact engine's relative bound can fail for
+            // probabilities near 1e-100, leaving an absolute bound of 1): the bisection follows the estimates
+            // and the proven bracket starts from factor 0.
         }
         while hi - lo > width && self.points.len() < budget {
             let mid = 0.5 * (lo + hi);
