@@ -225,9 +225,8 @@ async fn the_route_answers_as_the_analytic_and_refuses_bad_fields() {
         (json!({"level": 1.0}), Some("/level")),
         (json!({"level": -0.5}), Some("/level")),
         (json!({"tolerance": 0.0}), Some("/tolerance")),
-        (json!({"threshold": 101}), Some("/threshold")),
         (json!({"which": "everything"}), None),
-        (json!({"portfolio": {"probabilities": [0.1, 0.2], "units": [3, 5]}, "threshold": 9}), Some("/threshold")),
+        (json!({"portfolio": {"poisson_rates": [2.0]}, "threshold": 2_000_000_000u64}), Some("/threshold")),
     ] {
         let (st, ct, body) = s.post_json("/v1/reverse-stress", &bad(patch)).await;
         assert_problem(st, &ct, &body, 422, pointer);
@@ -235,6 +234,16 @@ async fn the_route_answers_as_the_analytic_and_refuses_bad_fields() {
     // Extreme books are answered, never a 5xx: the largest Poisson rate at the largest threshold, a subnormal
     // probability under an odds factor (the range ends at 1e300: every factor up to it keeps the tail under),
     // a level below every representable tail.
+    // A threshold beyond the largest possible total: the tail is 0 under every stress, so every factor keeps it.
+    for patch in [
+        json!({"threshold": 101}),
+        json!({"portfolio": {"probabilities": [0.1, 0.2], "units": [3, 5]}, "threshold": 9}),
+    ] {
+        let (st, _, body) = s.post_json("/v1/reverse-stress", &bad(patch)).await;
+        assert_eq!(st, 200, "{body}");
+        assert_eq!(body["outcome"], "every_keeps", "{body}");
+        assert!(body["notes"].to_string().contains("beyond the largest possible total"), "{body}");
+    }
     for (q, outcome) in [
         (
             json!({"portfolio": {"poisson_rates": [1e9]}, "threshold": 1_000_000_000u64, "level": 0.5,

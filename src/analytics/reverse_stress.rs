@@ -170,22 +170,16 @@ impl Analytic for ReverseStress {
     }
 
     fn check_model(req: &ReverseStressRequest, model: &Model) -> Result<(), Error> {
+        // An unbounded law is served up to MAX_UNBOUNDED_COUNT; a threshold beyond a bounded law's largest total
+        // is answered (the tail is 0 under every stress: every factor keeps it).
         let k = req.threshold;
-        let top = match model.support_max() {
-            None if k > MAX_UNBOUNDED_COUNT => Some(MAX_UNBOUNDED_COUNT),
-            None => None,
-            Some(j) => {
-                let max = if model.weighted() { model.units_of(j) } else { j };
-                (k > max).then_some(max)
-            }
-        };
-        match top {
-            Some(max) => Err(Error::Invalid(vec![Violation::new(
+        if model.support_max().is_none() && k > MAX_UNBOUNDED_COUNT {
+            return Err(Error::Invalid(vec![Violation::new(
                 "/threshold",
-                format!("{k} is beyond the largest total {max}: the tail is 0 under every stress"),
-            )])),
-            None => Ok(()),
+                format!("{k} is beyond the largest threshold served for an unbounded law, {MAX_UNBOUNDED_COUNT}"),
+            )]));
         }
+        Ok(())
     }
 
     fn evaluations(req: &ReverseStressRequest) -> Option<f64> {
@@ -214,6 +208,15 @@ impl Analytic for ReverseStress {
             notes.push(
                 "two evaluations contradict a tail non-decreasing in the searched value beyond their bounds: the bracket may not hold the root".into(),
             );
+        }
+        if let Some(j) = law.model().support_max() {
+            let model = law.model();
+            let max = if model.weighted() { model.units_of(j) } else { j };
+            if req.threshold > max {
+                notes.push(format!(
+                    "the threshold is beyond the largest possible total {max}: the tail is 0 under every stress"
+                ));
+            }
         }
         if req.which == Which::Rho {
             let s = Summary::of_law(law);
