@@ -30,6 +30,13 @@ def _portfolio_ok(body: dict) -> bool:
     factor = max([1.0] + [float(v) for v in stress.values() if isinstance(v, (int, float))])
     if float(sum(p.get("poisson_rates") or [])) * factor > POISSON_RATE:
         return False
+    # A geometric severity: `largest` >= `first` (map_body sets it; generated bodies it did not reach are dropped).
+    for src in p.get("compound_sources") or []:
+        sev = src.get("severity") if isinstance(src, dict) else None
+        if isinstance(sev, dict) and sev.get("kind") == "geometric":
+            first, largest = sev.get("first"), sev.get("largest")
+            if isinstance(first, int) and isinstance(largest, int) and largest < first:
+                return False
     for f in p.get("families") or []:
         if f.get("kind") == "logistic":
             try:
