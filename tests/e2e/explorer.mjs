@@ -552,9 +552,13 @@ try {
     const tail = await send("/v1/tail", { thresholds: [150], side: "upper", methods: METHODS });
     assert.equal(tail.status, 200, JSON.stringify(tail.body));
     checkEstimates(await rowsOf("#estimates tbody tr"), tail.body, null);
-    // Without the units column the same file is a count of fires, a different law (so the column was sent).
-    const counts = await apiTable("/v1/tail", { portfolio: {}, thresholds: [150], side: "upper", methods: ["exact"], table: { probability: "p_fire", units: "p_fire" } }, WAREHOUSES_CSV, "text/csv");
-    assert.equal(counts.status, 422, "p_fire is no units column");
+    // The same book typed as JSON (portfolio.units) has the same law; as a count of fires it has another.
+    const rowsCsv = readFileSync(WAREHOUSES_CSV, "utf8").trim().split("\n").slice(1).map((l) => l.split(","));
+    const typed = { probabilities: rowsCsv.map((r) => Number(r[2])), units: rowsCsv.map((r) => Number(r[3])) };
+    const asJson = await api("/v1/tail", { portfolio: typed, thresholds: [150], side: "upper", methods: ["exact"] });
+    assert.equal(asJson.body.results[0].estimates[0].probability, tail.body.results[0].estimates[0].probability);
+    const asCount = await api("/v1/tail", { portfolio: { probabilities: typed.probabilities }, thresholds: [150], side: "upper", methods: ["exact"] });
+    assert.notEqual(asCount.body.results[0].estimates[0].probability, tail.body.results[0].estimates[0].probability);
     const step = await latticeOf(send);
     assert.equal(step, 5, "the units of warehouses.csv are multiples of 5");
     assert.equal(await page.locator("#chart-h").textContent(), "Total loss in units: how likely each total is");
@@ -585,13 +589,17 @@ try {
     await page.getByRole("button", { name: "Stop using this file" }).click();
   });
 
-  const BOOK_U = { probabilities: [0.1, 0.2, 0.3, 0.15], units: [3, 6, 9, 3],
+  const BOOK_U = { probabilities: [0.1, 0.2, 0.3, 0.15], units: [3, 6, 9, 3], groups: [{ size: 40, probability: 0.02, units: 12 }],
     compound_sources: [{ rate: 1.5, severity: { kind: "listed", sizes: [3, 6, 30], probabilities: [0.6, 0.3, 0.1] } },
       { rate: 0.4, severity: { kind: "geometric", first: 6, step: 3, largest: 60, ratio: 0.7 } }] };
-  await check("compound sources typed in: the API's answer, the methods it refuses named, errors at their fields", async () => {
+  await check("typed units, a group's units and compound sources typed in: the API's answer, the methods it refuses named, errors at their fields", async () => {
     await page.getByRole("button", { name: "Clear" }).click();
     await page.getByLabel("Event probabilities, one per line or comma-separated").fill("0.1\n0.2\n0.3\n0.15");
     await page.getByLabel("Loss units of the exposures typed above").fill("3, 6, 9, 3");
+    await page.getByRole("button", { name: "Add a group" }).click();
+    await page.locator(".group .g-size").fill("40");
+    await page.locator(".group .g-prob").fill("0.02");
+    await page.locator(".group").getByLabel("units", { exact: true }).fill("12");
     await page.getByRole("button", { name: "Add a compound source" }).click();
     let src = page.locator(".csrc").nth(0);
     await src.getByLabel("rate per period").fill("1.5");
