@@ -1,8 +1,9 @@
 //! Compound Poisson sources end to end: a textbook-style compound Poisson law and the compound Poisson
 //! approximation of a small book over HTTP, against values from the committed script
 //! fixtures/reference/make_compound_poisson.py (Panjer 1981 in exact fractions, e^-lambda by mpmath); and the
-//! problems: every bad field at its pointer, questions that do not take compound sources (422 at the field), a
-//! threshold beyond the served range and a lattice too wide for the memory ceiling (4xx, never an allocation).
+//! problems: every bad field at its pointer, the factor model on questions that do not take compound sources
+//! (422 at the field), a threshold beyond the served range and a lattice too wide for the memory ceiling (4xx,
+//! never an allocation).
 
 mod common;
 use common::{assert_problem, start};
@@ -131,14 +132,19 @@ async fn what_does_not_take_compound_sources_says_so_and_large_ones_are_refused(
     assert_eq!(st, 200, "{tails}");
     let cdf = |i: usize| tails["results"][i]["estimates"][0]["probability"].as_f64().unwrap();
     assert!(cdf(0) < 0.5 && cdf(1) >= 0.5, "{body} {tails}");
-    // The factor model does not take compound sources yet.
-    let q =
-        json!({"portfolio": portfolio, "thresholds": [10], "dependence": {"model": "one_factor_gaussian", "rho": 0.2}});
-    let (st, ct, body) = s.post_json("/v1/tail", &q).await;
+    // The factor model takes compound sources on /v1/tail (tests/factor_compound.rs checks its values), and
+    // the other questions refuse the pair at the dependence field.
+    let factor = json!({"model": "one_factor_gaussian", "rho": 0.2});
+    let q = json!({"portfolio": portfolio, "thresholds": [10], "dependence": factor});
+    let (st, _, body) = s.post_json("/v1/tail", &q).await;
+    assert_eq!(st, 200, "{body}");
+    let q = json!({"portfolio": portfolio, "levels": [0.5], "dependence": factor});
+    let (st, ct, body) = s.post_json("/v1/quantiles", &q).await;
     assert_problem(st, &ct, &body, 422, Some("/dependence"));
-    let q = json!({"portfolio": portfolio, "thresholds": [10], "methods": ["exact", "saddlepoint"]});
-    let (st, ct, body) = s.post_json("/v1/tail", &q).await;
-    assert_problem(st, &ct, &body, 422, Some("/methods/1"));
+    // Every method takes compound sources (tests/units_methods.rs measures the estimated bounds there).
+    let q = json!({"portfolio": portfolio, "thresholds": [10], "methods": ["exact", "saddlepoint", "edgeworth"]});
+    let (st, _, body) = s.post_json("/v1/tail", &q).await;
+    assert_eq!(st, 200, "{body}");
     // A threshold beyond the served range of an unbounded law.
     let q = json!({"portfolio": portfolio, "thresholds": [10, 2000000000u64]});
     let (st, ct, body) = s.post_json("/v1/tail", &q).await;

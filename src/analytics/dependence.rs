@@ -249,7 +249,7 @@ pub fn large_portfolio_cdf(x: f64, p: f64, rho: f64) -> f64 {
 pub struct Profile {
     /// (steps: sum of u over the members, sum of u^2, alpha, beta); u = 1 for a count.
     buckets: Vec<(f64, f64, f64, f64)>,
-    /// Shift plus the Poisson rate, and the Poisson rate (its variance).
+    /// Shift plus the Poisson and compound sources' means, and their variance (independent of the factor).
     constant_mean: f64,
     constant_var: f64,
 }
@@ -291,7 +291,15 @@ impl Profile {
             let (n, u) = (g.size as f64, step(&model.group_units, i));
             buckets.push((n * u, n * u * u, a, b));
         }
-        Profile { buckets, constant_mean: model.shift as f64 + model.poisson, constant_var: model.poisson }
+        // Compound sources do not load on the factor: their mean and variance (sum of r s and of r s^2 over
+        // their parts, in steps) are the same at every z.
+        let (sp_mean, sp_var) =
+            model.scaled_poisson.iter().fold((0.0, 0.0), |(m, v), &(s, r)| (m + r * s as f64, v + r * (s * s) as f64));
+        Profile {
+            buckets,
+            constant_mean: model.shift as f64 + model.poisson + sp_mean,
+            constant_var: model.poisson + sp_var,
+        }
     }
 
     /// (mean, variance, d mean / dz) of the conditional law at z.

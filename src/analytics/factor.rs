@@ -84,6 +84,11 @@ fn bernstein(x: f64, v: f64, step: f64) -> f64 {
     }
 }
 
+/// The compound sources' mean in steps, sum of r s over their parts (it does not depend on the factor).
+fn compound_mean(model: &Model) -> f64 {
+    model.scaled_poisson.iter().map(|&(s, r)| r * s as f64).sum()
+}
+
 /// A figure known from its bound alone: in [0, bound] (or [cap - bound, cap]), given as the midpoint.
 fn pinned(low: bool, bound: f64, cap: f64) -> Value {
     let v = if low { 0.5 * bound } else { cap - 0.5 * bound };
@@ -413,14 +418,15 @@ impl Factor {
     fn layer_cap(&self, a: u64, limit: Option<u64>) -> f64 {
         let top = match self.model.support_max() {
             Some(m) => m.saturating_sub(a) as f64,
-            // E[(S - a)+ | z] <= E[S | z] <= the bounded part's largest count plus the Poisson rate.
+            // E[(S - a)+ | z] <= E[S | z] <= the bounded part's largest count plus the Poisson rate and the
+            // compound sources' mean (neither depends on z).
             None => {
                 let bounded = if self.model.weighted() {
                     self.model.lattice_width()
                 } else {
                     self.model.random_exposures_bounded()
                 };
-                (self.model.shift + bounded) as f64 + self.model.poisson
+                (self.model.shift + bounded) as f64 + self.model.poisson + compound_mean(&self.model)
             }
         };
         limit.map_or(top, |l| top.min(l as f64))
@@ -469,7 +475,13 @@ impl Factor {
     pub fn moments(&self) -> Moments {
         *self.moments.get_or_init(|| {
             let mu = self.mean;
-            let top = (self.model.random_exposures_bounded() as f64 + self.model.poisson + 1.0).max(1.0);
+            // In units the bounded part spans its lattice width; a compound source's conditional variance and
+            // third cumulant are sum r s^2 and sum r s^3 (constant in z), both below top^2 and top^3 once the
+            // latter is added (top >= 1, s >= 1).
+            let bounded =
+                if self.model.weighted() { self.model.lattice_width() } else { self.model.random_exposures_bounded() };
+            let cubes: f64 = self.model.scaled_poisson.iter().map(|&(s, r)| r * (s as f64).powi(3)).sum();
+            let top = (bounded as f64 + self.model.poisson + cubes + 1.0).max(1.0);
             let r = |k: i32| (-top.powi(k), top.powi(k));
             // v, (m - mu)^2, k3, v (m - mu), (m - mu)^3, third-abs sum, sum p^2
             let specs: Vec<Spec> = [r(1), r(2), r(1), r(2), r(3), r(1), r(1)]

@@ -46,6 +46,12 @@ pub trait Analytic {
         )])
     }
 
+    /// Whether the question answers under the one-factor model on a book with compound sources (the factor's
+    /// node pins and profile count them for its integrands; a question not yet checked there is refused).
+    fn factor_takes_compound() -> bool {
+        false
+    }
+
     /// Rules that need the validated model.
     fn check_model(_req: &Self::Request, _model: &Model) -> Result<(), Error> {
         Ok(())
@@ -87,7 +93,14 @@ fn steps<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel)
     A::check(req, limits, &mut errs);
     let inputs = A::inputs(req);
     scenario::check(&inputs.stress, &inputs.dependence, &mut errs);
-    let model = scenario::model(inputs.portfolio, &inputs.stress, &inputs.dependence, limits, errs)?;
+    let model = scenario::model(
+        inputs.portfolio,
+        &inputs.stress,
+        &inputs.dependence,
+        A::factor_takes_compound(),
+        limits,
+        errs,
+    )?;
     if model.weighted() {
         A::check_units(req).map_err(|mut v| {
             for x in v.iter_mut().filter(|x| x.pointer.is_empty()) {

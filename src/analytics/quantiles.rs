@@ -159,8 +159,8 @@ pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolera
 }
 
 /// The refusals of a question asked in loss units: a method that does not take this book's units at its place
-/// in `methods` (`tail::refused_in_units`: every method computes on the lattice; Edgeworth and the saddlepoint
-/// not yet with compound sources), and the factor model. The one place to relax when they learn.
+/// in `methods` (`tail::refused_in_units`: today every method computes on the lattice, compound sources
+/// included), and the factor model. The one place to relax when they learn.
 pub fn refuse_in_units(
     methods: &[MethodId],
     dependence: &Option<Dependence>,

@@ -198,14 +198,20 @@ pub fn model(
     spec: &PortfolioSpec,
     stress: &Option<Stress>,
     dep: &Option<Dependence>,
+    factor_compound: bool,
     limits: &ServiceLimits,
     mut errs: Vec<Violation>,
 ) -> Result<Model, Error> {
     check_ids(spec, &mut errs);
-    // The factor's integration pins conditional tails with the conditional exposures' moments (`factor`), which
-    // do not yet count compound sources: refuse the pair rather than answer with a bound that may not hold.
-    if dep.and_then(|d| d.rho()).is_some() && !spec.compound_sources.is_empty() {
-        errs.push(Violation::new("/dependence", "the one-factor model does not yet take compound sources"));
+    // The factor's pins and profile count compound sources (independent of the factor: constant conditional
+    // mean and variance, their sizes in the largest step) for the questions that say so
+    // (`Analytic::factor_takes_compound`, checked against a quadrature of Panjer's recursion in
+    // tests/http_compound.rs); the others refuse the pair rather than answer with a bound not checked there.
+    if !factor_compound && dep.and_then(|d| d.rho()).is_some() && !spec.compound_sources.is_empty() {
+        errs.push(Violation::new(
+            "/dependence",
+            "the one-factor model does not yet take compound sources for this question; /v1/tail does",
+        ));
     }
     // Under a dependence model the exposures' own factor loadings are kept (the default is its rho).
     let rho = dep.and_then(|d| d.rho()).filter(|r| r.is_finite() && (0.0..1.0).contains(r));

@@ -117,13 +117,10 @@ pub struct Tail;
 
 /// Why a method does not take this book in units, or None when it does. In units the Poisson method is the
 /// compound Poisson approximation. Edgeworth and the saddlepoint carry lumpiness terms measured on books of
-/// exposures in units (docs/accuracy.md); their coverage with compound sources is not measured yet, so those
-/// books go to the methods whose bounds are rigorous there (exact, normal, poisson) or to `auto`.
-pub fn refused_in_units(m: MethodId, compound: bool) -> Option<&'static str> {
+/// exposures in units and on books with compound sources (their cumulants in the terms; docs/accuracy.md), so
+/// every method takes every book today; `_compound` (whether the book has compound sources) stays for callers.
+pub fn refused_in_units(m: MethodId, _compound: bool) -> Option<&'static str> {
     match m {
-        MethodId::Edgeworth | MethodId::Saddlepoint if compound => Some(
-            "does not yet take compound sources (its estimated bound is not measured there); ask for exact, normal, poisson or auto",
-        ),
         MethodId::Exact
         | MethodId::Normal
         | MethodId::Poisson
@@ -165,6 +162,10 @@ impl Analytic for Tail {
         } else {
             Err(errs)
         }
+    }
+
+    fn factor_takes_compound() -> bool {
+        true
     }
 
     fn check_model(req: &TailRequest, model: &Model) -> Result<(), Error> {
