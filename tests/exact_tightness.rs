@@ -39,13 +39,15 @@ fn references() -> Vec<(u64, u64, f64)> {
     out
 }
 
-/// The claimed ceiling of bound / observed error by size (docs/accuracy.md). The observed error is floored at
-/// U = 2^-53: the reference is compared after rounding to a double, so smaller errors are not resolved.
+/// The claimed ceiling of bound / observed error by size (docs/accuracy.md: 718, 763 and 2,651 measured, the
+/// tilt's rounding counted on the odds and the tail's absolute part by the 2-norm; 976, 1,016 and 3,563 before).
+/// The observed error is floored at U = 2^-53: the reference is compared after rounding to a double, so smaller
+/// errors are not resolved.
 fn claimed_ratio(n: u64) -> f64 {
     if n <= 10_000 {
-        2e3
+        900.0
     } else {
-        5e3
+        3e3
     }
 }
 

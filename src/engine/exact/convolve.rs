@@ -28,11 +28,21 @@ pub fn product(a: &Window, b: &Window) -> Window {
     let direct_cost = (la.min(lb) as f64) * ((khi - klo + 1) as f64);
     let fft_cost = FFT_COST_FACTOR * n as f64 * (n as f64).log2().max(1.0);
     let (rel, abs, inf) = Window::after_product(a, b);
+    let l2 = Window::after_product_l2(a, b);
     let mut out = if la.min(lb) <= 16 || direct_cost <= fft_cost {
         let w = direct(&a.w, &b.w, (klo - a.lo - b.lo) as usize, (khi - a.lo - b.lo) as usize);
         let g = gamma(la.min(lb) as f64 + 1.0);
-        let mut win =
-            Window { lo: klo, w, rel: compose(rel, g), abs: abs * (1.0 + g), inf: inf * (1.0 + g), mean, var, max };
+        let mut win = Window {
+            lo: klo,
+            w,
+            rel: compose(rel, g),
+            abs: abs * (1.0 + g),
+            inf: inf * (1.0 + g),
+            l2: l2 * (1.0 + g),
+            mean,
+            var,
+            max,
+        };
         win.add_underflow_slack(direct_cost);
         win
     } else {
@@ -42,8 +52,8 @@ pub fn product(a: &Window, b: &Window) -> Window {
         let kept = end - start;
         let w: Vec<f64> = full.values[start..end].iter().map(|&x| x.max(0.0)).collect();
         // Every entry's error is at most the 2-norm of all of them; their sum at most sqrt(kept) times it.
-        let mut win = Window { lo: klo, w, rel, abs, inf, mean, var, max };
-        win.add_abs(full.l2_error * (kept as f64).sqrt(), full.l2_error);
+        let mut win = Window { lo: klo, w, rel, abs, inf, l2, mean, var, max };
+        win.add_abs_l2(full.l2_error * (kept as f64).sqrt(), full.l2_error, full.l2_error);
         win
     };
     // Whatever `keep_range` cut away is bounded by Bernstein: account for it.

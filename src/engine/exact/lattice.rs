@@ -125,7 +125,8 @@ pub fn bernoulli_block(ps: &[f64], us: &[u64], t: f64) -> Window {
     }
     let per = compose(TILT_REL, gamma(2.0));
     let rel = (1.0 + per).powi(ps.len() as i32) - 1.0;
-    let mut win = Window { lo: 0, w, rel: rel * (1.0 + 1e-12), abs: 0.0, inf: 0.0, mean, var, max: Some(width) };
+    let mut win =
+        Window { lo: 0, w, rel: rel * (1.0 + 1e-12), abs: 0.0, inf: 0.0, l2: 0.0, mean, var, max: Some(width) };
     win.add_underflow_slack(((width + 1) as usize * ps.len()) as f64);
     win
 }
@@ -142,6 +143,7 @@ fn direct_all(mut parts: Vec<Window>) -> Window {
         let (la, lb) = (acc.w.len(), b.w.len());
         let w = convolve::direct(&acc.w, &b.w, 0, la + lb - 2);
         let (rel, abs, inf) = Window::after_product(&acc, &b);
+        let l2 = Window::after_product_l2(&acc, &b);
         let g = gamma(la.min(lb) as f64 + 1.0);
         let max = match (acc.max, b.max) {
             (Some(x), Some(y)) => Some(x + y),
@@ -153,6 +155,7 @@ fn direct_all(mut parts: Vec<Window>) -> Window {
             rel: compose(rel, g),
             abs: abs * (1.0 + g),
             inf: inf * (1.0 + g),
+            l2: l2 * (1.0 + g),
             mean: acc.mean + b.mean,
             var: acc.var + b.var,
             max,
@@ -179,6 +182,7 @@ pub fn spread(c: Window, u: u64) -> Window {
         rel: c.rel,
         abs: c.abs,
         inf: c.inf,
+        l2: c.l2,
         mean: c.mean * uf,
         var: c.var * uf * uf,
         max: c.max.map(|m| m * u),

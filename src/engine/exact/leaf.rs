@@ -7,7 +7,7 @@
 //! distance from the mode.
 
 use super::window::Window;
-use crate::engine::numerics::cgf::{tilt_qr, TiltConsts, TILT_REL};
+use crate::engine::numerics::cgf::{tilt_qr, tilt_weights, TiltConsts, ODDS_LN, TILT_REL};
 use crate::engine::numerics::float::{compose, gamma, U};
 
 /// Exposures per Bernoulli leaf block. Small enough that the recursion's quadratic cost is negligible, large
@@ -33,10 +33,91 @@ pub fn bernoulli_block(ps: &[f64], c: &TiltConsts) -> Window {
     }
     let per = compose(TILT_REL, gamma(2.0));
     let rel = (1.0 + per).powi(ps.len() as i32) - 1.0;
-    let mut win =
-        Window { lo: 0, w, rel: rel * (1.0 + 1e-12), abs: 0.0, inf: 0.0, mean, var, max: Some(ps.len() as u64) };
+    let mut win = Window {
+        lo: 0,
+        w,
+        rel: rel * (1.0 + 1e-12),
+        abs: 0.0,
+        inf: 0.0,
+        l2: 0.0,
+        mean,
+        var,
+        max: Some(ps.len() as u64),
+    };
     win.add_underflow_slack(((ps.len() + 1) * ps.len()) as f64);
     win
+}
+
+/// [`bernoulli_block`] with the rounding of the tilt itself left out of `rel`, and the number of exposures
+/// for which it was left out (returned second). The window approximates the exact law of the block tilted at
+/// the computed odds b^ / a^ of [`tilt_weights`] (those exposures) and at the exact tilt (the others): the
+/// difference between that law and the exact tilted law is counted once for the whole product, by
+/// [`add_odds_error`], where it weighs |X_i - q_i| per exposure instead of a full allowance (docs/fft_bound.md,
+/// "The tilt's rounding"). What is left per exposure and entry: q^ = fl(b^ / fl(a^ + b^)) and
+/// 1 - q^ = fl(a^ / fl(a^ + b^)) are each within two roundings (one division, one sum, a factor
+/// (1 + d1) / (1 + d2)) of b^ / (a^ + b^) and a^ / (a^ + b^), and the recursion adds two more: four factors
+/// (1 + d)^(+-1) per exposure, gamma(4 m) over m exposures (Higham 2002, Lemma 3.1). An exposure whose weights
+/// are not both normal (far tilts) keeps the allowance of [`bernoulli_block`]. The values are those of
+/// [`bernoulli_block`], bit for bit (`tilt_qr` forms q and 1 - q from the same weights).
+pub fn bernoulli_block_odds(ps: &[f64], c: &TiltConsts) -> (Window, usize) {
+    let mut w = Vec::with_capacity(ps.len() + 1);
+    w.push(1.0);
+    let (mut mean, mut var) = (0.0, 0.0);
+    let mut irregular = 0usize;
+    for &p in ps {
+        let (a, b) = tilt_weights(p, c);
+        let d = a + b;
+        let (q, r) = (b / d, a / d);
+        // Both weights at least 4 times the smallest normal: a, b <= 1, so q and 1 - q stay normal too.
+        irregular += (a.min(b) < 4.0 * f64::MIN_POSITIVE) as usize;
+        mean += q;
+        var += q * r;
+        w.push(0.0);
+        for j in (1..w.len()).rev() {
+            w[j] = w[j] * r + w[j - 1] * q;
+        }
+        w[0] *= r;
+    }
+    let rel = compose(gamma(4.0 * ps.len() as f64), (1.0 + TILT_REL).powi(irregular as i32) - 1.0);
+    let mut win = Window {
+        lo: 0,
+        w,
+        rel: rel * (1.0 + 1e-12),
+        abs: 0.0,
+        inf: 0.0,
+        l2: 0.0,
+        mean,
+        var,
+        max: Some(ps.len() as u64),
+    };
+    win.add_underflow_slack(((ps.len() + 1) * ps.len()) as f64);
+    (win, ps.len() - irregular)
+}
+
+/// Relate a product that holds `m` Bernoulli exposures tilted at their computed odds ([`bernoulli_block_odds`])
+/// to the exact tilted law. Per configuration X of those exposures the two laws differ by the factor
+/// exp(sum_i (X_i - q_i) (g1_i - g0_i) - xi_i) with |g1_i - g0_i| <= ODDS_LN and 0 <= xi_i <= eta^2 <= 20 U^2,
+/// and sum_i |X_i - q_i| <= min(m, j + mu) at count j (mu the tilted mean): so every entry up to the window's
+/// top count hi is within exp(ODDS_LN min(m, hi + mu) + 20 m U^2) of the exact one (a relative error), and
+/// every other count within exp(ODDS_LN m + 20 m U^2) (which scales the absolute part; see docs/fft_bound.md).
+/// Call before the certain exposures' shift.
+pub fn add_odds_error(w: &mut Window, m: usize) {
+    if m == 0 {
+        return;
+    }
+    let m = m as f64;
+    let xi = 20.0 * U * U * m;
+    // The computed mean is within a few ulps per term of the exact tilted mean (all terms non-negative).
+    let mu = w.mean.max(0.0) * (1.0 + 1e-6) + 1.0;
+    let within = (ODDS_LN * (w.hi() as f64 + mu).min(m) + xi).exp_m1() * (1.0 + 1e-9);
+    let anywhere = (ODDS_LN * m + xi).exp_m1() * (1.0 + 1e-9);
+    // A dropped or absolute error e_j of the law at the computed odds is an error of the exact law within a
+    // factor exp(ODDS_LN m + xi); a truncated entry's error was counted as f~_j (1 + rel), hence the 1 / (1 - rel).
+    let grow = (1.0 + anywhere) / (1.0 - w.rel) * (1.0 + 1e-12);
+    w.abs *= grow;
+    w.inf *= grow;
+    w.l2 *= grow;
+    w.rel = compose(w.rel, within);
 }
 
 /// Tilted Binomial(m, p) = Binomial(m, q) over its Bernstein window.
@@ -71,7 +152,8 @@ pub fn poisson(lambda: f64, c: &TiltConsts) -> Window {
 }
 
 fn degenerate(at: u64, max: Option<u64>, ops: f64) -> Window {
-    let mut w = Window { lo: at, w: vec![1.0], rel: 0.0, abs: 1e-300, inf: 1e-300, mean: at as f64, var: 0.0, max };
+    let mut w =
+        Window { lo: at, w: vec![1.0], rel: 0.0, abs: 1e-300, inf: 1e-300, l2: 1e-300, mean: at as f64, var: 0.0, max };
     w.add_underflow_slack(ops);
     w
 }
@@ -117,7 +199,8 @@ fn ratio_window(
     let tau = 2.0 * (-super::window::TRUNC_LN).exp();
     // Normalisation: the computed sum is within `entry` + gamma(len) of the exact windowed sum 1 - tau.
     let rel = compose(compose(entry, entry + gamma(len as f64 + 1.0)), tau);
-    let mut win = Window { lo, w, rel, abs: tau * (1.0 + rel), inf: tau * (1.0 + rel), mean, var, max };
+    let mut win =
+        Window { lo, w, rel, abs: tau * (1.0 + rel), inf: tau * (1.0 + rel), l2: tau * (1.0 + rel), mean, var, max };
     win.add_underflow_slack(2.0 * len as f64);
     win
 }
@@ -125,6 +208,26 @@ fn ratio_window(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The block at the computed odds holds the same values as the plain block, bit for bit, and its bound
+    /// (without the odds, counted once per product) is below the plain block's at every tilt tried; the plain
+    /// block is checked against exact rationals in tests/exact_rational.rs.
+    #[test]
+    fn odds_block_has_the_same_values_and_a_smaller_bound() {
+        let ps: Vec<f64> = (0..BLOCK).map(|i| 0.001 + 0.03 * i as f64).collect();
+        for t in [-30.0, -2.0, -0.1, 0.0, 0.05, 1.0, 40.0] {
+            let c = TiltConsts::new(t);
+            let old = bernoulli_block(&ps, &c);
+            let (new, regular) = bernoulli_block_odds(&ps, &c);
+            assert_eq!(old.w, new.w, "t = {t}");
+            assert_eq!(regular, ps.len(), "t = {t}");
+            assert!(new.rel < old.rel, "t = {t}: {} vs {}", new.rel, old.rel);
+        }
+        // Far enough that e^-t underflows: the weights are not normal and the old allowance is kept.
+        let (far, regular) = bernoulli_block_odds(&ps, &TiltConsts::new(720.0));
+        assert!(regular < ps.len());
+        assert!(far.rel >= (1.0 + TILT_REL).powi((ps.len() - regular) as i32) - 1.0);
+    }
 
     #[test]
     fn binomial_window_matches_statrs() {

@@ -77,12 +77,16 @@ pub fn tilted(model: &Model, t: f64) -> Tilted {
     let c = TiltConsts::new(t);
     let mut parts: Vec<Window> =
         Vec::with_capacity(model.bernoulli.len().div_ceil(leaf::BLOCK) + model.binomials.len() + 1);
+    // Exposures whose tilt's rounding is counted on their odds, once for the whole product.
+    let mut odds = 0usize;
     for (i, ch) in model.bernoulli.chunks(leaf::BLOCK).enumerate() {
         // A stopped computation's result is thrown away: a point mass keeps what follows well defined.
         if i % 1024 == 0 && interrupt::requested() {
             return Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default() };
         }
-        parts.push(leaf::bernoulli_block(ch, &c));
+        let (part, at_odds) = leaf::bernoulli_block_odds(ch, &c);
+        parts.push(part);
+        odds += at_odds;
     }
     for (i, b) in model.binomials.iter().enumerate() {
         if i % 1024 == 0 && interrupt::requested() {
@@ -94,6 +98,7 @@ pub fn tilted(model: &Model, t: f64) -> Tilted {
         parts.push(leaf::poisson(model.poisson, &c));
     }
     let mut window = convolve::product_all(parts);
+    leaf::add_odds_error(&mut window, odds);
     window.lo += model.shift;
     window.mean += model.shift as f64;
     window.max = window.max.map(|m| m + model.shift);
@@ -239,7 +244,15 @@ fn tail_from(law: &Tilted, job: &Job) -> Value {
     } else {
         f64::INFINITY
     };
-    let abs = w.abs.min(w.inf * weights);
+    // And at most ||e||_2 times the 2-norm of the weights, (1 / (1 - e^-2|t|))^(1/2) (Cauchy-Schwarz).
+    let weights2 = if job.point {
+        1.0
+    } else if t != 0.0 {
+        up(up(1.0 / -(-2.0 * t.abs()).exp_m1()).sqrt()) * (1.0 + 1e-12)
+    } else {
+        f64::INFINITY
+    };
+    let abs = w.abs.min(w.inf * weights).min(w.l2 * weights2);
     let tail = finish(law, x, sum, dsum, terms, w.rel, abs);
     if !job.complement {
         return tail;

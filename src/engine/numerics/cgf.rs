@@ -102,14 +102,27 @@ pub fn tilt(p: f64, c: &TiltConsts) -> Tilt {
 /// Only (q, 1 - q) of [`tilt`], for the hot loops that do not need phi.
 #[inline]
 pub fn tilt_qr(p: f64, c: &TiltConsts) -> (f64, f64) {
+    let (a, b) = tilt_weights(p, c);
+    let d = a + b;
+    (b / d, a / d)
+}
+
+/// The unnormalised tilted weights (a, b) of 0 and 1, proportional to (1 - p, p e^t): ((1 - p) e^-t, p) for
+/// t > 0 and (1 - p, p e^t) otherwise, so that neither overflows; q = b / (a + b) and 1 - q = a / (a + b) as
+/// [`tilt_qr`] forms them. Their ratio b / a is within [`ODDS_LN`] (in logarithm) of the exact odds.
+#[inline]
+pub fn tilt_weights(p: f64, c: &TiltConsts) -> (f64, f64) {
     if c.t > 0.0 {
-        let d = p + (1.0 - p) * c.emt; // M e^-t
-        (p / d, (1.0 - p) * c.emt / d)
+        ((1.0 - p) * c.emt, p)
     } else {
-        let d = (1.0 - p) + p * c.et; // M
-        (p * c.et / d, (1.0 - p) / d)
+        (1.0 - p, p * c.et)
     }
 }
+
+/// Bound on |ln((b^ / a^) / (b / a))| for the computed weights of [`tilt_weights`] while both are normal: the
+/// roundings of 1 - p and of one product (U each) and e^(+-t) at 1 ulp (2 U), on one side of the ratio or split
+/// between both, so |ln| <= -2 ln(1 - U) - ln(1 - 2 U) = 4 U + O(U^2); the factor covers the O(U^2).
+pub const ODDS_LN: f64 = 4.0 * super::float::U * (1.0 + 1e-9);
 
 /// Relative error bound of each of q, 1 - q from `tilt` (libm at 1 ulp plus the roundings of the formula).
 pub const TILT_REL: f64 = 8.0 * super::float::U;
