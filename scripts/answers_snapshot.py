@@ -59,7 +59,9 @@ def corpus():
     c += [
         ("tail-units", "/v1/tail", {"portfolio": units, "thresholds": [0, 3, 4, 60, 61, 300, 405], "methods": ["exact", "normal"]}, {}),
         ("tail-units-sides", "/v1/tail", {"portfolio": units, "thresholds": [20, 21], "side": "point", "stress": {"odds_factor": 2}}, {}),
-        ("bad-units", "/v1/distribution", {"portfolio": units}, {}),
+        ("units-distribution", "/v1/distribution", {"portfolio": units}, {}),
+        ("bad-units", "/v1/contributions", {"portfolio": units, "threshold": 3,
+                                           "dependence": {"model": "one_factor_gaussian", "rho": 0.2}}, {}),
     ]
     bad = [
         ("bad-tail-thr", "/v1/tail", {"portfolio": P, "thresholds": []}),
