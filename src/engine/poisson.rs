@@ -61,11 +61,24 @@ impl PoissonApprox {
     fn estimate_compound(prep: &Prepared, queries: &[(u64, Side)]) -> Vec<Estimate> {
         let start = std::time::Instant::now();
         let approx = PoissonApprox::compound_model(prep.model);
+        PoissonApprox::answers(prep, &approx, PoissonApprox::le_cam_bound(prep), queries, start)
+    }
+
+    /// The approximating law's values for the queries, each with `bound` (the approximation's own distance to
+    /// the portfolio's law) added to the exact engine's bound. Where the portfolio's own support already decides
+    /// the answer (exactly 0 or 1) the approximation has nothing to add; elsewhere `approx` is evaluated by the
+    /// exact engine.
+    fn answers(
+        prep: &Prepared,
+        approx: &Model,
+        bound: f64,
+        queries: &[(u64, Side)],
+        start: std::time::Instant,
+    ) -> Vec<Estimate> {
         let known: Vec<Option<f64>> = queries.iter().map(|&(k, side)| exact::trivial(prep.model, k, side)).collect();
         let open: Vec<(u64, Side)> = queries.iter().zip(&known).filter(|(_, t)| t.is_none()).map(|(q, _)| *q).collect();
-        let (vals, _) = exact::evaluate(&approx, &Moments::of(&approx), &open);
+        let (vals, _) = exact::evaluate(approx, &Moments::of(approx), &open);
         let mut vals = vals.into_iter();
-        let bound = PoissonApprox::le_cam_bound(prep);
         let per = start.elapsed().as_secs_f64() * 1e6 / queries.len().max(1) as f64;
         known
             .iter()
@@ -96,29 +109,7 @@ impl TailMethod for PoissonApprox {
         let lam = if lam < 1e-200 { 0.0 } else { lam };
         let approx =
             Model { shift: prep.model.shift, poisson: lam, exposures: prep.model.exposures, ..Model::default() };
-        // Where the portfolio's own support already decides the answer (exactly 0 or 1) the approximation has
-        // nothing to add; elsewhere the Poisson law is evaluated by the exact engine.
-        let known: Vec<Option<f64>> = queries.iter().map(|&(k, side)| exact::trivial(prep.model, k, side)).collect();
-        let open: Vec<(u64, Side)> = queries.iter().zip(&known).filter(|(_, t)| t.is_none()).map(|(q, _)| *q).collect();
-        let (vals, _) = exact::evaluate(&approx, &Moments::of(&approx), &open);
-        let mut vals = vals.into_iter();
-        let bound = PoissonApprox::bound(prep);
-        let per = start.elapsed().as_secs_f64() * 1e6 / queries.len().max(1) as f64;
-        known
-            .iter()
-            .map(|t| {
-                let (p, ln_p, err) = match t {
-                    Some(p) => (*p, p.ln(), 0.0),
-                    None => {
-                        let v = vals.next().expect("one value per open query");
-                        (v.value, v.ln_value, (bound + v.abs_err).min(1.0))
-                    }
-                };
-                let mut e = Estimate::new(MethodId::Poisson, p, ln_p, err, BoundKind::Rigorous, start);
-                e.elapsed_us = per;
-                e
-            })
-            .collect()
+        PoissonApprox::answers(prep, &approx, PoissonApprox::bound(prep), queries, start)
     }
 }
 
