@@ -25,6 +25,22 @@ fn random_model(rng: &mut ChaCha8Rng) -> Model {
     Model::from_parts(&ps, &groups, lam)
 }
 
+/// The thresholds both coverage tests ask of a random portfolio: the mean and -3, -1, 1, 3 and 6 standard
+/// deviations from it, and both ends of the support, all on one side (the case number picks it in turn).
+fn spread_queries(model: &Model, prep: &Prepared, case: usize) -> (Side, Vec<(u64, Side)>) {
+    let (mean, sd) = (prep.moments.mean, prep.moments.sd());
+    let mut ks: Vec<u64> =
+        [-3.0, -1.0, 0.0, 1.0, 3.0, 6.0].iter().map(|z| (mean + z * sd).round().max(0.0) as u64).collect();
+    ks.push(model.support_min());
+    if let Some(m) = model.support_max() {
+        ks.push(m);
+    }
+    ks.sort();
+    ks.dedup();
+    let side = [Side::Upper, Side::Lower, Side::Point][case % 3];
+    (side, ks.iter().map(|&k| (k, side)).collect())
+}
+
 /// Bound coverage over 10,000 random portfolios: every rigorous bound of every method, at thresholds across the
 /// support and every side, compared with the exact value (whose own error is added to the allowance).
 #[test]
@@ -34,17 +50,7 @@ fn rigorous_bounds_are_never_violated() {
     for case in 0..10_000 {
         let model = random_model(&mut rng);
         let prep = Prepared::new(&model);
-        let (mean, sd) = (prep.moments.mean, prep.moments.sd());
-        let mut ks: Vec<u64> =
-            [-3.0, -1.0, 0.0, 1.0, 3.0, 6.0].iter().map(|z| (mean + z * sd).round().max(0.0) as u64).collect();
-        ks.push(model.support_min());
-        if let Some(m) = model.support_max() {
-            ks.push(m);
-        }
-        ks.sort();
-        ks.dedup();
-        let side = [Side::Upper, Side::Lower, Side::Point][case % 3];
-        let qs: Vec<(u64, Side)> = ks.iter().map(|&k| (k, side)).collect();
+        let (side, qs) = spread_queries(&model, &prep, case);
         let exact = engine::run(MethodId::Exact, &prep, &qs, None);
         for id in [MethodId::Normal, MethodId::Poisson] {
             for (e, x) in engine::run(id, &prep, &qs, None).iter().zip(&exact) {
@@ -77,17 +83,8 @@ fn estimated_bounds_cover_the_error_in_at_least_99_percent_of_cases() {
     for case in 0..10_000 {
         let model = random_model(&mut rng);
         let prep = Prepared::new(&model);
+        let (side, qs) = spread_queries(&model, &prep, case);
         let (mean, sd) = (prep.moments.mean, prep.moments.sd());
-        let mut ks: Vec<u64> =
-            [-3.0, -1.0, 0.0, 1.0, 3.0, 6.0].iter().map(|z| (mean + z * sd).round().max(0.0) as u64).collect();
-        ks.push(model.support_min());
-        if let Some(m) = model.support_max() {
-            ks.push(m);
-        }
-        ks.sort();
-        ks.dedup();
-        let side = [Side::Upper, Side::Lower, Side::Point][case % 3];
-        let qs: Vec<(u64, Side)> = ks.iter().map(|&k| (k, side)).collect();
         let exact = engine::run(MethodId::Exact, &prep, &qs, None);
         for (id, name) in [(MethodId::Edgeworth, "edgeworth"), (MethodId::Saddlepoint, "saddlepoint")] {
             for ((e, x), q) in engine::run(id, &prep, &qs, None).iter().zip(&exact).zip(&qs) {

@@ -133,6 +133,28 @@ impl Tally {
         self.covered as f64 / self.n.max(1) as f64
     }
 
+    /// Prints the coverage of one method, overall and by side (and each miss with UNITS_DEBUG set).
+    fn report(&mut self, id: MethodId) {
+        let median = self.median_ratio();
+        eprintln!(
+            "{id:?}: {} of {} covered ({:.3}%), median bound/error {median:.3e}, worst miss error/bound {:.2}",
+            self.covered,
+            self.n,
+            100.0 * self.rate(),
+            self.worst_miss
+        );
+        for (name, (n, c, r)) in ["upper", "lower", "point"].iter().zip(self.sides.iter_mut()) {
+            r.sort_by(f64::total_cmp);
+            let med = r.get(r.len() / 2).copied().unwrap_or(f64::NAN);
+            eprintln!("  {name}: {c} of {n} covered, median bound/error {med:.3e}");
+        }
+        if std::env::var("UNITS_DEBUG").is_ok() {
+            for m in &self.misses {
+                eprintln!("  MISS {m}");
+            }
+        }
+    }
+
     fn median_ratio(&mut self) -> f64 {
         self.ratios.sort_by(f64::total_cmp);
         self.ratios.get(self.ratios.len() / 2).copied().unwrap_or(f64::NAN)
@@ -207,24 +229,7 @@ fn bounds_cover_the_error_on_random_books_in_units() {
         }
     }
     for (id, t) in methods.iter().zip(tallies.iter_mut()) {
-        let median = t.median_ratio();
-        eprintln!(
-            "{id:?}: {} of {} covered ({:.3}%), median bound/error {median:.3e}, worst miss error/bound {:.2}",
-            t.covered,
-            t.n,
-            100.0 * t.rate(),
-            t.worst_miss
-        );
-        for (name, (n, c, r)) in ["upper", "lower", "point"].iter().zip(t.sides.iter_mut()) {
-            r.sort_by(f64::total_cmp);
-            let med = r.get(r.len() / 2).copied().unwrap_or(f64::NAN);
-            eprintln!("  {name}: {c} of {n} covered, median bound/error {med:.3e}");
-        }
-        if std::env::var("UNITS_DEBUG").is_ok() {
-            for m in &t.misses {
-                eprintln!("  MISS {m}");
-            }
-        }
+        t.report(*id);
     }
     eprintln!("exact against the naive recursion: {exact_checked} values");
     assert!(exact_checked > 5000, "{exact_checked}");
@@ -372,24 +377,7 @@ fn estimated_bounds_cover_the_error_on_random_books_with_compound_sources() {
         }
     }
     for (id, t) in methods.iter().zip(tallies.iter_mut()) {
-        let median = t.median_ratio();
-        eprintln!(
-            "{id:?}: {} of {} covered ({:.3}%), median bound/error {median:.3e}, worst miss error/bound {:.2}",
-            t.covered,
-            t.n,
-            100.0 * t.rate(),
-            t.worst_miss
-        );
-        for (name, (n, c, r)) in ["upper", "lower", "point"].iter().zip(t.sides.iter_mut()) {
-            r.sort_by(f64::total_cmp);
-            let med = r.get(r.len() / 2).copied().unwrap_or(f64::NAN);
-            eprintln!("  {name}: {c} of {n} covered, median bound/error {med:.3e}");
-        }
-        if std::env::var("UNITS_DEBUG").is_ok() {
-            for m in &t.misses {
-                eprintln!("  MISS {m}");
-            }
-        }
+        t.report(*id);
     }
     for (id, t) in methods.iter().zip(&tallies) {
         let want = if *id == MethodId::Normal { 1.0 } else { 0.99 };
