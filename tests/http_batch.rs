@@ -221,16 +221,8 @@ async fn eval_on_a_file_answers_as_the_http_batch_does() {
 
 #[test]
 fn eval_reads_standard_input_and_fails_only_on_io_errors() {
-    use std::io::Write;
     let (input, want) = mixed_batch();
-    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_tailtally"))
-        .args(["eval", "-"])
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    child.stdin.take().unwrap().write_all(input.as_bytes()).unwrap();
-    let out = child.wait_with_output().unwrap();
+    let out = common::eval_stdin(&input);
     assert!(out.status.success(), "problem lines are answers, not failures");
     let got = lines(std::str::from_utf8(&out.stdout).unwrap());
     let ids: Vec<&Value> = got.iter().map(|v| &v["id"]).collect();

@@ -295,15 +295,7 @@ async fn a_layers_batch_line_and_eval_answer_in_units_as_the_route() {
     let truth = layer(13, Some(40));
     assert!((want["layers"][0]["expected_count"].as_f64().unwrap() - truth).abs() <= 1e-13 * truth);
     // `eval` on standard input: the same line.
-    use std::io::Write;
-    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_tailtally"))
-        .args(["eval", "-"])
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    child.stdin.take().unwrap().write_all(input.as_bytes()).unwrap();
-    let out = child.wait_with_output().unwrap();
+    let out = common::eval_stdin(&input);
     assert!(out.status.success());
     let cli: serde_json::Value =
         serde_json::from_str(String::from_utf8(out.stdout).unwrap().lines().next().unwrap()).unwrap();

@@ -82,6 +82,19 @@ pub fn assert_problem(status: u16, ct: &str, body: &Value, want: u16, pointer: O
 
 /// The real binary as a child process, for what only a process shows: signals, exit status, the listener.
 /// Its JSON log lines (stderr) are collected by a thread so that the pipe never fills.
+/// Runs `tailtally eval -` with `input` on its standard input and returns what it printed and its status.
+pub fn eval_stdin(input: &str) -> std::process::Output {
+    use std::io::Write;
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_tailtally"))
+        .args(["eval", "-"])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    child.stdin.take().unwrap().write_all(input.as_bytes()).unwrap();
+    child.wait_with_output().unwrap()
+}
+
 pub struct Process {
     pub child: std::process::Child,
     pub addr: std::net::SocketAddr,
