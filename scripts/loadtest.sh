@@ -6,6 +6,7 @@
 #
 #   scripts/loadtest.sh                 # DURATION=20 by default
 #   DURATION=60 THREADS=2 scripts/loadtest.sh
+#   NO_BUILD=1 scripts/loadtest.sh      # the release binary as it is (scripts/serve.sh starts it)
 #
 # Needs wrk (Debian: apt-get install wrk) and python3 (to write the request bodies).
 set -euo pipefail
@@ -21,16 +22,7 @@ if [ "$THREADS" -gt "$CONNS" ]; then THREADS=$CONNS; fi
 
 command -v wrk >/dev/null || { echo "wrk is missing: apt-get install -y wrk" >&2; exit 2; }
 
-nice -n 10 cargo build --release --locked --bin tailtally
-BIN=target/release/tailtally
-
-WORK=$(mktemp -d)
-SERVER_PID=
-cleanup() {
-    if [ -n "$SERVER_PID" ] && kill -0 "$SERVER_PID" 2>/dev/null; then kill -TERM "$SERVER_PID"; wait "$SERVER_PID" || true; fi
-    rm -rf "$WORK"
-}
-trap cleanup EXIT
+source scripts/serve.sh
 
 python3 - "$WORK" <<'PY'
 import json, random, sys
@@ -70,15 +62,7 @@ function done(summary, latency, requests)
 end
 LUA
 
-"$BIN" --listen 127.0.0.1:0 --log-format json 2>"$WORK/server.log" &
-SERVER_PID=$!
-ADDR=
-for _ in $(seq 1 100); do
-    ADDR=$(grep -o '"addr":"[^"]*"' "$WORK/server.log" | head -1 | cut -d'"' -f4 || true)
-    [ -n "$ADDR" ] && break
-    sleep 0.1
-done
-[ -n "$ADDR" ] || { echo "the server did not start:"; cat "$WORK/server.log"; exit 1; }
+start_server
 URL="http://$ADDR/v1/tail"
 rss() { awk '/^(VmRSS|VmHWM)/ {printf "%s %s %s  ", $1, $2, $3}' "/proc/$SERVER_PID/status"; }
 

@@ -1,9 +1,12 @@
 # Sourced by the scripts that test the running service (schemathesis.sh, acceptance.sh, python_client.sh):
 # build the binary for PROFILE (release by default; NO_BUILD=1 skips the build), a work folder removed on
 # exit, and `start_server FLAGS...`, which starts it on a free loopback port and sets SERVER_PID and ADDR
-# (read from its first JSON log line). The server is stopped on exit.
+# (read from its first JSON log line), and `stop_server`. The server is stopped on exit. A caller that sets BIN
+# itself (a binary to measure) gets no build.
 PROFILE=${PROFILE:-release}
-if [ "$PROFILE" = release ]; then
+if [ -n "${BIN:-}" ]; then
+    :
+elif [ "$PROFILE" = release ]; then
     [ -n "${NO_BUILD:-}" ] || nice -n 10 cargo build --release --locked --bin tailtally
     BIN=target/release/tailtally
 else
@@ -13,8 +16,12 @@ fi
 
 WORK=$(mktemp -d)
 SERVER_PID=
-cleanup() {
+stop_server() {
     if [ -n "$SERVER_PID" ] && kill -0 "$SERVER_PID" 2>/dev/null; then kill -TERM "$SERVER_PID"; wait "$SERVER_PID" || true; fi
+    SERVER_PID=
+}
+cleanup() {
+    stop_server
     rm -rf "$WORK"
 }
 trap cleanup EXIT

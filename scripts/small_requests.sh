@@ -16,13 +16,7 @@ if [ $# -eq 0 ]; then
     nice -n 10 cargo build --release --locked --bin tailtally
     set -- target/release/tailtally
 fi
-WORK=$(mktemp -d)
-PID=
-cleanup() {
-    if [ -n "$PID" ] && kill -0 "$PID" 2>/dev/null; then kill -TERM "$PID"; wait "$PID" || true; fi
-    rm -rf "$WORK"
-}
-trap cleanup EXIT
+BIN=$1 source scripts/serve.sh
 python3 - "$WORK/tail.json" <<'PY'
 import json, random, sys
 rng = random.Random(7)
@@ -40,13 +34,10 @@ rate() { wrk -t2 -c32 -d"${DURATION}s" "$@" | awk '/Requests\/sec/ {print $2}'; 
 echo "| binary | /healthz req/s | tail req/s | ratio | inline answers |"
 echo "|---|---|---|---|---|"
 for BIN in "$@"; do
-    PORT=$(python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])')
-    "$BIN" serve --listen "127.0.0.1:$PORT" >"$WORK/log" 2>&1 &
-    PID=$!
-    for _ in $(seq 100); do curl -sf "http://127.0.0.1:$PORT/healthz" >/dev/null && break; sleep 0.1; done
-    H=$(rate "http://127.0.0.1:$PORT/healthz")
-    T=$(BODY="$WORK/tail.json" rate -s "$WORK/post.lua" "http://127.0.0.1:$PORT/v1/tail")
-    I=$(curl -s "http://127.0.0.1:$PORT/metrics" | awk '/^tailtally_questions_inline_total/ {print $2}')
+    start_server
+    H=$(rate "http://$ADDR/healthz")
+    T=$(BODY="$WORK/tail.json" rate -s "$WORK/post.lua" "http://$ADDR/v1/tail")
+    I=$(curl -s "http://$ADDR/metrics" | awk '/^tailtally_questions_inline_total/ {print $2}')
     echo "| $BIN | $H | $T | $(python3 -c "print(f'{$T/$H:.2f}')") | ${I:-n/a} |"
-    kill -TERM "$PID"; wait "$PID" || true; PID=
+    stop_server
 done
