@@ -12,12 +12,11 @@ Standard library only.
 import json
 import os
 import re
-import socket
-import subprocess
 import sys
-import time
 import urllib.error
 import urllib.request
+
+from served import Server
 
 ELAPSED = re.compile(rb'"elapsed_us":[-0-9.eE+]+')
 
@@ -98,27 +97,12 @@ BATCH = "\n".join([
 ]) + "\n"
 
 
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    port = s.getsockname()[1]
-    s.close()
-    return port
-
-
 def main():
     binary, out = sys.argv[1], sys.argv[2]
     os.makedirs(out, exist_ok=True)
-    port = free_port()
-    proc = subprocess.Popen([binary, "--listen", f"127.0.0.1:{port}"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    base = f"http://127.0.0.1:{port}"
+    server = Server(binary)
+    base = server.base
     try:
-        for _ in range(200):
-            try:
-                urllib.request.urlopen(base + "/healthz", timeout=1)
-                break
-            except Exception:
-                time.sleep(0.05)
         items = [(n, p, json.dumps(b).encode(), {"Content-Type": "application/json", **h}) for n, p, b, h in corpus()]
         items.append(("batch", "/v1/batch", BATCH.encode(), {"Content-Type": "application/x-ndjson"}))
         for name, path, body, headers in items:
@@ -136,8 +120,7 @@ def main():
                 open(os.path.join(out, "openapi.json"), "wb").write(r.read())
         print(f"{len(items) + 1} answers written to {out}")
     finally:
-        proc.terminate()
-        proc.wait()
+        server.stop()
 
 
 if __name__ == "__main__":

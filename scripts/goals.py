@@ -20,13 +20,11 @@ that both see the same load. The book is p_i ~ U(0, 0.2) from numpy.random.defau
 Needs numpy, scipy (for the scipy row) and wrk (for the wrk row; apt-get install wrk). The machine's other
 load moves every number: read the ratios of one run, and say what else was running.
 """
-import http.client
 import json
 import math
 import os
 import random
 import re
-import socket
 import statistics
 import subprocess
 import sys
@@ -34,53 +32,9 @@ import tempfile
 import time
 
 import numpy as np
+from served import Server
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-
-
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    port = s.getsockname()[1]
-    s.close()
-    return port
-
-
-class Server:
-    def __init__(self, binary):
-        self.binary = binary
-        self.port = free_port()
-        self.log = tempfile.TemporaryFile()
-        self.proc = subprocess.Popen([binary, "serve", "--listen", f"127.0.0.1:{self.port}"],
-                                     stdout=self.log, stderr=self.log)
-        for _ in range(200):
-            try:
-                self.get("/healthz")
-                break
-            except OSError:
-                time.sleep(0.05)
-        self.conn = http.client.HTTPConnection("127.0.0.1", self.port, timeout=600)
-
-    def get(self, path):
-        c = http.client.HTTPConnection("127.0.0.1", self.port, timeout=5)
-        c.request("GET", path)
-        r = c.getresponse()
-        body = r.read()
-        c.close()
-        return body
-
-    def post(self, path, body, ctype="application/json"):
-        """(seconds, status, answer bytes) over the keep-alive connection."""
-        t = time.perf_counter()
-        self.conn.request("POST", path, body=body, headers={"Content-Type": ctype})
-        r = self.conn.getresponse()
-        out = r.read()
-        return time.perf_counter() - t, r.status, out
-
-    def stop(self):
-        self.conn.close()
-        self.proc.terminate()
-        self.proc.wait()
 
 
 def book(n, seed=42):

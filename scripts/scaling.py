@@ -15,28 +15,18 @@ engine, answer) over one keep-alive connection, both medians (7 runs up to 10^5 
 /proc/PID/clear_refs; needs Linux and the right to write there, else the peak so far). Standard library and
 numpy only. The machine's other load moves the times: say what ran beside.
 """
-import http.client
 import math
 import os
 import re
-import socket
 import statistics
 import subprocess
 import sys
-import tempfile
 import time
 
 import numpy as np
+from served import Server
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-
-
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    port = s.getsockname()[1]
-    s.close()
-    return port
 
 
 def vm(pid, key):
@@ -74,18 +64,9 @@ def main():
     else:
         subprocess.run(["cargo", "build", "--release", "--locked", "--bin", "tailtally"], cwd=ROOT, check=True)
         binary = os.path.join(ROOT, "target/release/tailtally")
-    port = free_port()
-    log = tempfile.TemporaryFile()
-    proc = subprocess.Popen([binary, "serve", "--listen", f"127.0.0.1:{port}"], stdout=log, stderr=log)
-    conn = None
+    server = Server(binary, timeout=900)
+    proc, conn = server.proc, server.conn
     try:
-        for _ in range(200):
-            try:
-                socket.create_connection(("127.0.0.1", port), timeout=1).close()
-                break
-            except OSError:
-                time.sleep(0.05)
-        conn = http.client.HTTPConnection("127.0.0.1", port, timeout=900)
         can_reset = reset_peak(proc.pid)
 
         def case(b, repeats):
@@ -147,10 +128,7 @@ def main():
                 continue
             print(f"| {m:,} | {eng:.2f} | {tot:.2f} | {eng * 1000 / m:.2f} | {rss:.0f} |", flush=True)
     finally:
-        if conn:
-            conn.close()
-        proc.terminate()
-        proc.wait()
+        server.stop()
 
 
 if __name__ == "__main__":
