@@ -24,6 +24,7 @@ pub mod fft;
 pub mod lattice;
 pub mod leaf;
 pub mod leave_one_out;
+pub mod small;
 pub mod window;
 
 use crate::engine::interrupt;
@@ -144,6 +145,21 @@ pub fn evaluate(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (V
 /// cluster: a tail k tilted sd from the tilt's centre carries the window's absolute error divided by a tilted
 /// mass of about exp(-k^2 / 2), 3e-4 at the ends of a cluster of 8 sd, so relative bounds of about 1e-12 at n = 10^5.
 pub fn evaluate_reach(model: &Model, moments: &Moments, queries: &[(u64, Side)], reach: f64) -> (Vec<Value>, Work) {
+    evaluate_with(model, moments, queries, reach, true)
+}
+
+/// [`evaluate`] by tilted laws only, even for a small book: for benchmarks and cross-checks of `small`.
+pub fn evaluate_tilted(model: &Model, moments: &Moments, queries: &[(u64, Side)]) -> (Vec<Value>, Work) {
+    evaluate_with(model, moments, queries, 1.5, false)
+}
+
+fn evaluate_with(
+    model: &Model,
+    moments: &Moments,
+    queries: &[(u64, Side)],
+    reach: f64,
+    recursion: bool,
+) -> (Vec<Value>, Work) {
     let mut out = vec![Value::certain(0.0); queries.len()];
     let mut jobs = Vec::new();
     let mean = moments.mean;
@@ -169,6 +185,17 @@ pub fn evaluate_reach(model: &Model, moments: &Moments, queries: &[(u64, Side)],
         jobs.push(job);
     }
     let mut work = Work::default();
+    // Small books: one recursion answers every threshold (`small`), unless a value is too small for it.
+    if recursion && !jobs.is_empty() && small::takes(model) {
+        let open: Vec<(u64, Side)> = jobs.iter().map(|j| queries[j.idx]).collect();
+        if let Some(vals) = small::evaluate(model, &open) {
+            for (job, v) in jobs.iter().zip(vals) {
+                out[job.idx] = v;
+            }
+            work.max_window = model.random_exposures_bounded() as usize + 1;
+            return (out, work);
+        }
+    }
     for dir in [Dir::Up, Dir::Down] {
         let mut js: Vec<Job> = jobs.iter().copied().filter(|j| j.dir == dir).collect();
         js.sort_by_key(|j| j.target);
