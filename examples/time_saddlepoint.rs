@@ -41,8 +41,8 @@ fn main() {
         black_box(Saddlepoint.estimate(&prep, &[(k, Side::Upper)]));
     });
     let x = k as f64;
-    // The method's tolerance (`saddlepoint::solve_tol`).
-    let tol = 1e-10 * m.sd().max(1.0);
+    // The method's tolerance.
+    let tol = 1e-12 * m.sd().max(1.0);
     let t = cgf::solve(&model, m, x, tol).t;
     let solve = median(r, || {
         black_box(cgf::solve(&model, m, x, tol));

@@ -49,14 +49,6 @@ fn lattice_rel(rel: f64, l3: f64, l4: f64) -> f64 {
     }
 }
 
-/// The accepted |K'(s) - x| of the saddlepoint solve. It moves s by at most tol / K''(s): at z standard
-/// deviations from the mean about 1e-10 / z relative, far below the method's own error, and it is about the
-/// rounding error of the computed K' itself at a million exposures (sqrt(n) U K'), so asking for less would
-/// only spend passes over the exposures on rounding noise (each pass is most of the method's time).
-fn solve_tol(sd: f64) -> f64 {
-    1e-10 * sd.max(1.0)
-}
-
 /// The rigorous envelope of a probability p whose truth lies in [0, c]: the largest distance to p.
 fn envelope(p: f64, c: f64) -> f64 {
     p.max(c - p)
@@ -67,7 +59,7 @@ fn envelope(p: f64, c: f64) -> f64 {
 fn tail(prep: &Prepared, x: f64, up: bool) -> Option<(f64, f64, f64)> {
     let model = prep.model;
     let sd = prep.moments.sd();
-    let c: CgfValue = cgf::solve(model, &prep.moments, x, solve_tol(sd));
+    let c: CgfValue = cgf::solve(model, &prep.moments, x, 1e-12 * sd.max(1.0));
     let s = c.t;
     if s.abs() < 1e-7 {
         return None;
@@ -105,7 +97,7 @@ fn point(prep: &Prepared, k: u64) -> (f64, f64, f64) {
         Some(m) => (k as f64).clamp(lo, m as f64 - 0.25),
         None => (k as f64).max(lo),
     };
-    let c = cgf::solve(model, &prep.moments, x, solve_tol(prep.moments.sd()));
+    let c = cgf::solve(model, &prep.moments, x, 1e-12 * prep.moments.sd().max(1.0));
     let s = c.t;
     let (ln_scale, k_err) = cgf::scale_by_products(model, s).ln_scale(s, k as f64);
     let l3 = c.k3 / c.k2.powf(1.5);

@@ -184,13 +184,10 @@ pub fn scale(model: &Model, t: f64) -> Scale {
     finish_scale(model, &c, phi, err, b)
 }
 
-/// Factors per block of [`scale_by_products`], in lanes of 4 independent products. The bound below is
-/// 6 U per factor whatever the block's length; a longer block takes fewer logarithms (at 16 they were a third
-/// of the pass) and leaves the normal range sooner only for factors far below 1/2 (64 factors of 1e-4 still
-/// stay above 1e-280), where the block is redone exposure by exposure.
-const PRODUCT_BLOCK: usize = 64;
+/// Factors per block of [`scale_by_products`], in lanes of 4 independent products.
+const PRODUCT_BLOCK: usize = 16;
 
-/// [`scale`] with one logarithm per 64 exposures instead of one per exposure: the logarithm of a product of
+/// [`scale`] with one logarithm per 16 exposures instead of one per exposure: the logarithm of a product of
 /// the factors M_i e^(-b_i t) in (0, 2]. It is the hot loop of the saddlepoint method, where it is ~5 times
 /// faster, and it is accurate to O(n U) absolutely instead of O(U sum |phi_i|): the bound reported covers it.
 /// Each factor carries at most 4 roundings relative to itself (e^t's 1 ulp included: both of its terms are
