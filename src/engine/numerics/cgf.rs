@@ -192,43 +192,155 @@ const PRODUCT_BLOCK: usize = 16;
 /// faster, and it is accurate to O(n U) absolutely instead of O(U sum |phi_i|): the bound reported covers it.
 /// Each factor carries at most 4 roundings relative to itself (e^t's 1 ulp included: both of its terms are
 /// non-negative) and each product one more, so ln of a block's product is within 5 PRODUCT_BLOCK U of the
-/// exact sum of the logarithms, plus the logarithm's own ulp; the bound takes 6 PRODUCT_BLOCK U + 2 U |ln|. A block whose product
-/// leaves the normal range (tiny factors, or e^t overflowing on a factor that is not selected) is redone with
+/// exact sum of the logarithms, plus the logarithm's own ulp; the bound takes 6 PRODUCT_BLOCK U + 2 U |ln|.
+/// A block whose product leaves the normal range (tiny factors, or e^t overflowing on a factor that is not selected) is redone with
 /// a logarithm per exposure.
 pub fn scale_by_products(model: &Model, t: f64) -> Scale {
-    use super::float::U;
     if model.weighted() {
         return scale(model, t);
     }
     let c = TiltConsts::new(t);
     let (mut phi, mut err, mut b) = (Sum::default(), 0.0, model.shift as f64);
-    let pos = t > 0.0;
-    for block in model.bernoulli.chunks(PRODUCT_BLOCK) {
-        let mut prod = [1.0f64; 4];
-        let mut ones = 0.0;
-        for (i, &p) in block.iter().enumerate() {
-            // b (the tilted exposure more likely 1 than 0) compares p e^t with 1 - p, written without overflow.
-            let big = if pos { p > (1.0 - p) * c.emt } else { p * c.et > 1.0 - p };
-            let f = if big { p + (1.0 - p) * c.emt } else { (1.0 - p) + p * c.et };
-            prod[i % 4] *= f;
-            ones += big as u8 as f64;
+    pass::<false, true>(&model.bernoulli, &c, &mut [[0.0; 4]; 4], &mut phi, &mut err, &mut b);
+    finish_scale(model, &c, phi, err, b)
+}
+
+/// One pass over the Bernoulli exposures at the tilt `c`: with CUM, the four lanes of [`eval`]'s cumulant sums
+/// into `lanes` (lane j takes the exposures j, j + 4, j + 8, ... of the whole quads); with PROD, the block
+/// products of [`scale_by_products`] into (phi, err, b). Compiled for 4-wide vectors where the CPU has them:
+/// the lanes are then the vector's slots, and IEEE operations round alike in every instruction set (Rust
+/// never fuses a * b + c on its own), so the sums are bit for bit those of the portable code, and the fused
+/// pass gives bit for bit what each of its halves gives alone.
+fn pass<const CUM: bool, const PROD: bool>(
+    ps: &[f64],
+    c: &TiltConsts,
+    lanes: &mut [[f64; 4]; 4],
+    phi: &mut Sum,
+    err: &mut f64,
+    b: &mut f64,
+) {
+    #[cfg(target_arch = "x86_64")]
+    if std::is_x86_feature_detected!("avx") {
+        // SAFETY: the CPU supports AVX (checked just above).
+        return unsafe { pass_avx::<CUM, PROD>(ps, c, lanes, phi, err, b) };
+    }
+    pass_body::<CUM, PROD>(ps, c, lanes, phi, err, b)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx")]
+unsafe fn pass_avx<const CUM: bool, const PROD: bool>(
+    ps: &[f64],
+    c: &TiltConsts,
+    lanes: &mut [[f64; 4]; 4],
+    phi: &mut Sum,
+    err: &mut f64,
+    b: &mut f64,
+) {
+    pass_body::<CUM, PROD>(ps, c, lanes, phi, err, b)
+}
+
+/// The same forms as `tilt_weights`: (ca, cb) = (1, e^-t) for t > 0 and (e^t, 1) otherwise, so that p ca and
+/// (1 - p) cb are M's two terms without overflow (the products by 1 are exact).
+#[inline(always)]
+fn weights(c: &TiltConsts) -> (f64, f64) {
+    if c.t > 0.0 {
+        (1.0, c.emt)
+    } else {
+        (c.et, 1.0)
+    }
+}
+
+#[inline(always)]
+fn cumulant_quad(s: &mut [[f64; 4]; 4], p: [f64; 4], ca: f64, cb: f64) {
+    let a = p.map(|p| p * ca);
+    let b = p.map(|p| (1.0 - p) * cb);
+    for j in 0..4 {
+        let inv = 1.0 / (a[j] + b[j]);
+        let (q, r) = (a[j] * inv, b[j] * inv);
+        let v = q * r;
+        s[0][j] += q;
+        s[1][j] += v;
+        s[2][j] += v * (r - q);
+        s[3][j] += v * (1.0 - 6.0 * v);
+    }
+}
+
+/// The factor M e^(-b t) of one exposure, and b. b (the tilted exposure more likely 1 than 0) compares
+/// p e^t with 1 - p, written without overflow.
+#[inline(always)]
+fn factor(p: f64, ca: f64, cb: f64, c: &TiltConsts) -> (f64, f64) {
+    let big = p * ca > (1.0 - p) * cb;
+    let f = if big { p + (1.0 - p) * c.emt } else { (1.0 - p) + p * c.et };
+    (f, if big { 1.0 } else { 0.0 })
+}
+
+#[inline(always)]
+fn pass_body<const CUM: bool, const PROD: bool>(
+    ps: &[f64],
+    c: &TiltConsts,
+    lanes: &mut [[f64; 4]; 4],
+    phi: &mut Sum,
+    err: &mut f64,
+    b: &mut f64,
+) {
+    use super::float::U;
+    let (ca, cb) = weights(c);
+    if !PROD {
+        for quad in ps.chunks_exact(4) {
+            cumulant_quad(lanes, [quad[0], quad[1], quad[2], quad[3]], ca, cb);
+        }
+        return;
+    }
+    let mut blocks = ps.chunks_exact(PRODUCT_BLOCK);
+    let last = blocks.remainder();
+    for block in (&mut blocks).map(Some).chain([(!last.is_empty()).then_some(last)]).flatten() {
+        // Factor i of the block goes to lane i mod 4.
+        let (mut prod, mut ones) = ([1.0f64; 4], [0.0f64; 4]);
+        if block.len() == PRODUCT_BLOCK {
+            for i in 0..PRODUCT_BLOCK / 4 {
+                let p: [f64; 4] = [block[4 * i], block[4 * i + 1], block[4 * i + 2], block[4 * i + 3]];
+                if CUM {
+                    cumulant_quad(lanes, p, ca, cb);
+                }
+                // `factor` in the shape of vector operations: both candidates, then a select.
+                let a = p.map(|p| p * ca);
+                let bb = p.map(|p| (1.0 - p) * cb);
+                let on = p.map(|p| p + (1.0 - p) * c.emt);
+                let off = p.map(|p| (1.0 - p) + p * c.et);
+                for j in 0..4 {
+                    let big = a[j] > bb[j];
+                    prod[j] *= if big { on[j] } else { off[j] };
+                    ones[j] += if big { 1.0 } else { 0.0 };
+                }
+            }
+        } else {
+            if CUM {
+                for quad in block.chunks_exact(4) {
+                    cumulant_quad(lanes, [quad[0], quad[1], quad[2], quad[3]], ca, cb);
+                }
+            }
+            for (i, &p) in block.iter().enumerate() {
+                let (f, one) = factor(p, ca, cb, c);
+                prod[i % 4] *= f;
+                ones[i % 4] += one;
+            }
         }
         let v = (prod[0] * prod[1]) * (prod[2] * prod[3]);
         if v.is_finite() && v > 1e-280 {
             let l = v.ln();
             phi.add(l);
-            err += 6.0 * PRODUCT_BLOCK as f64 * U + 2.0 * U * l.abs();
-            b += ones;
+            *err += 6.0 * PRODUCT_BLOCK as f64 * U + 2.0 * U * l.abs();
+            *b += (ones[0] + ones[1]) + (ones[2] + ones[3]);
         } else {
             for &p in block {
-                let x = tilt(p, &c);
+                let x = tilt(p, c);
                 phi.add(x.phi);
-                err += 8.0 * U * x.phi.abs();
-                b += x.b as u8 as f64;
+                *err += 8.0 * U * x.phi.abs();
+                *b += x.b as u8 as f64;
             }
         }
     }
-    finish_scale(model, &c, phi, err, b)
 }
 
 /// The binomial and Poisson parts of [`scale`], shared by both ways of summing the Bernoulli part.
@@ -265,24 +377,18 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
         return eval_weighted(model, t);
     }
     let c = TiltConsts::new(t);
+    let mut lanes = [[0.0; 4]; 4];
+    pass::<true, false>(&model.bernoulli, &c, &mut lanes, &mut Sum::default(), &mut 0.0, &mut 0.0);
+    eval_finish(model, &c, lanes)
+}
+
+/// [`eval`] from the lanes of the whole quads: the last few exposures, the groups and the Poisson part.
+fn eval_finish(model: &Model, c: &TiltConsts, lanes: [[f64; 4]; 4]) -> CgfValue {
+    let t = c.t;
     // Same forms as `tilt_qr`: M e^-t for t > 0, M otherwise, so neither overflows.
-    let (ca, cb) = if t > 0.0 { (1.0, c.emt) } else { (c.et, 1.0) };
-    // Four lanes of plain sums: independent accumulators let the compiler use vector registers.
-    let mut acc = [[0.0f64; 4]; 4];
-    let mut quads = model.bernoulli.chunks_exact(4);
-    for quad in &mut quads {
-        for (j, &p) in quad.iter().enumerate() {
-            let (a, b) = (p * ca, (1.0 - p) * cb);
-            let inv = 1.0 / (a + b);
-            let (q, r) = (a * inv, b * inv);
-            let v = q * r;
-            acc[0][j] += q;
-            acc[1][j] += v;
-            acc[2][j] += v * (r - q);
-            acc[3][j] += v * (1.0 - 6.0 * v);
-        }
-    }
-    let mut k = acc.map(|l| (l[0] + l[1]) + (l[2] + l[3]));
+    let (ca, cb) = weights(c);
+    let rest = &model.bernoulli[model.bernoulli.len() / 4 * 4..];
+    let mut k = lanes.map(|l| (l[0] + l[1]) + (l[2] + l[3]));
     let mut add = |m: f64, p: f64| {
         let (a, b) = (p * ca, (1.0 - p) * cb);
         let inv = 1.0 / (a + b);
@@ -293,7 +399,7 @@ pub fn eval(model: &Model, t: f64) -> CgfValue {
         k[2] += m * v * (r - q);
         k[3] += m * v * (1.0 - 6.0 * v);
     };
-    for &p in quads.remainder() {
+    for &p in rest {
         add(1.0, p);
     }
     for b in &model.binomials {
