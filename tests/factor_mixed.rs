@@ -162,6 +162,18 @@ fn check_distribution(book: &Book, from: u64, to: u64) {
         let got = f(&r["sf"][i]);
         assert!((got - s).abs() <= cdf_bound + allowance(s), "sf at {x}: {got} vs {s}");
     }
+    let worst = (0..rows)
+        .map(|i| {
+            let x = first + i as u64 * step;
+            ((f(&r["pmf"][i]) - book.pmf[x as usize]).abs(), f(&r["pmf_error_bound"][i]))
+        })
+        .fold((0.0f64, f64::INFINITY), |(e, ratio), (err, b)| {
+            (e.max(err), if err > 1e-15 { ratio.min(b / err) } else { ratio })
+        });
+    eprintln!(
+        "distribution: {rows} rows, worst pmf error {:.1e}, least bound/error {:.1e}, cdf bound {cdf_bound:.1e}",
+        worst.0, worst.1
+    );
     // Totals off the lattice get no row: the reference has no mass there either.
     let off: f64 = (0..book.pmf.len()).filter(|x| *x as u64 % book.span != 0).map(|x| book.pmf[x]).sum();
     assert!(off < 1e-15, "mass off the lattice {off}");

@@ -15,6 +15,10 @@
 //! the exact engine; the rest come from one call of the exact engine for all of them (nearby thresholds share
 //! a tilted law). The model is then dropped: at most one per worker thread is alive.
 //!
+//! In units (and with compound sources), the questions that read many values of one law (quantiles, a
+//! distribution table, layers) take them from the whole conditional pmf mixed over the factor once
+//! (`MixedLaw`), not from one integral per probe: one lattice law per node instead of one per node per probe.
+//!
 //! What is reported. The value is the sum of the panels' estimates; its bound adds the quadrature's error
 //! estimate (which refinement drives below max(absolute, relative x value)), the truncated mass, and the
 //! node values' own bounds integrated; it is an estimate (bound kind `estimated`), covered in the tests against

@@ -7,6 +7,9 @@
 //! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
 //! count itself and the two ends of the range that the error bound allows).
 //!
+//! Under the factor in units (or with compound sources) the exact search is one scan of the law mixed over the
+//! factor once (`factor::MixedLaw`) rather than a probe per step, each probe an integral of lattice laws.
+//!
 //! Losses in units. The law lives on the lattice S = offset + span j, so the search runs on the index j (no
 //! total between two lattice points has mass of its own) and the answer reports the lattice point in units:
 //! the smallest total s with P(S <= s) >= level is always a lattice point, and P(S <= s - 1) is P(S <= the
