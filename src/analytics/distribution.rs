@@ -228,7 +228,7 @@ impl Analytic for Distribution {
 
 /// Whether the request gives loss units anywhere (even all 1: the range is then counted in lattice points,
 /// which are the counts themselves).
-fn has_units(spec: &PortfolioSpec) -> bool {
+pub(super) fn has_units(spec: &PortfolioSpec) -> bool {
     !spec.units.is_empty()
         || spec.groups.iter().any(|g| g.units.is_some())
         || spec.families.iter().any(|f| f.units().is_some())

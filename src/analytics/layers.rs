@@ -219,7 +219,14 @@ impl Analytic for Layers {
     }
 
     fn evaluations(req: &LayersRequest) -> Option<f64> {
-        Some(req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0)
+        let mut n = req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0;
+        // Under the factor in units the expectations come from one mixed law (`factor::MixedLaw`) of at most
+        // MAX_NODES lattice laws, FACTOR_WORK each per evaluation counted.
+        let units = super::distribution::has_units(&req.portfolio) || !req.portfolio.compound_sources.is_empty();
+        if units && req.dependence.as_ref().and_then(|d| d.rho()).is_some() {
+            n += super::factor::MAX_NODES as f64 / super::scenario::FACTOR_WORK;
+        }
+        Some(n)
     }
 
     fn footprint(req: &LayersRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
