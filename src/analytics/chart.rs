@@ -128,7 +128,7 @@ impl Analytic for Chart {
     }
 
     fn check_units(req: &ChartRequest) -> Result<(), Vec<Violation>> {
-        super::quantiles::refuse_in_units(&req.methods, &None, &req.portfolio)
+        super::quantiles::refuse_in_units(&req.methods, &req.portfolio)
     }
 
     fn check_model(req: &ChartRequest, model: &Model) -> Result<(), Error> {

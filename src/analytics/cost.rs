@@ -66,6 +66,16 @@ pub fn exact_window_doubles(model: &Model, top: u64) -> f64 {
     2.0 * d
 }
 
+/// Bytes the law mixed over the factor holds (`factor::MixedLaw`) on a book in units: its pmf, errors and
+/// both running sums, and one panel's three sums and fifteen node laws, each at most as wide as one tilted law's
+/// windows (`exact_window_doubles`, which counts leaves and products); 0 when the question does not mix.
+pub fn mixed_law_bytes(model: &Model, top: u64, dep: &Option<Dependence>) -> f64 {
+    if !model.weighted() || dep.as_ref().and_then(|d| d.rho()).is_none() {
+        return 0.0;
+    }
+    8.0 * (6.0 + 3.0 + 15.0) * exact_window_doubles(model, top)
+}
+
 /// Bytes of the model's own parts (what the factor model copies per node).
 pub fn model_bytes(model: &Model) -> f64 {
     8.0 * model.bernoulli.len() as f64 + 16.0 * model.binomials.len() as f64 + 64.0

@@ -34,6 +34,12 @@ pub struct Table {
 }
 
 pub fn table(law: &Law, from: u64, to: u64) -> Table {
+    if let Some(mx) = law.mixed() {
+        // Under the factor in units: every row read from the one mixed law (`factor::MixedLaw`).
+        let col = |f: &dyn Fn(u64) -> Value| (from..=to).map(f).collect::<Vec<_>>();
+        let (pmf, cdf) = (col(&|k| mx.point(k)), col(&|k| mx.lower(k)));
+        return Table { from, to, pmf, cdf, sf: col(&|k| mx.upper(k.saturating_add(1))) };
+    }
     let mut queries = Vec::with_capacity(3 * (to - from + 1) as usize);
     for k in from..=to {
         queries.push((k, Side::Point));
@@ -150,7 +156,15 @@ impl Analytic for Distribution {
     }
 
     fn check_units(req: &DistributionRequest) -> Result<(), Vec<Violation>> {
-        super::quantiles::refuse_in_units(&[], &req.dependence, &req.portfolio)
+        super::quantiles::refuse_in_units(&[], &req.portfolio)
+    }
+
+    /// Under the factor a book with compound sources is a book in units: its exact values come from one
+    /// mixed law (`factor::MixedLaw`) or one integral per figure, each node's conditional law built by the
+    /// exact engine with the sources in it (checked in tests/factor_mixed.rs against a quadrature of Panjer's
+    /// recursion).
+    fn factor_takes_compound() -> bool {
+        true
     }
 
     fn check_model(req: &DistributionRequest, model: &Model) -> Result<(), Error> {
@@ -177,7 +191,9 @@ impl Analytic for Distribution {
         };
         // Three values per count with their bounds, and seven JSON arrays.
         let answer = 250.0 * counts as f64;
-        Footprint { windows: 8.0 * cost::exact_window_doubles(model, req.to.unwrap_or(0)), working: 0.0, answer }
+        let top = req.to.unwrap_or(0);
+        let working = cost::mixed_law_bytes(model, top, &req.dependence);
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, top), working, answer }
     }
 
     fn answer(
@@ -212,7 +228,7 @@ impl Analytic for Distribution {
 
 /// Whether the request gives loss units anywhere (even all 1: the range is then counted in lattice points,
 /// which are the counts themselves).
-fn has_units(spec: &PortfolioSpec) -> bool {
+pub(super) fn has_units(spec: &PortfolioSpec) -> bool {
     !spec.units.is_empty()
         || spec.groups.iter().any(|g| g.units.is_some())
         || spec.families.iter().any(|f| f.units().is_some())

@@ -15,6 +15,10 @@
 //! the exact engine; the rest come from one call of the exact engine for all of them (nearby thresholds share
 //! a tilted law). The model is then dropped: at most one per worker thread is alive.
 //!
+//! In units (and with compound sources), the questions that read many values of one law (quantiles, a
+//! distribution table, layers) take them from the whole conditional pmf mixed over the factor once
+//! (`MixedLaw`), not from one integral per probe: one lattice law per node instead of one per node per probe.
+//!
 //! What is reported. The value is the sum of the panels' estimates; its bound adds the quadrature's error
 //! estimate (which refinement drives below max(absolute, relative x value)), the truncated mass, and the
 //! node values' own bounds integrated; it is an estimate (bound kind `estimated`), covered in the tests against
@@ -67,6 +71,7 @@ pub struct Factor {
     /// The unconditional mean (E m(Z) = the independent mean, since E p_i(Z) = p_i).
     mean: f64,
     moments: OnceLock<Moments>,
+    mixed: OnceLock<MixedLaw>,
     nodes: AtomicUsize,
     gauss: AtomicUsize,
     cancel: Cancel,
@@ -232,6 +237,7 @@ impl Factor {
             rho,
             mean,
             moments: OnceLock::new(),
+            mixed: OnceLock::new(),
             nodes: AtomicUsize::new(0),
             gauss: AtomicUsize::new(0),
             cancel,
@@ -434,6 +440,10 @@ impl Factor {
 
     /// E[min((S - a)+, l)] under the factor (no cap when `limit` is None).
     pub fn layer_expectation(&self, a: u64, limit: Option<u64>) -> Value {
+        if self.model.weighted() {
+            // In units (attachment and limit in units, the law on the lattice): read from the mixed law.
+            return self.mixed_law().layer(&self.model, self.mean, a, limit);
+        }
         let cap = self.layer_cap(a, limit);
         if cap <= 0.0 {
             return Value { kind: BoundKind::Estimated, ..Value::certain(0.0) };
@@ -794,4 +804,320 @@ pub struct FactorContributions {
     pub each: Vec<(Value, Value)>,
     /// The same for the impossible and certain exposures given.
     pub fixed: Vec<(Value, Value)>,
+}
+
+/// Half-width of the factor's range for the mixed law: the factor's mass beyond +-MIX_LIMIT (2 Phi(-10), about
+/// 1.5e-23) is counted whole in the mixed law's error, since no conditional pmf exceeds 1 in L1.
+const MIX_LIMIT: f64 = 10.0;
+
+/// Widest panel of the mixed law's Gauss-Kronrod rule before any refinement.
+const MIX_PANEL: f64 = 1.0;
+
+/// Narrowest panel the mixed law refines to; a narrower one is taken with the error it has.
+const MIX_MIN_PANEL: f64 = 1e-4;
+
+/// The whole law on the lattice, mixed over the factor once (`Factor::mixed_law`): the conditional pmf at
+/// every node (the exact engine's untilted law, t = 0) weighted by the Gauss-Kronrod weights times phi(z), so
+/// that quantiles, a distribution table and any cdf read one mixture instead of one integral per probe.
+///
+/// Errors. For an entry j the truth f_j = E[f_j(Z)] differs from `pmf[j]` by at most `err[j]` (the quadrature's
+/// estimate |Kronrod - Gauss| per entry on each panel, and the nodes' relative errors rel f_j(z) integrated)
+/// plus a share of `flat`; `flat` bounds in L1, once for any set of entries, the nodes' absolute errors
+/// (truncations and the FFT's, `window::Window::abs`), the mass of the factor beyond +-MIX_LIMIT and the
+/// rounding of the sums. So a sum over any set J of entries is within sum_J err + flat of the truth.
+pub struct MixedLaw {
+    /// Lattice index (in steps, the certain exposures' shift included) of `pmf[0]`.
+    pub lo: u64,
+    pub pmf: Vec<f64>,
+    pub err: Vec<f64>,
+    pub flat: f64,
+    /// Prefix sums of `pmf` and `err` (P(S <= lo + i) and its per-entry error share), and suffix sums (P(S >=
+    /// lo + i)), each summed from its own end so that both tails keep their small values.
+    below: Vec<(f64, f64)>,
+    above: Vec<(f64, f64)>,
+}
+
+/// A sum of the mixed law with its error, as a probability (kind `estimated`, as every figure under the factor).
+fn mixed_value(v: f64, e: f64) -> Value {
+    let value = v.clamp(0.0, 1.0);
+    let abs_err = up(e + (v - value).abs());
+    Value {
+        value,
+        ln_value: value.ln(),
+        abs_err,
+        rel_err: if value > 0.0 { up(abs_err / value) } else { f64::INFINITY },
+        kind: BoundKind::Estimated,
+    }
+}
+
+impl MixedLaw {
+    fn new(lo: u64, pmf: Vec<f64>, err: Vec<f64>, flat: f64) -> MixedLaw {
+        let n = pmf.len();
+        let mut below = Vec::with_capacity(n);
+        let (mut s, mut e) = (0.0, 0.0);
+        for i in 0..n {
+            s += pmf[i];
+            e += err[i];
+            below.push((s, e));
+        }
+        let mut above = vec![(0.0, 0.0); n];
+        let (mut s, mut e) = (0.0, 0.0);
+        for i in (0..n).rev() {
+            s += pmf[i];
+            e += err[i];
+            above[i] = (s, e);
+        }
+        MixedLaw { lo, pmf, err, flat, below, above }
+    }
+
+    /// The index one past the last entry held.
+    pub fn end(&self) -> u64 {
+        self.lo + self.pmf.len() as u64
+    }
+
+    /// The rounding of a sum of `terms` non-negative terms of total `s` (each term itself a sum over the
+    /// nodes, counted in `flat`).
+    fn rounding(&self, s: f64) -> f64 {
+        2.0 * U * s * (self.pmf.len() as f64).log2().max(1.0)
+    }
+
+    /// P(S = j).
+    pub fn point(&self, j: u64) -> Value {
+        if j < self.lo || j >= self.end() {
+            return mixed_value(0.0, self.flat);
+        }
+        let i = (j - self.lo) as usize;
+        mixed_value(self.pmf[i], self.err[i] + self.flat)
+    }
+
+    /// P(S <= j): the lower sum below the median, one minus the upper sum above it (both within their errors
+    /// of the truth; the switch keeps the small side's relative accuracy).
+    pub fn lower(&self, j: u64) -> Value {
+        if j < self.lo {
+            return mixed_value(0.0, self.flat);
+        }
+        let i = ((j - self.lo) as usize).min(self.pmf.len() - 1);
+        let (s, e) = self.below[i];
+        if s <= 0.5 || i + 1 == self.pmf.len() {
+            return mixed_value(s, e + self.flat + self.rounding(s));
+        }
+        let (t, f) = self.above[i + 1];
+        mixed_value(1.0 - t, f + self.flat + self.rounding(t) + U)
+    }
+
+    /// P(S >= j), the mirror of [`MixedLaw::lower`].
+    pub fn upper(&self, j: u64) -> Value {
+        if j <= self.lo {
+            let v = self.lower(self.lo.saturating_sub(1));
+            return if j < self.lo || self.lo == 0 {
+                mixed_value(1.0, self.flat)
+            } else {
+                mixed_value(1.0 - v.value, v.abs_err + U)
+            };
+        }
+        if j >= self.end() {
+            return mixed_value(0.0, self.flat);
+        }
+        let i = (j - self.lo) as usize;
+        let (t, f) = self.above[i];
+        if t <= 0.5 {
+            return mixed_value(t, f + self.flat + self.rounding(t));
+        }
+        let (s, e) = self.below[i - 1];
+        mixed_value(1.0 - s, e + self.flat + self.rounding(s) + U)
+    }
+
+    /// E[min((S - a)+, l)] in units (no cap when `limit` is None), S = offset + span j on `model`'s lattice,
+    /// with `mean` the law's exact mean in steps. A limited layer sums its payoff, at most l, against the pmf,
+    /// so its error is the payoff against `err` plus l `flat`; an unlimited one is E S - a + E[(a - S)+], whose
+    /// payoff a - S is at most a, so the unbounded tail of a Poisson or compound part needs no window.
+    pub fn layer(&self, model: &Model, mean: f64, a: u64, limit: Option<u64>) -> Value {
+        let (mut v, mut e) = (0.0f64, 0.0f64);
+        for (i, (&p, &pe)) in self.pmf.iter().zip(&self.err).enumerate() {
+            let x = model.units_of(self.lo + i as u64);
+            let pay = match limit {
+                Some(l) => x.saturating_sub(a).min(l),
+                None => a.saturating_sub(x),
+            } as f64;
+            v += pay * p;
+            e += pay * pe;
+        }
+        let terms = (self.pmf.len() as f64).log2().max(1.0) + 2.0;
+        let (value, abs_err) = match limit {
+            Some(l) => (v, e + l as f64 * self.flat + 2.0 * U * terms * v),
+            None => {
+                let h = model.span() as f64;
+                let mean_units = model.offset as f64 + h * mean;
+                // The mean is a sum over the exposures: its rounding is within (n + 8) U of it.
+                let n = (model.bernoulli.len() + model.binomials.len() + model.scaled_poisson.len()) as f64 + 8.0;
+                let m_err = n * U * mean_units;
+                let value = mean_units - a as f64 + v;
+                (value, e + a as f64 * self.flat + m_err + 2.0 * U * terms * (mean_units + a as f64 + v))
+            }
+        };
+        let value_c = value.max(0.0);
+        let abs_err = up(abs_err + (value_c - value));
+        Value {
+            value: value_c,
+            ln_value: value_c.ln(),
+            abs_err,
+            rel_err: if value_c > 0.0 { up(abs_err / value_c) } else { f64::INFINITY },
+            kind: BoundKind::Estimated,
+        }
+    }
+
+    /// The value of a tail query on the lattice index.
+    pub fn query(&self, k: u64, side: Side) -> Value {
+        match side {
+            Side::Upper => self.upper(k),
+            Side::Lower => self.lower(k),
+            Side::Point => self.point(k),
+        }
+    }
+}
+
+/// A growing vector indexed by lattice index.
+struct Acc {
+    lo: u64,
+    v: Vec<f64>,
+}
+
+impl Acc {
+    fn add(&mut self, lo: u64, xs: &[f64]) {
+        if xs.is_empty() {
+            return;
+        }
+        if self.v.is_empty() {
+            self.lo = lo;
+        }
+        if lo < self.lo {
+            let grow = (self.lo - lo) as usize;
+            self.v.splice(0..0, std::iter::repeat_n(0.0, grow));
+            self.lo = lo;
+        }
+        let at = (lo - self.lo) as usize;
+        if at + xs.len() > self.v.len() {
+            self.v.resize(at + xs.len(), 0.0);
+        }
+        for (d, &x) in self.v[at..].iter_mut().zip(xs) {
+            *d += x;
+        }
+    }
+
+    /// The values from `lo` over `len` entries (0 where nothing was added).
+    fn span(&self, lo: u64, len: usize) -> Vec<f64> {
+        let mut out = vec![0.0; len];
+        for (i, o) in out.iter_mut().enumerate() {
+            let j = lo + i as u64;
+            if j >= self.lo && ((j - self.lo) as usize) < self.v.len() {
+                *o = self.v[(j - self.lo) as usize];
+            }
+        }
+        out
+    }
+}
+
+/// The conditional law at one node: (first index, pmf, relative error, absolute L1 error).
+type NodeLaw = (u64, Vec<f64>, f64, f64);
+
+impl Factor {
+    /// The whole law mixed over the factor, computed once and kept (see [`MixedLaw`]).
+    ///
+    /// Panels: the factor's range [-MIX_LIMIT, MIX_LIMIT] cut at the crossings of conditional means spread over
+    /// the law (`breakpoints`) and into panels at most MIX_PANEL wide; a panel whose summed |Kronrod - Gauss|
+    /// exceeds its share (by width) of the target is halved, until the target, MIX_MIN_PANEL or MAX_NODES. The
+    /// target is the tolerance's relative part times 1e-2 in L1 (1e-9 by default), never below its absolute
+    /// floor: a probability read from the mixture is then good to about 1e-9 absolutely, which is what a
+    /// quantile's defining inequalities and a distribution table ask; far tails keep the tail route's
+    /// relative accuracy only there (`Factor::exact`).
+    pub fn mixed_law(&self) -> &MixedLaw {
+        self.mixed.get_or_init(|| self.mix())
+    }
+
+    fn node_law(&self, z: f64) -> NodeLaw {
+        let (m, _) = self.at(z);
+        let t = exact::tilted(&m, 0.0);
+        let w = t.window;
+        (w.lo, w.w, w.rel, w.abs)
+    }
+
+    fn mix(&self) -> MixedLaw {
+        let target = (1e-2 * self.tol.rel).max(self.tol.abs).max(1e-15);
+        let total = 2.0 * MIX_LIMIT;
+        // Breakpoints where conditional means spread over the law cross, as for a distribution table.
+        let levels: Vec<f64> = (0..=64).map(|i| self.profile.at(MIX_LIMIT - i as f64 * total / 64.0).0).collect();
+        let mut pts: Vec<f64> = self.breakpoints(&levels, true);
+        pts.retain(|z| z.abs() < MIX_LIMIT);
+        pts.extend([-MIX_LIMIT, MIX_LIMIT]);
+        pts.sort_by(f64::total_cmp);
+        pts.dedup();
+        let mut stack: Vec<(f64, f64)> = Vec::new();
+        for w in pts.windows(2).rev() {
+            let pieces = ((w[1] - w[0]) / MIX_PANEL).ceil().max(1.0) as usize;
+            let h = (w[1] - w[0]) / pieces as f64;
+            for i in (0..pieces).rev() {
+                let a = w[0] + i as f64 * h;
+                let b = if i + 1 == pieces { w[1] } else { a + h };
+                stack.push((a, b));
+            }
+        }
+        let parallel = self.parallel || self.model.lattice_width() > 2000;
+        let mut pmf = Acc { lo: 0, v: Vec::new() };
+        let mut err = Acc { lo: 0, v: Vec::new() };
+        // The factor's mass beyond the range, and each node's absolute error, in L1.
+        let mut flat = 2.0 * normal_law::sf(MIX_LIMIT);
+        let mut used = 0usize;
+        while let Some((a, b)) = stack.pop() {
+            if self.cancel.is_cancelled() {
+                break;
+            }
+            let rule = gk15(a, b);
+            let zs: Vec<f64> = rule.iter().map(|r| r.0).collect();
+            let laws: Vec<NodeLaw> = mixture::evaluate_all(&zs, parallel, &|z: f64| self.node_law(z));
+            used += 15;
+            self.nodes.fetch_add(15, Ordering::Relaxed);
+            self.gauss.fetch_add(7, Ordering::Relaxed);
+            let lo = laws.iter().map(|l| l.0).min().unwrap_or(0);
+            let hi = laws.iter().map(|l| l.0 + l.1.len() as u64).max().unwrap_or(lo);
+            let len = (hi - lo) as usize;
+            let (mut k, mut g, mut r) = (vec![0.0; len], vec![0.0; len], vec![0.0; len]);
+            let mut node_abs = 0.0;
+            for ((z, wk, wg), (l0, w, rel, abs)) in rule.iter().zip(&laws) {
+                let phi = normal_law::ln_pdf(*z).exp();
+                let (ck, cg) = (wk * phi, wg * phi);
+                // |w - f| <= rel f + e with ||e||_1 <= abs, and f <= (w + |e|) / (1 - rel).
+                let rr = if *rel < 0.5 { rel / (1.0 - rel) } else { f64::INFINITY };
+                let at = (l0 - lo) as usize;
+                for (i, &x) in w.iter().enumerate() {
+                    k[at + i] += ck * x;
+                    g[at + i] += cg * x;
+                    r[at + i] += ck * rr * x;
+                }
+                node_abs += ck * abs * (1.0 + rr);
+            }
+            let mut d = 0.0;
+            for i in 0..len {
+                let e = (k[i] - g[i]).abs();
+                d += e;
+                r[i] += e;
+            }
+            if d > target * (b - a) / total && b - a > MIX_MIN_PANEL && used + 30 <= MAX_NODES {
+                let c = 0.5 * (a + b);
+                stack.push((c, b));
+                stack.push((a, c));
+                continue;
+            }
+            flat += node_abs;
+            pmf.add(lo, &k);
+            err.add(lo, &r);
+        }
+        if pmf.v.is_empty() {
+            return MixedLaw::new(0, vec![0.0], vec![0.0], 1.0);
+        }
+        let (lo, len) = (pmf.lo, pmf.v.len());
+        let e = err.span(lo, len);
+        // The sums over nodes and panels: at most `used` non-negative terms per entry.
+        let e: Vec<f64> = e.iter().zip(&pmf.v).map(|(&e, &p)| up(e + used as f64 * U * p)).collect();
+        MixedLaw::new(lo, pmf.v, e, up(flat))
+    }
 }

@@ -12,7 +12,7 @@
 
 use super::cancel::Cancel;
 use super::dependence::Dependence;
-use super::factor::Factor;
+use super::factor::{Factor, MixedLaw};
 use crate::engine::exact;
 use crate::engine::numerics::moments::Moments;
 use crate::engine::Tolerance;
@@ -154,6 +154,17 @@ impl Law {
                 e
             })
             .collect()
+    }
+
+    /// The whole law mixed over the factor once (`Factor::mixed_law`), for the questions that read many values
+    /// of one law (quantiles, a distribution table): under the factor on a book in loss units or with compound
+    /// sources, where probing one tail integral at a time costs a lattice law per node per probe. None
+    /// otherwise (the count keeps its integrals per figure, and an independent law has no mixture).
+    pub fn mixed(&self) -> Option<&MixedLaw> {
+        match &self.kind {
+            Kind::Factor(f) if f.model.weighted() => Some(f.mixed_law()),
+            _ => None,
+        }
     }
 
     /// A first guess of the quantile at `level` under the factor (the large-pool limit), None when independent.

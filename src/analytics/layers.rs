@@ -207,17 +207,34 @@ impl Analytic for Layers {
     }
 
     fn check_units(req: &LayersRequest) -> Result<(), Vec<Violation>> {
-        super::quantiles::refuse_in_units(&[], &req.dependence, &req.portfolio)
+        super::quantiles::refuse_in_units(&[], &req.portfolio)
+    }
+
+    /// Under the factor a book with compound sources is a book in units: its exact values come from one
+    /// mixed law (`factor::MixedLaw`) or one integral per figure, each node's conditional law built by the
+    /// exact engine with the sources in it (checked in tests/factor_mixed.rs against a quadrature of Panjer's
+    /// recursion).
+    fn factor_takes_compound() -> bool {
+        true
     }
 
     fn evaluations(req: &LayersRequest) -> Option<f64> {
-        Some(req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0)
+        let mut n = req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0;
+        // Under the factor in units the expectations come from one mixed law (`factor::MixedLaw`) of at most
+        // MAX_NODES lattice laws, FACTOR_WORK each per evaluation counted.
+        let units = super::distribution::has_units(&req.portfolio) || !req.portfolio.compound_sources.is_empty();
+        if units && req.dependence.as_ref().and_then(|d| d.rho()).is_some() {
+            n += super::factor::MAX_NODES as f64 / super::scenario::FACTOR_WORK;
+        }
+        Some(n)
     }
 
     fn footprint(req: &LayersRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
         let top = req.layers.iter().map(|l| l.attachment.saturating_add(l.limit.unwrap_or(0))).max().unwrap_or(0);
         let answer = 800.0 * (req.layers.len() + req.tail_levels.len()) as f64;
-        Footprint { windows: 8.0 * cost::exact_window_doubles(model, top), working: 0.0, answer }
+        // Tail expectations search their quantiles in the mixed law under the factor (`quantiles`).
+        let working = if req.tail_levels.is_empty() { 0.0 } else { cost::mixed_law_bytes(model, top, &req.dependence) };
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, top), working, answer }
     }
 
     fn answer(req: &LayersRequest, law: &Law, stress: Option<Stress>, ctx: &Ctx) -> Result<LayersResponse, Error> {

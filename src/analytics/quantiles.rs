@@ -7,6 +7,9 @@
 //! method (for `exact`, one tilted law), and probes are cached across the three searches of one level (the
 //! count itself and the two ends of the range that the error bound allows).
 //!
+//! Under the factor in units (or with compound sources) the exact search is one scan of the law mixed over the
+//! factor once (`factor::MixedLaw`) rather than a probe per step, each probe an integral of lattice laws.
+//!
 //! Losses in units. The law lives on the lattice S = offset + span j, so the search runs on the index j (no
 //! total between two lattice points has mass of its own) and the answer reports the lattice point in units:
 //! the smallest total s with P(S <= s) >= level is always a lattice point, and P(S <= s - 1) is P(S <= the
@@ -16,6 +19,7 @@ use super::checks::{check_tolerance, distinct_methods, list_size};
 use super::cost::{self, Footprint};
 use super::dependence::Dependence;
 use super::error::Error;
+use super::factor::MixedLaw;
 use super::law::{Law, Summary};
 use super::pipeline::{Analytic, Ctx, Inputs};
 use super::scenario::{assumptions, Assumptions, ModelOut};
@@ -144,9 +148,13 @@ pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolera
     let m = law.moments();
     let top = (m.mean + 60.0 * m.sd() + 100.0).min(1e15) as u64;
     let mut cdf = Cdf { law, method, tol, cache: HashMap::new(), min, max, top };
+    let mixed = if method == MethodId::Exact { law.mixed() } else { None };
     levels
         .iter()
         .map(|&level| {
+            if let Some(q) = mixed.and_then(|mx| from_mixture(mx, level, min, max)) {
+                return q;
+            }
             let g = guess(law, level);
             let count = cdf.search(g, |v| v.value >= level).unwrap_or(max.unwrap_or(u64::MAX));
             let lo = cdf.search(count, |v| v.value + v.abs_err >= level).unwrap_or(count);
@@ -158,28 +166,44 @@ pub fn quantiles(law: &Law, levels: &[f64], method: MethodId, tol: Option<Tolera
         .collect()
 }
 
+/// A quantile read from the law mixed over the factor (`factor::MixedLaw`): the smallest lattice index whose cdf
+/// reaches the level, and the range that the cdf's bounds leave, by one scan of the mixture's sums. None when
+/// the level lies beyond the mass the mixture holds (the probing search then takes over).
+fn from_mixture(mx: &MixedLaw, level: f64, min: u64, max: Option<u64>) -> Option<Quantile> {
+    let cdf = |j: u64| -> Value {
+        if j < min {
+            Value::default()
+        } else if max.is_some_and(|m| j >= m) {
+            Value { value: 1.0, ln_value: 0.0, ..Value::default() }
+        } else {
+            mx.lower(j)
+        }
+    };
+    let first = |pred: &dyn Fn(&Value) -> bool| -> Option<u64> {
+        let end = max.map_or(mx.end(), |m| m.min(mx.end().max(min)));
+        (min.max(mx.lo)..=end).find(|&j| pred(&cdf(j)))
+    };
+    let count = first(&|v| v.value >= level)?;
+    let lo = first(&|v| v.value + v.abs_err >= level).unwrap_or(count).min(count);
+    let hi = first(&|v| v.value - v.abs_err >= level).or(max);
+    let cdf_below = if count == 0 { Value::default() } else { cdf(count - 1) };
+    let method = MethodId::Exact;
+    Some(Quantile { level, method, count, cdf_at_count: cdf(count), cdf_below, count_range: (lo, hi) })
+}
+
 /// The refusals of a question asked in loss units: a method that does not take this book's units at its place
 /// in `methods` (`tail::refused_in_units`: today every method computes on the lattice, compound sources
-/// included), and the factor model. The one place to relax when they learn.
-pub fn refuse_in_units(
-    methods: &[MethodId],
-    dependence: &Option<Dependence>,
-    portfolio: &PortfolioSpec,
-) -> Result<(), Vec<Violation>> {
+/// included). Under the factor model the exact values come from one law mixed over the factor
+/// (`factor::MixedLaw`), so the factor is no reason to refuse.
+pub fn refuse_in_units(methods: &[MethodId], portfolio: &PortfolioSpec) -> Result<(), Vec<Violation>> {
     let compound = !portfolio.compound_sources.is_empty();
-    let mut errs: Vec<Violation> = methods
+    let errs: Vec<Violation> = methods
         .iter()
         .enumerate()
         .filter_map(|(i, &m)| {
             super::tail::refused_in_units(m, compound).map(|why| Violation::new(format!("/methods/{i}"), why))
         })
         .collect();
-    // Under the factor every probe of these questions integrates a lattice law over the factor; measured, a
-    // 99% quantile of 120 exposures in units and a group ran past the default timeout, so they wait for a
-    // cheaper integration (the tail, contributions aside, takes the factor in units).
-    if dependence.as_ref().is_some_and(|d| d.rho().is_some()) {
-        errs.push(Violation::new("/dependence", "a dependence model does not yet take loss units on this question"));
-    }
     if errs.is_empty() {
         Ok(())
     } else {
@@ -273,7 +297,15 @@ impl Analytic for Quantiles {
     }
 
     fn check_units(req: &QuantilesRequest) -> Result<(), Vec<Violation>> {
-        refuse_in_units(&req.methods, &req.dependence, &req.portfolio)
+        refuse_in_units(&req.methods, &req.portfolio)
+    }
+
+    /// Under the factor a book with compound sources is a book in units: its exact values come from one
+    /// mixed law (`factor::MixedLaw`) or one integral per figure, each node's conditional law built by the
+    /// exact engine with the sources in it (checked in tests/factor_mixed.rs against a quadrature of Panjer's
+    /// recursion).
+    fn factor_takes_compound() -> bool {
+        true
     }
 
     fn evaluations(req: &QuantilesRequest) -> Option<f64> {
@@ -282,7 +314,8 @@ impl Analytic for Quantiles {
 
     fn footprint(req: &QuantilesRequest, model: &Model, _limits: &ServiceLimits) -> Footprint {
         let answer = 400.0 * req.levels.len() as f64 * req.methods.len() as f64;
-        Footprint { windows: 8.0 * cost::exact_window_doubles(model, 0), working: 0.0, answer }
+        let working = cost::mixed_law_bytes(model, 0, &req.dependence);
+        Footprint { windows: 8.0 * cost::exact_window_doubles(model, 0), working, answer }
     }
 
     fn answer(

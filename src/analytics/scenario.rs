@@ -206,11 +206,12 @@ pub fn model(
     // The factor's pins and profile count compound sources (independent of the factor: constant conditional
     // mean and variance, their sizes in the largest step) for the questions that say so
     // (`Analytic::factor_takes_compound`, checked against a quadrature of Panjer's recursion in
-    // tests/http_compound.rs); the others refuse the pair rather than answer with a bound not checked there.
+    // tests/factor_compound.rs and tests/factor_mixed.rs); the others refuse the pair rather than answer with a
+    // bound not checked there.
     if !factor_compound && dep.and_then(|d| d.rho()).is_some() && !spec.compound_sources.is_empty() {
         errs.push(Violation::new(
             "/dependence",
-            "the one-factor model does not yet take compound sources for this question; /v1/tail does",
+            "the one-factor model does not yet take compound sources for this question; tail, quantiles, distribution and layers do",
         ));
     }
     // Under a dependence model the exposures' own factor loadings are kept (the default is its rho).
