@@ -1,7 +1,13 @@
-"""Schemathesis hooks for scripts/acceptance.sh (SCHEMATHESIS_HOOKS=acceptance_hooks): keep the generated
-bodies that also meet the rules between fields that the OpenAPI document states in words but JSON Schema
-cannot (list lengths that must agree, a sum, an order). The second table of acceptance.sh measures what the
-service refuses beyond them: the work and memory budgets, and any rule the document forgets.
+"""Schemathesis hooks for scripts/acceptance.sh (SCHEMATHESIS_HOOKS=acceptance_hooks): make the generated
+bodies meet the rules the OpenAPI document states in words because JSON Schema cannot, as a client reading
+it would. `filter_body` leaves out those that break a rule no edit mends (list lengths that must agree,
+totals, a range's order and length); `map_body` mends the rest (a listed severity's weights, a geometric
+one's `largest`, units coarser where the lattice would pass the work budget, counts capped at 1e9 with a
+Poisson part, no factor model on the questions that do not take it in units) and writes the table part of
+multipart bodies; `flatmap_body` leaves out what `map_body` marked (a /v1/distribution range that would hold
+more than --max-thresholds totals). The second table of acceptance.sh measures what the service refuses beyond
+them: the memory ceiling, timeouts, and any rule the document forgets. Each rule here must be one the document
+states; change both together.
 
 Multipart bodies (`<Route>Upload`): the `exposures` part is bytes to a generator, so the hook writes it from
 the generated JSON part, as a client would from its book, by the rules of `ExposuresTable`: the second half of
@@ -13,9 +19,8 @@ import math
 import statistics
 
 import schemathesis
-from hypothesis import strategies as st
-
 from arrow_stream import arrow_stream
+from hypothesis import strategies as st
 
 POISSON_RATE = 1e9  # the largest total Poisson rate (portfolio::Limits), stressed rates included
 MAX_THRESHOLDS = 10_000  # --max-thresholds at its default
@@ -153,7 +158,7 @@ def _rebucket(request: dict) -> None:
     _severities(request)
 
 
-def _csv_field(value, delimiter: str) -> str:
+def _csv_field(value) -> str:
     # Every field quoted (a quote doubled), so that any delimiter the schema allows, even a digit or a
     # point, separates the fields (ExposuresTable: "quoted with `\"`").
     return '"' + str(value).replace('"', '""') + '"'
@@ -210,11 +215,13 @@ def _write_table(request: dict, form, content_type: str) -> None:
         data = arrow_stream([(name, kind, values) for name, kind, values in columns])
     else:
         delimiter = table.get("delimiter") or ","
-        lines = [delimiter.join(_csv_field(name, delimiter) for name, _, _ in columns)]
+        lines = [delimiter.join(_csv_field(name) for name, _, _ in columns)]
         for r in range(len(rows)):
             lines.append(
-                delimiter.join(_csv_field("" if v[r] is None else repr(v[r]) if k == "probability" else v[r], delimiter)
-                               for _, k, v in columns)
+                delimiter.join(
+                    _csv_field("" if v[r] is None else repr(v[r]) if k == "probability" else v[r])
+                    for _, k, v in columns
+                )
             )
         data = ("\n".join(lines) + "\n").encode()
     form.body["exposures"] = data

@@ -121,7 +121,9 @@ def arrow_stream(columns) -> bytes:
     n = len(columns[0][2]) if columns else 0
     schema = _message(
         _SCHEMA,
-        lambda b: b.table([(0, "h", 0), (1, "off", lambda: b.tables([lambda c=c: _field(b, c[0], c[1]) for c in columns]))]),
+        lambda b: b.table(
+            [(0, "h", 0), (1, "off", lambda: b.tables([lambda c=c: _field(b, c[0], c[1]) for c in columns]))]
+        ),
         0,
     )
     body, nodes, buffers = bytearray(), [], []
