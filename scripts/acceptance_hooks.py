@@ -242,9 +242,9 @@ def _in_units(request: dict, form) -> bool:
 
 
 def _dependence(request: dict, form, path: str) -> None:
-    """The rule of `Dependence`: under the one-factor model a book in loss units is answered by /v1/tail,
-    /v1/reverse-stress and /v1/chart only, one with compound sources by /v1/tail only. Elsewhere such a body
-    asks without the factor (what a client would do after reading the rule)."""
+    """The rule of `Dependence`: under the one-factor model a book in loss units is answered by /v1/tail and
+    /v1/reverse-stress only (/v1/chart takes no dependence), one with compound sources by /v1/tail only.
+    Elsewhere such a body asks without the factor (what a client would do after reading the rule)."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
     if path == "/v1/reverse-stress" and request.get("which") == "rho" and p.get("compound_sources"):
         request["which"] = "odds_factor"

@@ -160,8 +160,8 @@ fn rules(doc: &mut Value) {
     append(
         &mut schemas["Dependence"]["description"],
         "Under `one_factor_gaussian`, a portfolio in loss units (a `units` value anywhere, a units column of a \
-         table, or compound sources) is answered by /v1/tail, /v1/reverse-stress and /v1/chart only, and one \
-         with compound sources by /v1/tail only (nor does /v1/reverse-stress search `rho` for it); the other \
+         table, or compound sources) is answered by /v1/tail and /v1/reverse-stress only, and one with \
+         compound sources by /v1/tail only (nor does /v1/reverse-stress search `rho` for it); the other \
          questions refuse it (422 at `/dependence`).",
     );
     multipart(doc);
