@@ -1,8 +1,8 @@
 #!/usr/bin/env bash
 # How much of what the schema allows does the service answer? Schemathesis generates schema-valid requests
 # only (positive mode, the random "fuzzing" phase), every request is recorded (HAR), and
-# scripts/acceptance_table.py prints, per operation, the share answered 200, failing when a JSON operation is
-# below MIN_RATE. A low share means the document allows what the service refuses: a rule the schema could
+# scripts/acceptance_table.py prints, per operation and body type, the share answered 200, failing when one
+# is below MIN_RATE. A low share means the document allows what the service refuses: a rule the schema could
 # state but does not.
 #
 #   scripts/acceptance.sh                     # 100 cases per operation, seed 1, release build
@@ -10,15 +10,16 @@
 #   LIMITS="--max-work 1e12" NO_BUILD=1 scripts/acceptance.sh    # extra server flags; skip the build
 #
 # The server runs with the limits the document states (its `maxItems` and maximums are the defaults of
-# `tailtally --help`), except for the work budget, which a schema cannot state (it depends on n, the method and
-# the question): the default budget is kept, so what is refused as too costly counts against the share.
-# MIN_RATE (default 0.6) is below the issue's goal of 0.8 on purpose: at the default work budget the service
-# refuses (413) up to a third of the generated portfolios on some questions (n x evaluations x method, which no
-# schema can state), and the share moves by +-10 points between runs (two workers). With the budget raised,
-# `LIMITS="--max-work 1e12"`, every JSON operation measured >= 90% with the rules between fields (4 minutes on
-# a loaded machine, too slow for CI); the .ci/run step holds the lower bar at the default limits.
-# Multipart operations (exposures as a CSV or Arrow table) are measured and reported, but not held to the
-# threshold: their table is opaque bytes to a generator. POST /v1/batch (NDJSON) is left out.
+# `tailtally --help`), and the default work budget, which no schema can state (it depends on n, the lattice,
+# the method and the question): what is refused as too costly counts against the share.
+# Multipart bodies (exposures as a table) count on their own line: the hooks write their `exposures` part from
+# the generated JSON part, as CSV or Arrow, by the rules the document states in words (`ExposuresTable`).
+# MIN_RATE holds for every operation, JSON and multipart, in the second pass. It stays 0.6, below the issue's
+# goal of 0.8: measured at 50 cases per operation on a debug build (seeds 1 and 2, three runs each), every
+# line was >= 88% but one, /v1/chart's multipart form at 72% in one run (a 413 for exposures x plotted counts
+# over the work budget, a rule the document does not state yet, the case repeated by the generator); the
+# multipart lines have 6-30 cases each, so one refusal moves them by up to 17 points, and the misses are 408
+# timeouts of a loaded machine and 413s of the memory ceiling. POST /v1/batch (NDJSON) is left out.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -49,8 +50,8 @@ measure() {
         --continue-on-failure \
         --suppress-health-check all \
         --report har --report-har-path "$1" >"$1.log" 2>&1 || {
-        echo "schemathesis found server errors (5xx); the tables below are measured all the same:"
-        grep -B2 -A6 "Server error" "$1.log" | cut -c1-400 | head -40
+        echo "schemathesis found server errors (5xx) or stopped on an error; the tables below are measured all the same:"
+        { grep -B2 -A6 -E "Server error|Runtime Error" "$1.log" || true; } | cut -c1-400 | head -40
         SERVER_ERRORS=1; }
 }
 SERVER_ERRORS=0
@@ -60,8 +61,8 @@ PYTHONPATH="$PWD/scripts${PYTHONPATH:+:$PYTHONPATH}" SCHEMATHESIS_HOOKS=acceptan
 echo "Schema-valid requests:"
 python3 scripts/acceptance_table.py "$WORK/schema.har" 0
 echo
-echo "Schema-valid requests that meet the rules between fields (ids and loadings one per probability; the totals of"
-echo "exposures and of Poisson rates; from <= to within --max-thresholds):"
+echo "Schema-valid requests that meet the rules the document states in words (scripts/acceptance_hooks.py: lists one"
+echo "per probability, totals, ranges, coarser units for the work budget, the factor model's questions, the table part):"
 status=0
 python3 scripts/acceptance_table.py "$WORK/rules.har" "$MIN_RATE" || status=1
 # Server errors are the contract check's to fail on (scripts/schemathesis.sh); here they are only shown.

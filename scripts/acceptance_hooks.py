@@ -1,16 +1,34 @@
-"""Schemathesis hooks for scripts/acceptance.sh (SCHEMATHESIS_HOOKS=acceptance_hooks): keep the generated
-bodies that also meet the rules between fields that the OpenAPI document states in words but JSON Schema
-cannot (list lengths that must agree, a sum, an order). The second table of acceptance.sh measures what the
-service refuses beyond them: the work and memory budgets, and any rule the document forgets."""
+"""Schemathesis hooks for scripts/acceptance.sh (SCHEMATHESIS_HOOKS=acceptance_hooks): make the generated
+bodies meet the rules the OpenAPI document states in words because JSON Schema cannot, as a client reading
+it would. `filter_body` leaves out those that break a rule no edit mends (list lengths that must agree,
+totals, a range's order and length); `map_body` mends the rest (a listed severity's weights, a geometric
+one's `largest`, units coarser where the lattice would pass the work budget, counts capped at 1e9 with a
+Poisson part, no factor model on the questions that do not take it in units) and writes the table part of
+multipart bodies; `flatmap_body` leaves out what `map_body` marked (a /v1/distribution range that would hold
+more than --max-thresholds totals). The second table of acceptance.sh measures what the service refuses beyond
+them: the memory ceiling, timeouts, and any rule the document forgets. Each rule here must be one the document
+states; change both together.
 
+Multipart bodies (`<Route>Upload`): the `exposures` part is bytes to a generator, so the hook writes it from
+the generated JSON part, as a client would from its book, by the rules of `ExposuresTable`: the second half of
+`portfolio.probabilities` (with their ids and units) moves into a table with the columns `table` names, as CSV
+or as an Arrow IPC stream, whichever content type Schemathesis picked for the part."""
+
+import itertools
 import math
+import statistics
 
 import schemathesis
+from arrow_stream import arrow_stream
+from hypothesis import strategies as st
 
 POISSON_RATE = 1e9  # the largest total Poisson rate (portfolio::Limits), stressed rates included
 MAX_THRESHOLDS = 10_000  # --max-thresholds at its default
 MAX_LISTED = 10_000_000  # --max-listed-exposures: probabilities plus the families' members
 MAX_TOTAL = 1_000_000_000  # --max-total-exposures: those plus the groups' sizes
+MAX_SEVERITY_SIZES = 100_000  # portfolio::validate::MAX_SEVERITY_SIZES
+MAX_UNBOUNDED_COUNT = 1_000_000_000  # the largest count served with a Poisson part (analytics::scenario)
+LATTICE = 100_000  # the widest lattice the hooks leave (steps), well inside the work budget of 2e9
 
 
 def _portfolio_ok(body: dict) -> bool:
@@ -28,15 +46,10 @@ def _portfolio_ok(body: dict) -> bool:
         return False
     stress = body.get("stress") or {}
     factor = max([1.0] + [float(v) for v in stress.values() if isinstance(v, (int, float))])
-    if float(sum(p.get("poisson_rates") or [])) * factor > POISSON_RATE:
+    # The total Poisson rate: the sources' and the compound sources' rates (their events' rate).
+    compound = [s.get("rate", 0) for s in p.get("compound_sources") or [] if isinstance(s, dict)]
+    if float(sum(p.get("poisson_rates") or []) + sum(compound)) * factor > POISSON_RATE:
         return False
-    # A geometric severity: `largest` >= `first` (map_body sets it; generated bodies it did not reach are dropped).
-    for src in p.get("compound_sources") or []:
-        sev = src.get("severity") if isinstance(src, dict) else None
-        if isinstance(sev, dict) and sev.get("kind") == "geometric":
-            first, largest = sev.get("first"), sev.get("largest")
-            if isinstance(first, int) and isinstance(largest, int) and largest < first:
-                return False
     for f in p.get("families") or []:
         if f.get("kind") == "logistic":
             try:
@@ -47,32 +60,295 @@ def _portfolio_ok(body: dict) -> bool:
     return True
 
 
-@schemathesis.hook
-def map_body(context, body):
-    """A geometric severity's `largest` not below its `first`, and a listed severity's probabilities sum to 1 (within 1e-9) and pair with its sizes: a rule between values
-    that JSON Schema cannot state; make generated ones meet it (equal weights over the sizes given)."""
-    p = body.get("portfolio") if isinstance(body, dict) else None
+def _whole(x) -> bool:
+    """A JSON whole number (Schemathesis writes some as 5.0)."""
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x) and x == int(x)
+
+
+def _request(body):
+    """The JSON request of a body, and the multipart form it came in (None for JSON): a multipart body is a
+    form object (`{"request": ..., "exposures": ...}`) with the content type Schemathesis picked per part."""
+    form = getattr(body, "body", None)
+    if isinstance(form, dict):
+        return form.get("request"), body
+    return body, None
+
+
+def _severities(request: dict) -> None:
+    """A geometric severity's `largest` not below its `first`, and a listed severity's probabilities sum to 1
+    (within 1e-9) and pair with its sizes: rules between values that JSON Schema cannot state; make generated
+    ones meet them (equal weights over the sizes given; at most MAX_SEVERITY_SIZES sizes up to `largest`)."""
+    p = request.get("portfolio")
     for src in (p.get("compound_sources") or []) if isinstance(p, dict) else []:
         sev = src.get("severity") if isinstance(src, dict) else None
         if isinstance(sev, dict) and sev.get("kind") == "listed" and isinstance(sev.get("sizes"), list):
             n = len(sev["sizes"])
             sev["probabilities"] = [1.0 / n] * n if n else []
         elif isinstance(sev, dict) and sev.get("kind") == "geometric":
-            # `largest` >= `first`, and at most MAX_SEVERITY_SIZES sizes between them.
             first, step = sev.get("first"), sev.get("step")
-            if isinstance(first, int) and isinstance(step, int) and step > 0:
+            if _whole(first) and _whole(step) and step > 0:
+                first, step = int(first), int(step)
                 sev["largest"] = min(first + 10 * step, 1_000_000_000) if first <= 1_000_000_000 else first
+
+
+def _sizes(sev: dict) -> list:
+    """The sizes of a compound source's severity (listed, or geometric from `first` by `step` to `largest`)."""
+    if sev.get("kind") == "listed":
+        return [x for x in sev.get("sizes") or [] if _whole(x)]
+    first, step, largest = sev.get("first"), sev.get("step"), sev.get("largest")
+    if _whole(first) and _whole(step) and _whole(largest) and step > 0:
+        return list(itertools.islice(range(int(first), int(largest) + 1, int(step)), MAX_SEVERITY_SIZES))
+    return []
+
+
+def _lattice_width(p: dict) -> float:
+    """About the lattice steps the exact engine spans (the document's rule under `portfolio.units`): every
+    listed exposure's and family member's units, a group's count window (about 20 sqrt(size) wide) times its
+    units, a compound source's sizes times the window of its count. 0 for a count without units (no lattice).
+    The greatest common divisor is left out: a bound, not the service's estimate."""
+    units = [u for u in p.get("units") or [] if _whole(u)]
+    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
+    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
+    sources = [s for s in p.get("compound_sources") or [] if isinstance(s, dict)]
+    if not (units or sources or any(f.get("units") for f in families) or any(g.get("units") for g in groups)):
+        return 0.0
+    width = float(sum(units)) if units else float(len(p.get("probabilities") or []))
+    for f in families:
+        members = len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0)
+        width += float(members) * float(f.get("units") or 1)
+    for g in groups:
+        m = float(g.get("size") or 0)
+        width += min(m + 1, 20 * math.sqrt(m) + 100) * float(g.get("units") or 1)
+    for src in sources:
+        sev, rate = src.get("severity"), src.get("rate")
+        if isinstance(sev, dict) and isinstance(rate, (int, float)) and math.isfinite(rate):
+            window = 2 * (math.sqrt(80 * rate) + 14) + 4
+            width += window * float(sum(_sizes(sev)))
+    return width
+
+
+def _rebucket(request: dict) -> None:
+    """Coarser units where the lattice would be wider than LATTICE steps: every unit and severity size divided
+    by one factor and rounded (at least 1), as the document's rule and the 413's advice say an actuary would.
+    The work budget then holds for all but the questions with the most evaluations."""
+    p = request.get("portfolio")
+    if not isinstance(p, dict):
+        return
+    width = _lattice_width(p)
+    if width <= LATTICE:
+        return
+    factor = math.ceil(width / LATTICE)
+
+    def coarser(u):
+        return max(1, round(u / factor)) if _whole(u) else u
+
+    if isinstance(p.get("units"), list):
+        p["units"] = [coarser(u) for u in p["units"]]
+    for part in (p.get("families") or []) + (p.get("groups") or []):
+        if isinstance(part, dict) and part.get("units") is not None:
+            part["units"] = coarser(part["units"])
+    for src in p.get("compound_sources") or []:
+        sev = src.get("severity") if isinstance(src, dict) else None
+        if isinstance(sev, dict) and sev.get("kind") == "listed" and isinstance(sev.get("sizes"), list):
+            sev["sizes"] = [coarser(x) for x in sev["sizes"]]
+        elif isinstance(sev, dict):
+            for key in ("first", "step", "largest"):
+                if key in sev:
+                    sev[key] = coarser(sev[key])
+    _severities(request)
+
+
+def _csv_field(value) -> str:
+    # Every field quoted (a quote doubled), so that any delimiter the schema allows, even a digit or a
+    # point, separates the fields (ExposuresTable: "quoted with `\"`").
+    return '"' + str(value).replace('"', '""') + '"'
+
+
+def _names(request: dict) -> dict:
+    """The columns the table holds, by the rules of `ExposuresTable`: the names `table` gives, else the
+    defaults, with surrounding white space removed (a CSV header is read so), three different names."""
+    table = request.get("table")
+    if not isinstance(table, dict):
+        table = None
+    names = {}
+    for column in ("probability", "id", "units"):
+        given = table.get(column) if table else None
+        name = given.strip() if isinstance(given, str) else column
+        name = name or f"{column}_column"
+        while name in names.values():
+            name += "_" + column
+        # A name changed here, or a default that would clash, is written into `table` (which then exists).
+        if table is not None and (given is not None or name != column):
+            table[column] = name
+        names[column] = name
+    return names
+
+
+def _write_table(request: dict, form, content_type: str) -> None:
+    """Move the second half of the JSON part's probabilities (their ids and units with them) into the
+    `exposures` part, written as `content_type`. The service appends the table's rows after the JSON's, so the
+    request means the same portfolio; `portfolio.loadings`, one per probability with the table's rows
+    included, stays as generated."""
+    p = request.get("portfolio")
+    if not isinstance(p, dict):
+        return
+    table = request.get("table") if isinstance(request.get("table"), dict) else {}
+    names = _names(request)
+    probabilities = list(p.get("probabilities") or [])
+    keep = len(probabilities) // 2
+    rows = probabilities[keep:]
+    ids = list(p.get("ids") or [])
+    units = list(p.get("units") or [])
+    columns = [(names["probability"], "probability", rows)]
+    # An id column when the JSON has ids or `table` names one (then it must exist: no id on these rows).
+    if ids or table.get("id") is not None:
+        columns.append((names["id"], "id", ids[keep:] if ids else [None] * len(rows)))
+    # A units column when the JSON has units or `table` names one (then 1 unit, the default, on each row).
+    if units or table.get("units") is not None:
+        columns.append((names["units"], "units", [int(u) for u in units[keep:]] if units else [1] * len(rows)))
+    p["probabilities"] = probabilities[:keep]
+    if ids:
+        p["ids"] = ids[:keep]
+    if units:
+        p["units"] = units[:keep]
+    if content_type == "application/vnd.apache.arrow.stream":
+        data = arrow_stream([(name, kind, values) for name, kind, values in columns])
+    else:
+        delimiter = table.get("delimiter") or ","
+        lines = [delimiter.join(_csv_field(name) for name, _, _ in columns)]
+        for r in range(len(rows)):
+            lines.append(
+                delimiter.join(
+                    _csv_field("" if v[r] is None else repr(v[r]) if k == "probability" else v[r])
+                    for _, k, v in columns
+                )
+            )
+        data = ("\n".join(lines) + "\n").encode()
+    form.body["exposures"] = data
+
+
+def _in_units(request: dict, form) -> bool:
+    p = request.get("portfolio")
+    if not isinstance(p, dict):
+        return False
+    parts = [x for x in (p.get("groups") or []) + (p.get("families") or []) if isinstance(x, dict)]
+    table = request.get("table") if isinstance(request.get("table"), dict) else {}
+    return bool(
+        p.get("units")
+        or p.get("compound_sources")
+        or any(x.get("units") is not None for x in parts)
+        or (form is not None and "exposures" in form.body and table.get("units") is not None)
+    )
+
+
+def _dependence(request: dict, form, path: str) -> None:
+    """The rule of `Dependence`: under the one-factor model a book in loss units is answered by /v1/tail and
+    /v1/reverse-stress only (/v1/chart takes no dependence), one with compound sources by /v1/tail only.
+    Elsewhere such a body asks without the factor (what a client would do after reading the rule)."""
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    if path == "/v1/reverse-stress" and request.get("which") == "rho" and p.get("compound_sources"):
+        request["which"] = "odds_factor"
+    dep = request.get("dependence")
+    if not (isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"):
+        return
+    if (_in_units(request, form) and path not in ("/v1/tail", "/v1/reverse-stress", "/v1/chart")) or (
+        p.get("compound_sources") and path != "/v1/tail"
+    ):
+        del request["dependence"]
+
+
+def _unbounded(request: dict) -> None:
+    """The rule under `portfolio.poisson_rates`: with a Poisson part the thresholds, counts and range ends are
+    at most 1e9 (MAX_UNBOUNDED_COUNT); larger generated ones are brought down to it."""
+    p = request.get("portfolio")
+    if not isinstance(p, dict):
+        return
+    rates = [r for r in p.get("poisson_rates") or [] if isinstance(r, (int, float))]
+    rates += [s.get("rate") for s in p.get("compound_sources") or [] if isinstance(s, dict)]
+    if not any(isinstance(r, (int, float)) and r > 0 for r in rates):
+        return
+    top = MAX_UNBOUNDED_COUNT
+    for key in ("threshold", "from", "to"):
+        if isinstance(request.get(key), (int, float)) and request[key] > top:
+            request[key] = top
+    if isinstance(request.get("thresholds"), list):
+        request["thresholds"] = [min(k, top) if isinstance(k, (int, float)) else k for k in request["thresholds"]]
+
+
+@schemathesis.hook
+def map_body(context, body):
+    request, form = _request(body)
+    if not isinstance(request, dict):
+        return body
+    _severities(request)
+    _rebucket(request)
+    _dependence(request, form, context.operation.path)
+    _unbounded(request)
+    if context.operation.path == "/v1/distribution" and not _central_range_fits(request):
+        _LEFT_OUT.add(id(body))
+        return body
+    if form is not None:
+        if "exposures" in form.body:
+            _write_table(request, form, form.content_types.get("exposures", "text/csv"))
+        elif isinstance(request.get("table"), dict):
+            # A `table` object needs the `exposures` part (the form's schema says so with if/then).
+            del request["table"]
     return body
+
+
+def _central_range_fits(request: dict) -> bool:
+    """/v1/distribution without `from` and `to`: the range holding all but `mass` (default 1e-12) must have at
+    most --max-thresholds totals. An upper bound of the standard deviation (p(1 - p) <= 1/4 where a stress or a
+    family hides p; every source's rate times the largest stress factor) times twice the normal quantile of
+    mass / 2 estimates the range; a body whose bound exceeds the limit is left out."""
+    p = request.get("portfolio")
+    if not isinstance(p, dict) or request.get("from") is not None or request.get("to") is not None:
+        return True
+    stress = request.get("stress") or {}
+    factor = max([1.0] + [float(v) for v in stress.values() if isinstance(v, (int, float))])
+
+    def v(q):
+        return 0.25 if stress or not isinstance(q, (int, float)) else q * (1 - q)
+
+    probabilities = p.get("probabilities") or []
+    units = p.get("units") or [1] * len(probabilities)
+    var = sum(v(q) * float(u) ** 2 for q, u in zip(probabilities, units) if _whole(u))
+    for g in p.get("groups") or []:
+        var += float(g.get("size") or 0) * v(g.get("probability")) * float(g.get("units") or 1) ** 2
+    for f in p.get("families") or []:
+        members = len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0)
+        var += float(members) * 0.25 * float(f.get("units") or 1) ** 2
+    var += factor * float(sum(p.get("poisson_rates") or []))
+    for src in p.get("compound_sources") or []:
+        sev = src.get("severity") if isinstance(src, dict) else None
+        if isinstance(sev, dict) and isinstance(src.get("rate"), (int, float)):
+            var += factor * src["rate"] * float(max(_sizes(sev), default=1)) ** 2
+    mass = request.get("mass") or 1e-12
+    z = -statistics.NormalDist().inv_cdf(min(max(mass / 2, 1e-300), 0.25))
+    return 2 * z * math.sqrt(var) + 1 <= MAX_THRESHOLDS
 
 
 @schemathesis.hook
 def filter_body(context, body) -> bool:
-    if not isinstance(body, dict):
+    request, _ = _request(body)
+    if not isinstance(request, dict):
         return True
-    if not _portfolio_ok(body):
+    if not _portfolio_ok(request):
         return False
     # /v1/distribution: `to` >= `from`, the range no longer than --max-thresholds.
-    a, b = body.get("from"), body.get("to")
+    a, b = request.get("from"), request.get("to")
     if isinstance(a, (int, float)) and isinstance(b, (int, float)) and not (a <= b < a + MAX_THRESHOLDS):
         return False
     return True
+
+
+# Bodies map_body found to break a rule it cannot mend, left out by flatmap_body (which runs after it).
+_LEFT_OUT: set = set()
+
+
+@schemathesis.hook
+def flatmap_body(context, body):
+    if id(body) in _LEFT_OUT:
+        _LEFT_OUT.discard(id(body))
+        return st.nothing()
+    return st.just(body)

@@ -64,7 +64,6 @@ const POISSON_RATE: f64 = 1e9;
 fn rules(doc: &mut Value) {
     examples(doc);
     doc["info"]["license"]["identifier"] = json!("MIT");
-    multipart(doc);
     integer_ranges(&mut doc["components"]["schemas"]);
     let schemas = doc["components"]["schemas"].as_object_mut().expect("components.schemas");
     let probability = json!({"minimum": 0.0, "maximum": 1.0});
@@ -143,6 +142,29 @@ fn rules(doc: &mut Value) {
     merge(&mut listed["sizes"], &json!({"minItems": 1}));
     tagged(schemas, "Dependence", "Dependence", "model");
     merge(&mut schemas["FamilyLogistic"]["properties"]["scores"], &json!({"maxItems": LISTED}));
+    // Rules the service enforces that no keyword states: in words, so that a client (and the acceptance
+    // hooks, scripts/acceptance_hooks.py) can meet them.
+    append(
+        &mut schemas["PortfolioSpec"]["properties"]["units"]["description"],
+        "The exact engine works on the lattice of totals: its width in steps is about the sum of the units \
+         (a group's window of counts times its units, a family's members times theirs, a compound source's \
+         sizes times its window of counts) over their greatest common divisor. The work of a question, that \
+         width plus the exposures times its evaluations, must fit the work budget (`--max-work`, 2e9 by \
+         default); past it the answer is 413 with the factor by which coarser units would fit: divide every \
+         unit and severity size by it and round.",
+    );
+    let unbounded = "With a Poisson part (a rate above 0 here, or a compound source) the total has no largest \
+         value, and a threshold, count or range end above 1e9 is refused (422).";
+    append(&mut schemas["PortfolioSpec"]["properties"]["poisson_rates"]["description"], unbounded);
+    append(&mut schemas["PortfolioSpec"]["properties"]["compound_sources"]["description"], unbounded);
+    append(
+        &mut schemas["Dependence"]["description"],
+        "Under `one_factor_gaussian`, a portfolio in loss units (a `units` value anywhere, a units column of a \
+         table, or compound sources) is answered by /v1/tail and /v1/reverse-stress only, and one with \
+         compound sources by /v1/tail only (nor does /v1/reverse-stress search `rho` for it); the other \
+         questions refuse it (422 at `/dependence`).",
+    );
+    multipart(doc);
 }
 
 /// Each JSON operation's example request (openapi/examples/requests.json) and, beside its 200 answer, the
@@ -173,19 +195,100 @@ fn examples(doc: &mut Value) {
     }
 }
 
-/// The multipart form: its `request` part is the route's JSON request with the optional `table` object, sent
-/// as JSON; its `exposures` part a CSV table or an Arrow IPC stream.
+/// The multipart form of each computing route, `<Route>Upload`: its `request` part is the route's JSON
+/// request with the optional `table` object (`<Route>UploadRequest`, a copy of the request's schema, which
+/// is closed), sent as JSON; its `exposures` part a CSV table or an Arrow IPC stream (`ExposuresTable`).
+/// Run last, so that the copies carry every rule added above.
 fn multipart(doc: &mut Value) {
-    doc["components"]["schemas"]["TableUpload"]["properties"]["request"]["properties"] =
-        json!({"table": {"$ref": "#/components/schemas/TableSpec"}});
     let encoding = json!({"request": {"contentType": "application/json"},
                           "exposures": {"contentType": "text/csv, application/vnd.apache.arrow.stream"}});
-    for (_, item) in doc["paths"].as_object_mut().expect("paths") {
-        let form = item.pointer_mut("/post/requestBody/content/multipart~1form-data");
-        if let Some(form) = form {
-            form["encoding"] = encoding.clone();
+    let mut routes = Vec::new();
+    for (path, item) in doc["paths"].as_object_mut().expect("paths") {
+        let Some(content) = item.pointer_mut("/post/requestBody/content") else { continue };
+        if content.get("multipart/form-data").is_none() {
+            continue;
         }
+        let request = content["application/json"]["schema"]["$ref"].as_str().expect("a JSON request schema");
+        let request = request.rsplit('/').next().expect("a name").to_string();
+        let form = format!("{}Upload", request.strip_suffix("Request").unwrap_or(&request));
+        content["multipart/form-data"] =
+            json!({"schema": {"$ref": format!("#/components/schemas/{form}")}, "encoding": encoding});
+        item["post"]["requestBody"]["description"] = json!(format!(
+            "The request as JSON, or as multipart/form-data (`{form}`) with the listed exposures as a CSV or Arrow table"
+        ));
+        routes.push((path.clone(), request, form));
     }
+    let schemas = doc["components"]["schemas"].as_object_mut().expect("components.schemas");
+    schemas.remove("TableUpload");
+    for (path, request, form) in routes {
+        let mut part = schemas[&request].clone();
+        // An object or absent: the service refuses `"table": null`.
+        part["properties"]["table"] = json!({"$ref": "#/components/schemas/TableSpec"});
+        part["description"] = json!(format!(
+            "The `request` part of a multipart {path} request: `{request}` with the optional `table` object naming \
+             the columns of the `exposures` part, sent as application/json (or without a Content-Type)."
+        ));
+        schemas.insert(format!("{form}Request"), part);
+        schemas.insert(
+            form.clone(),
+            json!({
+                "description": format!(
+                    "{path} as multipart/form-data: the JSON request as the part `request`, the listed exposures as the \
+                     part `exposures` (`ExposuresTable`). A `table` object needs the `exposures` part."
+                ),
+                "type": "object",
+                "required": ["request"],
+                "additionalProperties": false,
+                "properties": {
+                    "request": {"$ref": format!("#/components/schemas/{form}Request")},
+                    "exposures": {"$ref": "#/components/schemas/ExposuresTable"},
+                },
+                // The condition names the properties it requires (a linter asks so).
+                "if": {"properties": {"request": {"required": ["table"], "properties": {"table": {"type": "object"}}}}},
+                "then": {"required": ["exposures"], "properties": {"exposures": {"type": "string"}}},
+            }),
+        );
+    }
+    schemas.insert("ExposuresTable".into(), exposures_table());
+    // A name the table must hold; the delimiter one ASCII character other than a quote or a line break.
+    let table = &mut schemas["TableSpec"]["properties"];
+    for column in ["probability", "id", "units"] {
+        merge(&mut table[column], &json!({"minLength": 1}));
+    }
+    merge(
+        &mut table["delimiter"],
+        &json!({"minLength": 1, "maxLength": 1,
+                "pattern": "^[\\u0000-\\u0009\\u000B\\u000C\\u000E-\\u0021\\u0023-\\u007F]$"}),
+    );
+}
+
+/// The `exposures` part: the rules of the table in words (what a schema for bytes cannot state), an example.
+fn exposures_table() -> Value {
+    let units = crate::portfolio::validate::MAX_UNITS;
+    json!({
+        "description": format!("The listed exposures as a table, one row per exposure, appended to \
+`portfolio.probabilities` after those listed in the JSON part (with n of those, row r has index n + r).
+
+CSV (`text/csv`): a header row of column names, then one row per exposure. Fields are separated by \
+    `table.delimiter` (default `,`) and quoted with `\"` where they hold the delimiter, a quote or a line break; \
+    names and fields are read with surrounding white space removed, so a name in `table` with surrounding white \
+space matches no CSV column. Columns in any order, others ignored, the three below each under one name:
+- the probability (`table.probability`, default `probability`): a decimal number in [0, 1] on every row;
+- an optional id (`table.id`, default `id`): any text, empty for none;
+- optional loss units (`table.units`, default `units`): a whole number in 1..={units} on every row.
+
+Arrow (`application/vnd.apache.arrow.stream`, the IPC stream format, not the file format): the same columns \
+by field name; the probability Float64, the id Utf8, LargeUtf8 or Int64, the units Int64 or UInt64.
+
+Rules between the parts: a column named in `table` must exist, and the probability, id and units columns are \
+    three different columns; `portfolio.ids` and `portfolio.units` of the JSON part, when given, have one entry per \
+    probability of the JSON part (the table's rows bring their own, or none and 1 unit); `portfolio.loadings`, when \
+    given, has one per probability, the table's rows included; the table's units enter the lattice as the JSON's \
+    do (see `portfolio.units`). Problems about a row point at `/exposures/<row>/<column>` (rows from 0 after the \
+    header)."),
+        "type": "string",
+        "examples": ["id,probability,units\nL-1,0.01,250\nL-2,0.02,40\nL-3,0.15,1000\n"],
+    })
 }
 
 /// The upper end of every unsigned integer field whose type gives the only bound (u32 and u64 counts): a
@@ -212,6 +315,14 @@ fn integer_ranges(schema: &mut Value) {
 fn list(schema: &mut Value, range: &Value, max: u64) {
     merge(&mut schema["items"], range);
     merge(schema, &json!({"maxItems": max}));
+}
+
+/// Add a paragraph to a description (or start one).
+fn append(description: &mut Value, text: &str) {
+    *description = match description.as_str() {
+        Some(d) if !d.is_empty() => json!(format!("{d}\n\n{text}")),
+        _ => json!(text),
+    };
 }
 
 /// Add the keys of `extra` to the object `schema`.

@@ -98,7 +98,9 @@ pub struct TableSpec {
 }
 crate::portfolio::objects::objects_only!(TableSpec, deserialize_only);
 
-/// The multipart form of every computing route (documentation only).
+/// The multipart form of every computing route as the derive sees it (documentation only): the document
+/// replaces it with one form per route, `<Route>Upload`, whose `request` part is that route's request schema
+/// and whose `exposures` part states the table's rules (`api::openapi`, `multipart`).
 #[derive(ToSchema)]
 #[allow(dead_code)]
 pub struct TableUpload {
