@@ -242,17 +242,18 @@ def _in_units(request: dict, form) -> bool:
 
 
 def _dependence(request: dict, form, path: str) -> None:
-    """The rule of `Dependence`: under the one-factor model a book in loss units is answered by /v1/tail and
-    /v1/reverse-stress only (/v1/chart takes no dependence), one with compound sources by /v1/tail only.
-    Elsewhere such a body asks without the factor (what a client would do after reading the rule)."""
+    """The rule of `Dependence`: under the one-factor model a book in loss units is answered by every question
+    but /v1/contributions (/v1/chart takes no dependence), one with compound sources by /v1/tail,
+    /v1/quantiles, /v1/distribution and /v1/layers only. Elsewhere such a body asks without the factor (what a
+    client would do after reading the rule)."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
     if path == "/v1/reverse-stress" and request.get("which") == "rho" and p.get("compound_sources"):
         request["which"] = "odds_factor"
     dep = request.get("dependence")
     if not (isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"):
         return
-    if (_in_units(request, form) and path not in ("/v1/tail", "/v1/reverse-stress", "/v1/chart")) or (
-        p.get("compound_sources") and path != "/v1/tail"
+    if (_in_units(request, form) and path == "/v1/contributions") or (
+        p.get("compound_sources") and path not in ("/v1/tail", "/v1/quantiles", "/v1/distribution", "/v1/layers")
     ):
         del request["dependence"]
 

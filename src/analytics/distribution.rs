@@ -139,7 +139,11 @@ impl Analytic for Distribution {
                 } else if b - a >= limits.max_thresholds as u64 && !has_units(&req.portfolio) {
                     errs.push(Violation::new(
                         "/to",
-                        format!("the range holds {} counts, over the limit of {}", b - a + 1, limits.max_thresholds),
+                        format!(
+                            "the range holds {} counts, over the limit of {}",
+                            (b - a) as u128 + 1,
+                            limits.max_thresholds
+                        ),
                     ));
                 }
             }
@@ -214,7 +218,7 @@ impl Analytic for Distribution {
         if to - from >= max_counts as u64 {
             return Err(Error::TooLarge(format!(
                 "the range {from}..{to} that holds the requested mass has {} counts, over the limit of {} (see --max-thresholds); ask for a larger mass or an explicit range",
-                to - from + 1,
+                (to - from) as u128 + 1,
                 max_counts
             )));
         }

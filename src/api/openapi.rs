@@ -160,9 +160,10 @@ fn rules(doc: &mut Value) {
     append(
         &mut schemas["Dependence"]["description"],
         "Under `one_factor_gaussian`, a portfolio in loss units (a `units` value anywhere, a units column of a \
-         table, or compound sources) is answered by /v1/tail and /v1/reverse-stress only, and one with \
-         compound sources by /v1/tail only (nor does /v1/reverse-stress search `rho` for it); the other \
-         questions refuse it (422 at `/dependence`).",
+         table, or compound sources) is answered by every question but /v1/contributions, and one with \
+         compound sources by /v1/tail, /v1/quantiles, /v1/distribution and /v1/layers only (so \
+         /v1/reverse-stress does not search `rho` for it); the other questions refuse it (422 at \
+         `/dependence`).",
     );
     multipart(doc);
 }
