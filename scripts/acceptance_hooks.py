@@ -28,6 +28,8 @@ MAX_LISTED = 10_000_000  # --max-listed-exposures: probabilities plus the famili
 MAX_TOTAL = 1_000_000_000  # --max-total-exposures: those plus the groups' sizes
 MAX_SEVERITY_SIZES = 100_000  # portfolio::validate::MAX_SEVERITY_SIZES
 MAX_UNBOUNDED_COUNT = 1_000_000_000  # the largest count served with a Poisson part (analytics::scenario)
+MAX_WORK = 2e9  # --max-work at its default
+MAX_BARS = 300  # analytics::chart::MAX_POINTS
 LATTICE = 100_000  # the widest lattice the hooks leave (steps), well inside the work budget of 2e9
 
 
@@ -285,7 +287,9 @@ def map_body(context, body):
     _rebucket(request)
     _dependence(request, form, context.operation.path)
     _unbounded(request)
-    if context.operation.path == "/v1/distribution" and not _central_range_fits(request):
+    if (context.operation.path == "/v1/distribution" and not _central_range_fits(request)) or (
+        context.operation.path == "/v1/chart" and not _chart_fits(request)
+    ):
         _LEFT_OUT.add(id(body))
         return body
     if form is not None:
@@ -295,6 +299,19 @@ def map_body(context, body):
             # A `table` object needs the `exposures` part (the form's schema says so with if/then).
             del request["table"]
     return body
+
+
+def _chart_fits(request: dict) -> bool:
+    """The rule of `ChartRequest`: (listed exposures and family members + 64 per group + 64 + the lattice width)
+    x (300 x (1 + overlay methods) + 1) within the work budget."""
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
+    members = sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
+    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
+    n = len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
+    methods = request.get("methods") if isinstance(request.get("methods"), list) else []
+    overlays = len({m for m in methods if m not in ("exact", "auto")})
+    return n * (MAX_BARS * (1 + overlays) + 1) <= MAX_WORK
 
 
 def _central_range_fits(request: dict) -> bool:

@@ -153,6 +153,13 @@ fn rules(doc: &mut Value) {
          default); past it the answer is 413 with the factor by which coarser units would fit: divide every \
          unit and severity size by it and round.",
     );
+    append(
+        &mut schemas["ChartRequest"]["description"],
+        "A chart evaluates up to 300 bars with the exact method and again with each overlay method, so its work \
+         is (listed exposures and family members + 64 per group + 64 + the lattice width in units, 0 for a \
+         count) x (300 x (1 + overlay methods) + 1); past the work budget (`--max-work`, 2e9 by default) the \
+         answer is 413.",
+    );
     let unbounded = "With a Poisson part (a rate above 0 here, or a compound source) the total has no largest \
          value, and a threshold, count or range end above 1e9 is refused (422).";
     append(&mut schemas["PortfolioSpec"]["properties"]["poisson_rates"]["description"], unbounded);
