@@ -169,7 +169,7 @@ fn bennett_radius(v: f64, b: f64) -> f64 {
     let mut x = bernstein * b / v;
     for _ in 0..60 {
         let next = x - (h(x) - c) / x.ln_1p();
-        if !(next < x) || !next.is_finite() {
+        if !next.is_finite() || next >= x {
             break;
         }
         x = next;
