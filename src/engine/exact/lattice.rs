@@ -130,7 +130,8 @@ pub fn tilted(model: &Model, t: f64) -> Tilted {
 /// as in a book of few events of many units each.
 ///
 /// Lower side: for X_i >= 0, e^(-y) <= 1 - y + y^2 / 2 (y >= 0) gives E e^(-s X_i) <= exp(-s E X_i + s^2 E X_i^2 / 2),
-/// so P(S - ES <= -r) <= exp(-r^2 / (2 m2)) (Chernoff; e.g. Boucheron, Lugosi and Massart 2013, Exercise 2.9),
+/// so P(S - ES <= -r) <= exp(-r^2 / (2 m2)) by Chernoff's bound at s = r / m2 (Maurer 2003, "A bound on the
+/// deviation probability for sums of non-negative random variables"; the derivation here is complete),
 /// free of the step: the lower side of a law of rare events of many units is short. For a Poisson part of
 /// rate lambda and step s, E e^(-y s N) = exp(lambda (e^(-y s) - 1)) gives the same with m2 = lambda s^2,
 /// its variance; Bennett's form holds for it with b = s exactly (its log-moment generating function is
