@@ -12,15 +12,27 @@ use std::collections::BinaryHeap;
 /// Direct convolution costs la * lb multiply-adds, the FFT about this many times N log2 N.
 const FFT_COST_FACTOR: f64 = 3.0;
 
-/// Convolution of a and b restricted to the output counts [lo, hi] (absolute counts).
+/// Convolution of a and b restricted to the counts where Bernstein's inequality leaves more than
+/// exp(-TRUNC_LN) of the product's mass on each side (`Window::keep_range`).
 pub fn product(a: &Window, b: &Window) -> Window {
+    let max = match (a.max, b.max) {
+        (Some(x), Some(y)) => Some(x + y),
+        _ => None,
+    };
+    let (klo, khi) = Window::keep_range(a.mean + b.mean, a.var + b.var, a.lo + b.lo, max);
+    product_within(a, b, klo, khi)
+}
+
+/// Convolution of a and b restricted to the output counts [klo, khi] (absolute counts), which the caller
+/// has chosen so that the exact product holds at most exp(-TRUNC_LN) of mass below klo and as much above khi:
+/// each cut side adds that much absolute error.
+pub fn product_within(a: &Window, b: &Window, klo: u64, khi: u64) -> Window {
     let mean = a.mean + b.mean;
     let var = a.var + b.var;
     let max = match (a.max, b.max) {
         (Some(x), Some(y)) => Some(x + y),
         _ => None,
     };
-    let (klo, khi) = Window::keep_range(mean, var, a.lo + b.lo, max);
     let klo = klo.max(a.lo + b.lo);
     let khi = khi.min(a.hi() + b.hi()).max(klo);
     let (la, lb) = (a.w.len(), b.w.len());

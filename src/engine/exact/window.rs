@@ -19,21 +19,6 @@ use crate::engine::numerics::float::compose;
 /// ln of the tail mass that one truncation may drop on each side: exp(-75) ~ 2.7e-33.
 pub const TRUNC_LN: f64 = 75.0;
 
-thread_local! {
-    /// The largest lattice step one summand of the laws being multiplied may add (see [`with_step`]).
-    static STEP: std::cell::Cell<f64> = const { std::cell::Cell::new(1.0) };
-}
-
-/// Run `f` with every truncation placed for summands of up to `step` lattice steps (losses in units): the
-/// products of a weighted model's leaves keep Bernstein's guarantee with b = step. Scoped, so a count's laws
-/// (step 1) are never affected.
-pub fn with_step<R>(step: u64, f: impl FnOnce() -> R) -> R {
-    let old = STEP.with(|s| s.replace(step as f64));
-    let out = f();
-    STEP.with(|s| s.set(old));
-    out
-}
-
 #[derive(Debug, Clone)]
 pub struct Window {
     /// Count of w[0].
@@ -111,9 +96,9 @@ impl Window {
     /// Bernstein radius s: a sum of independent variables with |X_i - E X_i| <= b and variance v satisfies
     /// P(S - ES >= s) <= exp(-s^2 / (2 (v + b s/3))) and likewise below (Bernstein 1924; e.g. Boucheron, Lugosi
     /// and Massart, "Concentration Inequalities", 2013, Thm 2.10). Solving for exp(-TRUNC_LN). The step b is 1
-    /// for a count, and the largest lattice step of one exposure inside [`with_step`] (losses in units).
+    /// for a count; products on a lattice place their truncations themselves (`lattice`).
     pub fn bernstein_radius(var: f64) -> f64 {
-        Self::bernstein_radius_step(var, STEP.with(|s| s.get()))
+        Self::bernstein_radius_step(var, 1.0)
     }
 
     /// [`Window::bernstein_radius`] for summands of at most `step` lattice steps each.
