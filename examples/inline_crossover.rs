@@ -4,22 +4,12 @@
 //!   cargo run --release --example inline_crossover
 //! The inline budget (`analytics::cost::INLINE_WORK`) is set where the question costs a few hand-offs.
 
+#[path = "common/timing.rs"]
+mod timing;
 use std::time::Instant;
 use tailtally::analytics::cancel::Cancel;
 use tailtally::analytics::tail::{Tail, TailRequest};
 use tailtally::config::ServiceLimits;
-
-fn median_us(mut f: impl FnMut()) -> f64 {
-    let mut v: Vec<f64> = (0..2001)
-        .map(|_| {
-            let t = Instant::now();
-            f();
-            t.elapsed().as_secs_f64() * 1e6
-        })
-        .collect();
-    v.sort_by(|a, b| a.total_cmp(b));
-    v[1000]
-}
 
 fn main() {
     let rt = tokio::runtime::Builder::new_multi_thread().worker_threads(2).enable_all().build().unwrap();
@@ -47,7 +37,7 @@ fn main() {
         let body = serde_json::json!({"portfolio": {"probabilities": ps},
             "thresholds": [mean.ceil() as u64, (mean * 1.5).ceil() as u64 + 2]});
         let req: TailRequest = serde_json::from_value(body).unwrap();
-        let t = median_us(|| {
+        let t = timing::median_us(2001, || {
             tailtally::analytics::run::<Tail>(&req, &limits, &Cancel::never()).unwrap();
         });
         let w = tailtally::analytics::cost::inline_work::<Tail>(&req).unwrap_or(f64::INFINITY);

@@ -2,25 +2,14 @@
 //! mean + 2 sd and + 5 sd) by the recursion and by tilted laws, side by side, medians of many runs.
 //!
 //!   cargo run --release --example small_books
+#[path = "common/timing.rs"]
+mod timing;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use std::time::Instant;
 use tailtally::engine::exact;
 use tailtally::engine::numerics::moments::Moments;
 use tailtally::engine::Side;
 use tailtally::portfolio::Model;
-
-fn median_us(mut f: impl FnMut(), reps: usize) -> f64 {
-    let mut t: Vec<f64> = (0..reps)
-        .map(|_| {
-            let s = Instant::now();
-            f();
-            s.elapsed().as_secs_f64() * 1e6
-        })
-        .collect();
-    t.sort_by(f64::total_cmp);
-    t[reps / 2]
-}
 
 fn main() {
     println!("| n | recursion us | tilted us | tilted / recursion | recursion rel. bound | tilted rel. bound |");
@@ -35,8 +24,8 @@ fn main() {
         let reps = 2001;
         let a = exact::small::evaluate(&model, &qs).expect("values above the floor");
         let b = exact::evaluate_tilted(&model, &m, &qs).0;
-        let ta = median_us(|| drop(std::hint::black_box(exact::small::evaluate(&model, &qs))), reps);
-        let tb = median_us(|| drop(std::hint::black_box(exact::evaluate_tilted(&model, &m, &qs))), reps);
+        let ta = timing::median_us(reps, || drop(std::hint::black_box(exact::small::evaluate(&model, &qs))));
+        let tb = timing::median_us(reps, || drop(std::hint::black_box(exact::evaluate_tilted(&model, &m, &qs))));
         println!("| {n} | {ta:.2} | {tb:.2} | {:.2} | {:.1e} | {:.1e} |", tb / ta, a[1].rel_err, b[1].rel_err);
     }
 }

@@ -7,22 +7,11 @@
 //! The HTTP side (hyper, middleware, the socket) is not here: see scripts/small_requests.sh and the perf
 //! summaries in benches/README.md.
 
-use std::time::Instant;
+#[path = "common/timing.rs"]
+mod timing;
 use tailtally::analytics::cancel::Cancel;
 use tailtally::analytics::tail::{Tail, TailRequest};
 use tailtally::config::ServiceLimits;
-
-fn median_us(mut f: impl FnMut()) -> f64 {
-    let mut v: Vec<f64> = (0..20_001)
-        .map(|_| {
-            let t = Instant::now();
-            f();
-            t.elapsed().as_secs_f64() * 1e6
-        })
-        .collect();
-    v.sort_by(|a, b| a.total_cmp(b));
-    v[10_000]
-}
 
 fn main() {
     // A fixed pseudo-random book: full 17-digit decimals, as a client's doubles usually are.
@@ -38,18 +27,18 @@ fn main() {
     let body =
         serde_json::to_vec(&serde_json::json!({"portfolio": {"probabilities": ps}, "thresholds": [12, 20]})).unwrap();
     let limits = ServiceLimits::from_options(&tailtally::config::Options::default());
-    let parse = median_us(|| {
+    let parse = timing::median_us(20_001, || {
         std::hint::black_box(tailtally::api::extract::parse::<TailRequest>(&body).unwrap());
     });
-    let plain = median_us(|| {
+    let plain = timing::median_us(20_001, || {
         std::hint::black_box(serde_json::from_slice::<TailRequest>(&body).unwrap());
     });
     let req: TailRequest = serde_json::from_slice(&body).unwrap();
-    let question = median_us(|| {
+    let question = timing::median_us(20_001, || {
         std::hint::black_box(tailtally::analytics::run::<Tail>(&req, &limits, &Cancel::never()).unwrap());
     });
     let answer = tailtally::analytics::run::<Tail>(&req, &limits, &Cancel::never()).unwrap();
-    let encode = median_us(|| {
+    let encode = timing::median_us(20_001, || {
         std::hint::black_box(serde_json::to_vec(&answer).unwrap());
     });
     let len = serde_json::to_vec(&answer).unwrap().len();

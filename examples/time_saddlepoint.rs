@@ -3,27 +3,16 @@
 //! taken once outside, as `Prepared` does before the method runs), and its passes one by one, median (minimum) in ms:
 //!   cargo run --release --example time_saddlepoint -- [N=1000000] [R=25]
 //! `perf record -g target/release/examples/time_saddlepoint 1000000 400` profiles the method alone.
+#[path = "common/timing.rs"]
+mod timing;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use std::hint::black_box;
-use std::time::Instant;
 use tailtally::engine::numerics::cgf;
 use tailtally::engine::saddlepoint::Saddlepoint;
 use tailtally::engine::{Prepared, Side, TailMethod};
 use tailtally::portfolio::Model;
-
-/// "median (minimum)" of r runs in ms: on a shared machine the minimum is the run that was not preempted.
-fn median(r: usize, mut f: impl FnMut()) -> String {
-    let mut v: Vec<f64> = (0..r)
-        .map(|_| {
-            let t = Instant::now();
-            f();
-            t.elapsed().as_secs_f64() * 1e3
-        })
-        .collect();
-    v.sort_by(|a, b| a.total_cmp(b));
-    format!("{:.3} ({:.3})", v[r / 2], v[0])
-}
+use timing::median_min_ms as median;
 
 fn main() {
     let mut args = std::env::args().skip(1);
