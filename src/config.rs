@@ -243,9 +243,13 @@ pub struct BatchLimits {
     pub parallelism: usize,
     /// Longest wait for more input before the batch ends with a problem line (None: wait for ever, as
     /// `tailtally eval` does on a terminal). Over HTTP it keeps a stalled client from holding its admission
-    /// turn for ever, now that the batch has no whole-request timeout.
+    /// turn for ever, now that the batch has no whole-request timeout. It is the request timeout, but at least
+    /// `MIN_READ_IDLE`.
     pub read_idle_timeout: Option<std::time::Duration>,
 }
+
+/// The shortest wait for more batch input, whatever the request timeout.
+pub const MIN_READ_IDLE: std::time::Duration = std::time::Duration::from_millis(250);
 
 impl BatchLimits {
     pub fn from_options(o: &Options) -> Self {
@@ -257,7 +261,9 @@ impl BatchLimits {
             max_lines: o.max_batch_lines,
             line_timeout: o.request_timeout(),
             parallelism: cores.min(o.max_concurrency).max(1),
-            read_idle_timeout: Some(o.request_timeout()),
+            // Not below a quarter second: a network pause of a few milliseconds between the headers and the
+            // body is normal, and a timeout meant for computing (tests set 1 ms) must not cut a healthy upload.
+            read_idle_timeout: Some(o.request_timeout().max(MIN_READ_IDLE)),
         }
     }
 }

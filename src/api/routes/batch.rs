@@ -30,8 +30,8 @@ Blank lines are skipped. Each line may be as long as `--max-body-bytes`; a batch
 /// kind, invalid request; pointers relative to the line's object, e.g. `/tail/thresholds/0`, and the line
 /// number in `detail`). A bad line never stops the batch. After `--max-batch-lines` lines the stream ends
 /// with one 413 problem line and the rest of the body is not read. Each line has the request timeout as its
-/// limit (a 408 problem line beyond), and so has each wait for more of the body (the answer then ends with a
-/// problem line); the batch as a whole has none.
+/// limit (a 408 problem line beyond), and so has each wait for more of the body, with at least 250 ms (the
+/// answer then ends with a problem line); the batch as a whole has none.
 #[utoipa::path(
     post, path = "/v1/batch", tag = "analytics",
     request_body(
