@@ -83,11 +83,11 @@ async fn the_tail_in_units_matches_enumeration_and_bad_requests_get_problems() {
     let (st, _, body) = s.post_json("/v1/tail", &q).await;
     // Compound sources now take every method (their estimated bounds measured: tests/units_methods.rs).
     assert_eq!(st, 200, "{body}");
-    // Contributions under the factor model do not take units yet (independent books do).
+    // Contributions under the factor model take units too (tests/factor_contributions.rs checks their values).
     let factor = json!({"model": "one_factor_gaussian", "rho": 0.2});
     let q = json!({"portfolio": portfolio, "threshold": 5, "dependence": factor});
-    let (st, ct, body) = s.post_json("/v1/contributions", &q).await;
-    assert_problem(st, &ct, &body, 422, Some("/dependence"));
+    let (st, _, body) = s.post_json("/v1/contributions", &q).await;
+    assert_eq!(st, 200, "{body}");
     s.shutdown().await.unwrap();
 }
 
