@@ -16,10 +16,10 @@
 //! with a positive loading its derivative is the limit where the factor given its latent variable goes to -inf
 //! (p = 0) or +inf (p = 1), taken at the end of the factor's range, +-37.
 //!
-//! In loss units (and with compound sources) exposure i adds u_i units: independent, dP(S >= k)/dp_i = P(S_{-i}
-//! >= k - u_i) - P(S_{-i} >= k), each S_{-i} an exact law on the lattice; under the factor the same difference
-//! given Z, averaged as above with dp_i(Z)/dp_i (`factor::Factor::contributions_in_units`), and an impossible
-//! or certain exposure's figures are those of S (or S - u_i).
+//! In loss units (and with compound sources) exposure i adds u_i units: independent, dP(S >= k)/dp_i =
+//! P(S_{-i} >= k - u_i) - P(S_{-i} >= k), each S_{-i} an exact law on the lattice; under the factor the same
+//! difference given Z, averaged as above with dp_i(Z)/dp_i (`factor::Factor::contributions_in_units`), and an
+//! impossible or certain exposure's figures are those of S (or S - u_i).
 
 use super::cost::{self, Footprint};
 use super::dependence::Dependence;
