@@ -3,7 +3,7 @@ bodies meet the rules the OpenAPI document states in words because JSON Schema c
 it would. `filter_body` leaves out those that break a rule no edit mends (list lengths that must agree,
 totals, a range's order and length); `map_body` mends the rest (a listed severity's weights, a geometric
 one's `largest`, units coarser where the lattice would pass the work budget, counts capped at 1e9 with a
-Poisson part, no factor model on the questions that do not take it in units) and writes the table part of
+Poisson part, no factor model on contributions in units past the work budget) and writes the table part of
 multipart bodies; `flatmap_body` leaves out what `map_body` marked (a /v1/distribution range that would hold
 more than --max-thresholds totals). The second table of acceptance.sh measures what the service refuses beyond
 them: the memory ceiling, timeouts, and any rule the document forgets. Each rule here must be one the document
@@ -29,6 +29,7 @@ MAX_TOTAL = 1_000_000_000  # --max-total-exposures: those plus the groups' sizes
 MAX_SEVERITY_SIZES = 100_000  # portfolio::validate::MAX_SEVERITY_SIZES
 MAX_UNBOUNDED_COUNT = 1_000_000_000  # the largest count served with a Poisson part (analytics::scenario)
 MAX_WORK = 2e9  # --max-work at its default
+FACTOR_WORK = 150.0  # analytics::scenario::FACTOR_WORK: conditional laws an integration over the factor counts
 MAX_BARS = 300  # analytics::chart::MAX_POINTS
 LATTICE = 100_000  # the widest lattice the hooks leave (steps), well inside the work budget of 2e9
 
@@ -244,19 +245,27 @@ def _in_units(request: dict, form) -> bool:
 
 
 def _dependence(request: dict, form, path: str) -> None:
-    """The rule of `Dependence`: under the one-factor model a book in loss units is answered by every question
-    but /v1/contributions (/v1/chart takes no dependence), one with compound sources by /v1/tail,
-    /v1/quantiles, /v1/distribution and /v1/layers only. Elsewhere such a body asks without the factor (what a
-    client would do after reading the rule)."""
-    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    if path == "/v1/reverse-stress" and request.get("which") == "rho" and p.get("compound_sources"):
-        request["which"] = "odds_factor"
+    """The rule of `Dependence`: under the one-factor model a book in loss units or with compound sources is
+    answered by every question that takes a dependence model (/v1/chart takes none), /v1/reverse-stress's
+    `rho` search included. Contributions there build one law per distinct (probability, units, loading) at
+    every node, which the work budget counts: a generated book in units that would pass it asks without the
+    factor (what a client would do after reading the rule)."""
+    if path != "/v1/contributions":
+        return
     dep = request.get("dependence")
     if not (isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"):
         return
-    if (_in_units(request, form) and path == "/v1/contributions") or (
-        p.get("compound_sources") and path not in ("/v1/tail", "/v1/quantiles", "/v1/distribution", "/v1/layers")
-    ):
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    if not _in_units(request, form):
+        return
+    # The budget's count (analytics::contributions): (exposures + lattice width + 64) x (40 evaluations + one
+    # law per exposure at most) x FACTOR_WORK nodes, twice under stress.
+    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
+    n = float(len(p.get("probabilities") or []))
+    for f in families:
+        n += float(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) or 0)
+    stress = 2.0 if request.get("stress") else 1.0
+    if (n + _lattice_width(p) + 64.0) * (40.0 + n) * FACTOR_WORK * stress > MAX_WORK:
         del request["dependence"]
 
 

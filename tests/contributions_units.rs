@@ -138,15 +138,14 @@ fn sensitivities_are_finite_differences_of_the_tail_in_units() {
 }
 
 #[test]
-fn the_factor_model_in_units_is_still_refused_at_dependence() {
-    let req: ContributionsRequest = serde_json::from_value(json!({
+fn the_factor_model_in_units_is_answered_with_estimated_bounds() {
+    // Its values are checked against references in tests/factor_contributions.rs.
+    let r = contributions(json!({
         "portfolio": {"probabilities": [0.1, 0.2], "units": [3, 5]}, "threshold": 4,
-        "dependence": {"model": "one_factor_gaussian", "rho": 0.2}}))
-    .unwrap();
-    let err = tailtally::analytics::run::<Contributions>(&req, &limits(), &Cancel::never()).unwrap_err();
-    match err {
-        tailtally::analytics::Error::Invalid(v) => assert_eq!(v[0].pointer, "/dependence"),
-        e => panic!("{e:?}"),
+        "dependence": {"model": "one_factor_gaussian", "rho": 0.2}}));
+    assert_eq!(r.contributions.len(), 2);
+    for c in &r.contributions {
+        assert_eq!(c.detail.sensitivity.bound_kind, tailtally::engine::BoundKind::Estimated);
     }
 }
 

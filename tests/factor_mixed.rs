@@ -309,10 +309,10 @@ async fn every_route_answers_under_the_factor_in_units_and_with_compound_sources
             assert_eq!(st, 200, "{path}: {body}");
             assert_eq!(body["model"]["dependence"]["model"], "one_factor_gaussian", "{path}: {body}");
         }
-        // Contributions under the factor do not take units yet: refused at the field, not answered wrongly.
+        // Contributions too (their values: tests/factor_contributions.rs).
         let q = json!({"portfolio": portfolio, "threshold": 40, "dependence": factor});
-        let (st, ct, body) = s.post_json("/v1/contributions", &q).await;
-        assert_problem(st, &ct, &body, 422, Some("/dependence"));
+        let (st, _, body) = s.post_json("/v1/contributions", &q).await;
+        assert_eq!(st, 200, "{body}");
     }
     // Too wide for the budget: a 413 at once, not a timeout.
     let p: Vec<f64> = vec![0.01; 2000];

@@ -4,13 +4,17 @@
 //!   z*): a homogeneous pool of n exposures of u units each plus one certain exposure of c units has
 //!   S = c + u Binomial(n, p(Z)), so P(S >= k) = P(Binomial(n, p(Z)) >= ceil((k - c) / u)), the stored value;
 //! * a small heterogeneous book: the conditional law in units by the naive lattice recursion (each exposure's
-//!   two-point law convolved in, f64, written here) inside a trapezoid rule over z on [-10, 10] with step 0.005
-//!   (for a Gaussian-weighted analytic integrand its own error is far below 1e-13; statrs' normal cdf limits it to
-//!   about 3e-11 relative, the allowance beside the bound).
+//!   two-point law convolved in, f64) inside a trapezoid rule over z on [-10, 10] with step 0.005, both from
+//!   tests/common/factor_reference.rs (for a Gaussian-weighted analytic integrand its own error is far below
+//!   1e-13; statrs' normal cdf limits it to about 3e-11 relative, the allowance beside the bound).
 //!
 //! Every exact value lies within its bound (kind `estimated`, as every figure under the factor), and so does the
 //! normal approximation's.
 
+#[path = "common/factor_reference.rs"]
+mod factor_reference;
+
+use factor_reference::{add_exposure, conditional_p, mix, phi_inv};
 use serde_json::{json, Value};
 use tailtally::analytics::cancel::Cancel;
 use tailtally::analytics::tail::{Tail, TailRequest, TailResponse};
@@ -63,36 +67,6 @@ fn homogeneous_pools_in_units_match_the_mpmath_reference() {
     assert!(checked >= 30, "{checked} pools");
 }
 
-/// pmf of sum u_i B_i with probabilities q_i, by convolving each exposure's two-point law in.
-fn lattice_pmf(q: &[f64], u: &[u64]) -> Vec<f64> {
-    let mut f = vec![1.0];
-    for (&qi, &ui) in q.iter().zip(u) {
-        let mut g = vec![0.0; f.len() + ui as usize];
-        for (x, &v) in f.iter().enumerate() {
-            g[x] += v * (1.0 - qi);
-            g[x + ui as usize] += v * qi;
-        }
-        f = g;
-    }
-    f
-}
-
-/// Phi^-1(p): statrs' inverse, refined by Newton steps on statrs' cdf (the inverse alone is good to about 1e-9).
-fn phi_inv(p: f64) -> f64 {
-    use statrs::distribution::{Continuous, ContinuousCDF, Normal};
-    let n = Normal::standard();
-    let mut x = n.inverse_cdf(p);
-    for _ in 0..3 {
-        x -= (n.cdf(x) - p) / n.pdf(x);
-    }
-    x
-}
-
-fn phi(x: f64) -> f64 {
-    use statrs::distribution::{ContinuousCDF, Normal};
-    Normal::standard().cdf(x)
-}
-
 #[test]
 fn a_heterogeneous_book_in_units_matches_a_fine_quadrature_of_the_lattice_recursion() {
     // Six vans in units of 100 (tests/units.rs) and a group of three, rho 0.2.
@@ -100,20 +74,12 @@ fn a_heterogeneous_book_in_units_matches_a_fine_quadrature_of_the_lattice_recurs
     let u = [12u64, 30, 4, 18, 8, 250, 6, 6, 6];
     let rho: f64 = 0.2;
     let ks = [1u64, 13, 40, 62, 100, 250, 300];
-    let (h, lim) = (0.005, 10.0);
-    let mut want = vec![0.0; ks.len()];
-    let steps = (2.0 * lim / h) as usize;
     let c: Vec<f64> = p.iter().map(|&pi| phi_inv(pi)).collect();
-    for s in 0..=steps {
-        let z = -lim + s as f64 * h;
-        let w = h * (-0.5 * z * z).exp() / (2.0 * std::f64::consts::PI).sqrt();
-        let w = if s == 0 || s == steps { 0.5 * w } else { w };
-        let q: Vec<f64> = c.iter().map(|&ci| phi((ci - rho.sqrt() * z) / (1.0 - rho).sqrt())).collect();
-        let f = lattice_pmf(&q, &u);
-        for (j, &k) in ks.iter().enumerate() {
-            want[j] += w * f.iter().skip(k as usize).sum::<f64>();
-        }
-    }
+    let want = mix(ks.len(), |z| {
+        let f =
+            c.iter().zip(&u).fold(vec![1.0], |f, (&ci, &ui)| add_exposure(&f, conditional_p(ci, rho, z), ui as usize));
+        ks.iter().map(|&k| f.iter().skip(k as usize).sum::<f64>()).collect()
+    });
     let r = tail(json!({
         "portfolio": {"probabilities": &p[..6], "units": &u[..6], "groups": [{"size": 3, "probability": 0.04, "units": 6}]},
         "thresholds": ks,

@@ -133,7 +133,7 @@ async fn what_does_not_take_compound_sources_says_so_and_large_ones_are_refused(
     let cdf = |i: usize| tails["results"][i]["estimates"][0]["probability"].as_f64().unwrap();
     assert!(cdf(0) < 0.5 && cdf(1) >= 0.5, "{body} {tails}");
     // The factor model takes compound sources on /v1/tail (tests/factor_compound.rs checks its values) and on
-    // quantiles (tests/factor_mixed.rs); contributions refuse the pair at the dependence field.
+    // quantiles (tests/factor_mixed.rs) and contributions (tests/factor_contributions.rs).
     let factor = json!({"model": "one_factor_gaussian", "rho": 0.2});
     let q = json!({"portfolio": portfolio, "thresholds": [10], "dependence": factor});
     let (st, _, body) = s.post_json("/v1/tail", &q).await;
@@ -142,8 +142,8 @@ async fn what_does_not_take_compound_sources_says_so_and_large_ones_are_refused(
     let (st, _, body) = s.post_json("/v1/quantiles", &q).await;
     assert_eq!(st, 200, "{body}");
     let q = json!({"portfolio": portfolio, "threshold": 10, "dependence": factor});
-    let (st, ct, body) = s.post_json("/v1/contributions", &q).await;
-    assert_problem(st, &ct, &body, 422, Some("/dependence"));
+    let (st, _, body) = s.post_json("/v1/contributions", &q).await;
+    assert_eq!(st, 200, "{body}");
     // Every method takes compound sources (tests/units_methods.rs measures the estimated bounds there).
     let q = json!({"portfolio": portfolio, "thresholds": [10], "methods": ["exact", "saddlepoint", "edgeworth"]});
     let (st, _, body) = s.post_json("/v1/tail", &q).await;

@@ -83,11 +83,11 @@ async fn the_tail_in_units_matches_enumeration_and_bad_requests_get_problems() {
     let (st, _, body) = s.post_json("/v1/tail", &q).await;
     // Compound sources now take every method (their estimated bounds measured: tests/units_methods.rs).
     assert_eq!(st, 200, "{body}");
-    // Contributions under the factor model do not take units yet (independent books do).
+    // Contributions under the factor model take units too (tests/factor_contributions.rs checks their values).
     let factor = json!({"model": "one_factor_gaussian", "rho": 0.2});
     let q = json!({"portfolio": portfolio, "threshold": 5, "dependence": factor});
-    let (st, ct, body) = s.post_json("/v1/contributions", &q).await;
-    assert_problem(st, &ct, &body, 422, Some("/dependence"));
+    let (st, _, body) = s.post_json("/v1/contributions", &q).await;
+    assert_eq!(st, 200, "{body}");
     s.shutdown().await.unwrap();
 }
 
@@ -151,7 +151,7 @@ async fn a_batch_line_in_units_answers_as_the_route_does() {
     let body = format!(
         "{}\n{}\n",
         json!({"id": "units", "tail": tail}),
-        json!({"id": "not-yet", "contributions": {"portfolio": {"probabilities": P, "units": U}, "threshold": 10,
+        json!({"id": "factor", "contributions": {"portfolio": {"probabilities": P, "units": U}, "threshold": 10,
             "dependence": {"model": "one_factor_gaussian", "rho": 0.2}}})
     );
     let res = s
@@ -170,8 +170,10 @@ async fn a_batch_line_in_units_answers_as_the_route_does() {
         let got = &lines[0]["tail"]["results"][i]["estimates"][0]["probability"];
         assert_eq!(got, &want["results"][i]["estimates"][0]["probability"], "{text}");
     }
-    assert_eq!(lines[1]["problem"]["status"], 422, "{text}");
-    assert_eq!(lines[1]["problem"]["errors"][0]["pointer"], "/contributions/dependence", "{text}");
+    // Contributions under the factor in units answer in a batch line too (tests/factor_contributions.rs checks
+    // their values).
+    assert_eq!(lines[1]["id"], "factor", "{text}");
+    assert_eq!(lines[1]["contributions"]["contributions"].as_array().map(|a| a.len()), Some(P.len()), "{text}");
     s.shutdown().await.unwrap();
 }
 

@@ -15,6 +15,11 @@
 //! p = 0 or 1 and loading 0 is independent of the factor and its figures are those of S (or S - 1) averaged;
 //! with a positive loading its derivative is the limit where the factor given its latent variable goes to -inf
 //! (p = 0) or +inf (p = 1), taken at the end of the factor's range, +-37.
+//!
+//! In loss units (and with compound sources) exposure i adds u_i units: independent, dP(S >= k)/dp_i =
+//! P(S_{-i} >= k - u_i) - P(S_{-i} >= k), each S_{-i} an exact law on the lattice; under the factor the same
+//! difference given Z, averaged as above with dp_i(Z)/dp_i (`factor::Factor::contributions_in_units`), and an
+//! impossible or certain exposure's figures are those of S (or S - u_i).
 
 use super::cost::{self, Footprint};
 use super::dependence::Dependence;
@@ -236,23 +241,53 @@ impl Contributions {
         }))
     }
 
-    /// The figures under the one-factor model (`factor::Factor::contributions`).
+    /// The figures under the one-factor model (`factor::Factor::contributions`; in units or with compound
+    /// sources `factor::Factor::contributions_in_units`, which evaluates an exact law per distinct (p_i, u_i,
+    /// loading) at every node: the work budget is checked again here with their number).
     fn under_factor(
         req: &ContributionsRequest,
         law: &Law,
         stress: Option<Stress>,
         listed: &[f64],
-    ) -> ContributionsResponse {
+        ctx: &Ctx,
+    ) -> Result<ContributionsResponse, Error> {
         let f = law.factor().expect("a law under the factor");
         let loads = listed_loadings(&req.portfolio, f.rho);
-        let fixed: Vec<(f64, f64)> =
-            listed.iter().zip(&loads).filter(|(&p, _)| p <= 0.0 || p >= 1.0).map(|(&p, &r)| (p, r)).collect();
-        let got = f.contributions(req.threshold, &fixed);
-        Self::respond(req, law, stress, got.tail, listed, |slot, _| match slot {
+        let got = if f.model.weighted() {
+            let units = listed_units(&req.portfolio);
+            let fixed: Vec<(f64, f64, u64)> = (0..listed.len())
+                .filter(|&i| listed[i] <= 0.0 || listed[i] >= 1.0)
+                .map(|i| (listed[i], loads[i], units[i]))
+                .collect();
+            let classes = factor_classes(&f.model, f.rho) as f64;
+            // Each impossible or certain exposure of its own size costs up to two integrals over the factor.
+            let sizes: std::collections::HashSet<(bool, u64)> = fixed.iter().map(|f| (f.0 > 0.0, f.2)).collect();
+            let work = scenario::work_factor(&req.stress, &req.dependence);
+            scenario::check_work(&f.model, EVALUATIONS + classes + 2.0 * sizes.len() as f64, work, ctx.limits)?;
+            f.contributions_in_units(req.threshold, &fixed)
+        } else {
+            let fixed: Vec<(f64, f64)> =
+                listed.iter().zip(&loads).filter(|(&p, _)| p <= 0.0 || p >= 1.0).map(|(&p, &r)| (p, r)).collect();
+            f.contributions(req.threshold, &fixed)
+        };
+        ctx.cancel.check()?;
+        Ok(Self::respond(req, law, stress, got.tail, listed, |slot, _| match slot {
             Slot::Each(j) => got.each[j],
             Slot::Fixed(j) => got.fixed[j],
-        })
+        }))
     }
+}
+
+/// Distinct (p_i, u_i, loading) among the model's Bernoulli exposures: the exact laws without one exposure that
+/// `factor::Factor::contributions_in_units` builds at each node (equal triples share their conditional law).
+fn factor_classes(model: &Model, rho: f64) -> usize {
+    let set: std::collections::HashSet<(u64, u64, u64)> = (0..model.bernoulli.len())
+        .map(|j| {
+            let r = if model.loaded() { model.loadings[j] } else { rho };
+            (model.bernoulli[j].to_bits(), model.units.get(j).copied().unwrap_or(1), r.to_bits())
+        })
+        .collect();
+    set.len()
 }
 
 impl Analytic for Contributions {
@@ -269,13 +304,13 @@ impl Analytic for Contributions {
         }
     }
 
-    fn check_units(req: &ContributionsRequest) -> Result<(), Vec<Violation>> {
-        // Independent books in units: each exposure's law without it on the lattice. The factor model does not
-        // yet take units.
-        match req.dependence.as_ref().and_then(|d| d.rho()) {
-            Some(_) => Err(vec![Violation::new("/dependence", "a dependence model does not yet take loss units")]),
-            None => Ok(()),
-        }
+    fn check_units(_req: &ContributionsRequest) -> Result<(), Vec<Violation>> {
+        // Each exposure's law without it on the lattice, independent or at every node over the factor.
+        Ok(())
+    }
+
+    fn factor_takes_compound() -> bool {
+        true
     }
 
     fn evaluations(_req: &ContributionsRequest) -> Option<f64> {
@@ -313,7 +348,7 @@ impl Analytic for Contributions {
         }
         let k = req.threshold;
         let Some((model, moments)) = law.single() else {
-            return Ok(Self::under_factor(req, law, stress, &listed));
+            return Self::under_factor(req, law, stress, &listed, ctx);
         };
         if model.weighted() {
             return Self::in_units(req, law, stress, &listed, model, moments, ctx);

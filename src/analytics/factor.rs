@@ -27,7 +27,7 @@
 
 use super::cancel::Cancel;
 use super::dependence::{conditional, Loads, Profile};
-use crate::engine::exact::{self, leave_one_out};
+use crate::engine::exact::{self, lattice, leave_one_out};
 use crate::engine::numerics::float::{up, U};
 use crate::engine::numerics::mixture::{
     self, gk15, normal_mass, qk15, Integral, Options, Outcome, Shape, Spec, Tol, LIMIT,
@@ -545,23 +545,139 @@ impl Factor {
             let each = (est(0.0), est(1.0));
             return FactorContributions { tail: est(1.0), each: vec![each; n], fixed: vec![each; fixed.len()] };
         }
+        let pin = self.pin();
+        let (tail, each, out) = self.leave_one_out(k, 1, false, &|z, m: &Model, mom: &Moments, pr: &[Value]| {
+            self.loo_node(z, m, mom, pr, k, pin)
+        });
+        // Impossible and certain exposures.
+        let ints = &out.integrals;
+        let fixed_out = fixed
+            .iter()
+            .map(|&(p, r)| {
+                if r == 0.0 {
+                    // Independent of the factor: S without it is S (p = 0) or S - 1 (p = 1).
+                    if p <= 0.0 {
+                        (to_value(&ints[4], 0.0, 1.0), tail)
+                    } else {
+                        (to_value(&ints[5], 0.0, 1.0), to_value(&ints[2], 0.0, 1.0))
+                    }
+                } else {
+                    // The factor given the latent variable at -inf (p = 0) or +inf (p = 1): the end of the range.
+                    let z = if p <= 0.0 { -LIMIT } else { LIMIT };
+                    let (m, mom) = self.at(z);
+                    let kk = if p <= 0.0 { k - 1 } else { k };
+                    let v = exact::evaluate(&m, &mom, &[(kk, Side::Point)]).0[0];
+                    let s = Value { kind: BoundKind::Estimated, ..v };
+                    if p <= 0.0 {
+                        (s, tail)
+                    } else {
+                        (s, to_value(&ints[2], 0.0, 1.0))
+                    }
+                }
+            })
+            .collect();
+        FactorContributions { tail, each, fixed: fixed_out }
+    }
+
+    /// [`Factor::contributions`] on a book in loss units (or with compound sources), k in units: exposure i adds
+    /// u_i units, so dP(S >= k)/dp_i = E[(P(S_{-i} >= k - u_i | Z) - P(S_{-i} >= k | Z)) dp_i(Z)/dp_i] and the
+    /// tail without it is E[P(S_{-i} >= k | Z)]. `fixed` lists the impossible and certain exposures as (p,
+    /// loading, units).
+    ///
+    /// On the lattice (S = offset + span J, K the index of k, u_i in steps, U the largest): pass 1 refines the
+    /// panels on P(J >= K), P(J >= K - U), P(J >= K + U), P(J <= K - 1 + U) and the band P(K - U <= J <= K - 1 +
+    /// U); pass 2 evaluates at the Kronrod nodes each S_{-i}'s exact law on the lattice, once per distinct
+    /// (p_i(z), u_i) (`leave_one_out::contributions_in_units`, rigorous bounds), and brackets the rest: since
+    /// S_{-i} <= S <= S_{-i} + u_i, P(k - u_i <= S_{-i} < k | z) <= min(P(J >= K - U | z), P(J <= K - 1 + U | z))
+    /// and P(J >= K + U | z) <= P(S_{-i} >= k | z) <= P(J >= K | z), all monotone in z. Each figure's bound adds
+    /// the quadrature's estimate to the nodes' exact bounds integrated.
+    pub fn contributions_in_units(&self, k: u64, fixed: &[(f64, f64, u64)]) -> FactorContributions {
+        let n = self.model.bernoulli.len();
+        let est = |v: f64| Value { kind: BoundKind::Estimated, ..Value::certain(v) };
+        let kk = lattice::query(&self.model, k, Side::Upper).map_or(0, |q| q.0);
+        let (tail, each) = if kk == 0 {
+            // Every total, with or without any one random exposure, is at least the offset, which is >= k.
+            (est(1.0), vec![(est(0.0), est(1.0)); n])
+        } else {
+            let step = self.model.units.iter().copied().max().unwrap_or(1);
+            let pin = self.pin();
+            let (tail, each, _) = self.leave_one_out(kk, step, true, &|z, m: &Model, mom: &Moments, pr: &[Value]| {
+                self.loo_node_units(z, m, mom, pr, k, pin)
+            });
+            (tail, each)
+        };
+        // The factor's tail P(S >= x) for x in units (an exact 0 or 1 off the lattice), each once.
+        let mut tails: HashMap<u64, Value> = HashMap::from([(k, tail)]);
+        let mut upper = |x: u64| -> Value {
+            *tails.entry(x).or_insert_with(|| match lattice::query(&self.model, x, Side::Upper) {
+                Ok(q) => self.exact(&[q])[0],
+                Err(p) => est(p),
+            })
+        };
+        let fixed_out = fixed
+            .iter()
+            .map(|&(p, r, u)| {
+                // S without it is S (p = 0) or S - u (p = 1).
+                let without = if p <= 0.0 { tail } else { upper(k.saturating_add(u)) };
+                let s = if r == 0.0 {
+                    // Independent of the factor: a difference of two of its tails.
+                    if p <= 0.0 {
+                        leave_one_out::difference(upper(k.saturating_sub(u)), tail)
+                    } else {
+                        leave_one_out::difference(tail, without)
+                    }
+                } else {
+                    // The factor given the latent variable at -inf (p = 0) or +inf (p = 1): the end of the range.
+                    let z = if p <= 0.0 { -LIMIT } else { LIMIT };
+                    let (m, mom) = self.at(z);
+                    let ks = if p <= 0.0 { [k.saturating_sub(u), k] } else { [k, k.saturating_add(u)] };
+                    let t = leave_one_out::upper_in_units(&m, &mom, &ks);
+                    leave_one_out::difference(t[0], t[1])
+                };
+                (Value { kind: BoundKind::Estimated, ..s }, without)
+            })
+            .collect();
+        FactorContributions { tail, each, fixed: fixed_out }
+    }
+
+    /// The two passes both contribution integrals share, on the lattice index (the count's own when there are
+    /// no units): threshold `k` >= 1, `step` the largest step one exposure adds. Pass 1 integrates the proxies
+    /// P(J >= k), P(J >= k - step), P(J >= k + step), P(J <= k - 1 + step) and then either P(J = k - 1), P(J = k)
+    /// (the count, `band` false) or the band P(k - step <= J <= k - 1 + step) (`band` true); pass 2 integrates
+    /// every exposure's (sensitivity, tail without) from `node` (given z, the conditional model, its moments and
+    /// the proxies there) at the Kronrod nodes of pass 1's panels, and from the proxies' brackets elsewhere.
+    /// Returns P(J >= k), the per-exposure figures, and pass 1's outcome.
+    #[allow(clippy::type_complexity)]
+    fn leave_one_out(
+        &self,
+        k: u64,
+        step: u64,
+        band: bool,
+        node: &(dyn Fn(f64, &Model, &Moments, &[Value]) -> Vec<(Value, Value)> + Sync),
+    ) -> (Value, Vec<(Value, Value)>, Outcome) {
+        let n = self.model.bernoulli.len();
         // Pass 1.
-        let qs = [
+        let mut qs = vec![
             (k, Side::Upper),
-            (k - 1, Side::Upper),
-            (k + 1, Side::Upper),
-            (k, Side::Lower),
-            (k - 1, Side::Point),
-            (k, Side::Point),
+            (k.saturating_sub(step), Side::Upper),
+            (k + step, Side::Upper),
+            (k - 1 + step, Side::Lower),
         ];
-        let specs = [
+        let mut specs = vec![
             Spec::new(Shape::Decreasing, (0.0, 1.0)),
             Spec::new(Shape::Decreasing, (0.0, 1.0)),
             Spec::new(Shape::Decreasing, (0.0, 1.0)),
             Spec::new(Shape::Increasing, (0.0, 1.0)),
-            Spec::new(Shape::Below { decreasing: 1, increasing: 3 }, (0.0, 1.0)),
-            Spec::new(Shape::Below { decreasing: 0, increasing: 3 }, (0.0, 1.0)),
         ];
+        if band {
+            specs.push(Spec::new(Shape::Below { decreasing: 1, increasing: 3 }, (0.0, 1.0)));
+        } else {
+            qs.extend([(k - 1, Side::Point), (k, Side::Point)]);
+            specs.extend([
+                Spec::new(Shape::Below { decreasing: 1, increasing: 3 }, (0.0, 1.0)),
+                Spec::new(Shape::Below { decreasing: 0, increasing: 3 }, (0.0, 1.0)),
+            ]);
+        }
         let levels: Vec<f64> = qs.iter().map(|&(k, s)| level(k, s)).collect();
         let breaks = self.breakpoints(&levels, false);
         let pin = self.pin();
@@ -585,6 +701,10 @@ impl Factor {
                 for (&i, v) in where_.iter().zip(exact::evaluate_reach(m, mom, &active, REACH).0) {
                     vals[i] = v;
                 }
+            }
+            if band {
+                // P(k - step <= J <= k - 1 + step) = P(J >= k - step) - P(J >= k + step).
+                vals.push(leave_one_out::difference(vals[1], vals[2]));
             }
             vals
         };
@@ -647,7 +767,11 @@ impl Factor {
             }
             let rule = gk15(p.a, p.b);
             let zs: Vec<f64> = rule.iter().map(|r| r.0).collect();
-            let at_nodes = mixture::evaluate_all(&zs, self.parallel, &|z: f64| self.loo_node(z, k, &proxies, pin));
+            let at_nodes = mixture::evaluate_all(&zs, self.parallel, &|z: f64| {
+                let (m, mom) = self.at(z);
+                let pr = proxies(&m, &mom);
+                node(z, &m, &mom, &pr)
+            });
             self.nodes.fetch_add(15, Ordering::Relaxed);
             self.gauss.fetch_add(7, Ordering::Relaxed);
             let lnphi: Vec<f64> = zs.iter().map(|&z| normal_law::ln_pdf(z)).collect();
@@ -688,10 +812,10 @@ impl Factor {
             };
             to_value(&i, 0.0, hi)
         };
-        // dP/dp_i = E[P(S_-i = k - 1 | Z) dp_i(Z)/dp_i], and dp_i(z)/dp_i phi(z) is the density of Z given the
-        // latent variable at c_i, N(sqrt(r) c_i, 1 - r), which integrates to 1: so the sensitivity lies in
-        // [0, 1], and the weight's mass outside [-LIMIT, LIMIT] is that normal law's two tails there (not the
-        // factor's own, which is far smaller when sqrt(r) |c_i| is near LIMIT, i.e. rho near 1).
+        // dP/dp_i = E[D_i(Z) dp_i(Z)/dp_i] (D_i the conditional sensitivity), and dp_i(z)/dp_i phi(z) is the
+        // density of Z given the latent variable at c_i, N(sqrt(r) c_i, 1 - r), which integrates to 1: so the
+        // sensitivity lies in [0, 1], and the weight's mass outside [-LIMIT, LIMIT] is that normal law's two tails
+        // there (not the factor's own, which is far smaller when sqrt(r) |c_i| is near LIMIT, i.e. rho near 1).
         let each: Vec<(Value, Value)> = sens
             .into_iter()
             .zip(without)
@@ -703,82 +827,22 @@ impl Factor {
                 (s, fin(t, 1.0))
             })
             .collect();
-        // Impossible and certain exposures.
-        let ints = &out.integrals;
-        let fixed_out = fixed
-            .iter()
-            .map(|&(p, r)| {
-                if r == 0.0 {
-                    // Independent of the factor: S without it is S (p = 0) or S - 1 (p = 1).
-                    if p <= 0.0 {
-                        (to_value(&ints[4], 0.0, 1.0), tail)
-                    } else {
-                        (to_value(&ints[5], 0.0, 1.0), to_value(&ints[2], 0.0, 1.0))
-                    }
-                } else {
-                    // The factor given the latent variable at -inf (p = 0) or +inf (p = 1): the end of the range.
-                    let z = if p <= 0.0 { -LIMIT } else { LIMIT };
-                    let (m, mom) = self.at(z);
-                    let kk = if p <= 0.0 { k - 1 } else { k };
-                    let v = exact::evaluate(&m, &mom, &[(kk, Side::Point)]).0[0];
-                    let s = Value { kind: BoundKind::Estimated, ..v };
-                    if p <= 0.0 {
-                        (s, tail)
-                    } else {
-                        (s, to_value(&ints[2], 0.0, 1.0))
-                    }
-                }
-            })
-            .collect();
-        FactorContributions { tail, each, fixed: fixed_out }
+        (tail, each, out)
     }
 
     /// At a node: every Bernoulli exposure's (P(S_{-i} = k - 1 | z), P(S_{-i} >= k | z)), from the
     /// leave-one-out tree, or from the proxies' Bernstein bounds when they settle all of them.
-    fn loo_node(
-        &self,
-        z: f64,
-        k: u64,
-        proxies: &(impl Fn(&Model, &Moments) -> Vec<Value> + Sync),
-        pin: f64,
-    ) -> Vec<(Value, Value)> {
+    fn loo_node(&self, z: f64, m: &Model, mom: &Moments, pr: &[Value], k: u64, pin: f64) -> Vec<(Value, Value)> {
         let n = self.model.bernoulli.len();
-        let (m, mom) = self.at(z);
-        let pr = proxies(&m, &mom);
-        // Pinned: P(S >= k - 1) or P(S <= k) below the pin settles every sensitivity; P(S >= k) and P(S >= k + 1)
-        // both below it (or both above 1 - pin) every leave-one-out tail.
-        let small = |v: &Value| v.value + v.abs_err <= pin;
-        let sens_pinned = small(&pr[1]) || small(&pr[3]);
-        let lo = pr[2];
-        let tail_pinned = (small(&pr[0]) && small(&pr[2])) || (1.0 - pr[2].value + pr[2].abs_err <= pin);
-        if sens_pinned && tail_pinned && pin > 0.0 {
-            let s_hi = (pr[1].value + pr[1].abs_err).min(pr[3].value + pr[3].abs_err);
-            let (t_lo, t_hi) = ((lo.value - lo.abs_err).max(0.0), (pr[0].value + pr[0].abs_err).min(1.0));
-            let s = Value {
-                value: 0.5 * s_hi,
-                ln_value: (0.5 * s_hi).ln(),
-                abs_err: 0.5 * s_hi,
-                rel_err: 1.0,
-                kind: BoundKind::Rigorous,
-            };
-            let t = Value {
-                value: 0.5 * (t_lo + t_hi),
-                ln_value: (0.5 * (t_lo + t_hi)).ln(),
-                abs_err: 0.5 * (t_hi - t_lo),
-                rel_err: 1.0,
-                kind: BoundKind::Rigorous,
-            };
-            return vec![(s, t); n];
+        if let Some(all) = settled(pr, pin, n) {
+            return all;
         }
         // Exposures whose p_i(z) rounded to 0 or 1 are not in the conditional model: S without them is S, or
         // S - 1.
-        let fixed = exact::evaluate(
-            &m,
-            &mom,
-            &[(k - 1, Side::Point), (k, Side::Upper), (k, Side::Point), (k + 1, Side::Upper)],
-        )
-        .0;
-        let tree = leave_one_out::contributions(&m, &mom, k);
+        let fixed =
+            exact::evaluate(m, mom, &[(k - 1, Side::Point), (k, Side::Upper), (k, Side::Point), (k + 1, Side::Upper)])
+                .0;
+        let tree = leave_one_out::contributions(m, mom, k);
         let mut next = tree.iter();
         let mut out = Vec::with_capacity(n);
         for i in 0..n {
@@ -795,6 +859,72 @@ impl Factor {
         }
         out
     }
+
+    /// At a node, in units (k in units): every Bernoulli exposure's (P(S_{-i} >= k - u_i | z) - P(S_{-i} >= k |
+    /// z), P(S_{-i} >= k | z)), each S_{-i} an exact law on the lattice, or from the proxies' Bernstein bounds
+    /// when they settle all of them.
+    fn loo_node_units(&self, z: f64, m: &Model, mom: &Moments, pr: &[Value], k: u64, pin: f64) -> Vec<(Value, Value)> {
+        let n = self.model.bernoulli.len();
+        if let Some(all) = settled(pr, pin, n) {
+            return all;
+        }
+        let per = leave_one_out::contributions_in_units(m, k);
+        let mut next = per.iter();
+        // Exposures whose p_i(z) rounded to 0 or 1 are not in the conditional model: S without them is S, or
+        // S - u_i; their tails at k - u_i, k, k + u_i once per u_i.
+        let mut certain: HashMap<u64, Vec<Value>> = HashMap::new();
+        let span = self.model.span();
+        let mut out = Vec::with_capacity(n);
+        for i in 0..n {
+            let (a, b) = (self.loads.alpha[i], self.loads.beta_of(i));
+            let p = normal_law::cdf(a - b * z);
+            if p <= 0.0 || p >= 1.0 {
+                let u = span * self.model.units.get(i).copied().unwrap_or(1);
+                let t = certain.entry(u).or_insert_with(|| {
+                    leave_one_out::upper_in_units(m, mom, &[k.saturating_sub(u), k, k.saturating_add(u)])
+                });
+                out.push(if p <= 0.0 {
+                    (leave_one_out::difference(t[0], t[1]), t[1])
+                } else {
+                    (leave_one_out::difference(t[1], t[2]), t[2])
+                });
+            } else {
+                let c = next.next().expect("one figure per random exposure");
+                out.push((c.sensitivity, c.tail_without));
+            }
+        }
+        out
+    }
+}
+
+/// Every exposure's figures at a node settled by the proxies (see [`Factor::leave_one_out`]) when their bounds
+/// are below `pin`: P(J >= k - step) or P(J <= k - 1 + step) below it settles every sensitivity, P(J >= k) and
+/// P(J >= k + step) both below it (or both above 1 - pin) every leave-one-out tail. None otherwise.
+fn settled(pr: &[Value], pin: f64, n: usize) -> Option<Vec<(Value, Value)>> {
+    let small = |v: &Value| v.value + v.abs_err <= pin;
+    let sens_pinned = small(&pr[1]) || small(&pr[3]);
+    let lo = pr[2];
+    let tail_pinned = (small(&pr[0]) && small(&pr[2])) || (1.0 - pr[2].value + pr[2].abs_err <= pin);
+    if !(sens_pinned && tail_pinned && pin > 0.0) {
+        return None;
+    }
+    let s_hi = (pr[1].value + pr[1].abs_err).min(pr[3].value + pr[3].abs_err);
+    let (t_lo, t_hi) = ((lo.value - lo.abs_err).max(0.0), (pr[0].value + pr[0].abs_err).min(1.0));
+    let s = Value {
+        value: 0.5 * s_hi,
+        ln_value: (0.5 * s_hi).ln(),
+        abs_err: 0.5 * s_hi,
+        rel_err: 1.0,
+        kind: BoundKind::Rigorous,
+    };
+    let t = Value {
+        value: 0.5 * (t_lo + t_hi),
+        ln_value: (0.5 * (t_lo + t_hi)).ln(),
+        abs_err: 0.5 * (t_hi - t_lo),
+        rel_err: 1.0,
+        kind: BoundKind::Rigorous,
+    };
+    Some(vec![(s, t); n])
 }
 
 /// [`Factor::contributions`]' answer.

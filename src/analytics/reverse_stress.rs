@@ -169,6 +169,12 @@ impl Analytic for ReverseStress {
         Ok(())
     }
 
+    fn factor_takes_compound() -> bool {
+        // The sources are independent of the factor; every evaluation is a tail under it (`factor::Factor::exact`),
+        // as on /v1/tail.
+        true
+    }
+
     fn check_model(req: &ReverseStressRequest, model: &Model) -> Result<(), Error> {
         // An unbounded law is served up to MAX_UNBOUNDED_COUNT; a threshold beyond a bounded law's largest total
         // is answered (the tail is 0 under every stress: every factor keeps it).

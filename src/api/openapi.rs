@@ -167,10 +167,10 @@ fn rules(doc: &mut Value) {
     append(
         &mut schemas["Dependence"]["description"],
         "Under `one_factor_gaussian`, a portfolio in loss units (a `units` value anywhere, a units column of a \
-         table, or compound sources) is answered by every question but /v1/contributions, and one with \
-         compound sources by /v1/tail, /v1/quantiles, /v1/distribution and /v1/layers only (so \
-         /v1/reverse-stress does not search `rho` for it); the other questions refuse it (422 at \
-         `/dependence`).",
+         table) or with compound sources is answered by every question that takes a dependence model (the \
+         sources do not load on the factor); /v1/contributions then builds each exposure's law without it at \
+         every node, one per distinct probability, units and loading, and a book past the work budget by \
+         that count is answered 413.",
     );
     multipart(doc);
 }
