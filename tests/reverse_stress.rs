@@ -183,6 +183,24 @@ fn rho_roots_lie_in_the_bracket() {
     }
 }
 
+/// A book that names a loading for some exposures: the others load on the searched rho. A certain exposure
+/// with its own loading of 0.3 beside the reference's group moves the threshold by one and nothing else, so the
+/// mpmath root of the group alone (fixtures/reference/reverse_stress.json) must still lie in the bracket.
+#[test]
+fn exposures_without_a_loading_of_their_own_take_the_searched_rho() {
+    let doc = reference();
+    for g in doc["rho"].as_array().unwrap() {
+        let k = g["threshold"].as_u64().unwrap();
+        let portfolio = json!({"probabilities": [1.0], "loadings": [0.3],
+            "groups": [{"size": g["size"], "probability": g["probability"]}]});
+        let r = ask(json!({"portfolio": portfolio, "threshold": k + 1, "level": g["level"], "which": "rho"}));
+        let truth = g["rho"].as_f64().unwrap();
+        assert_eq!(r.outcome, Outcome::Found, "{g}");
+        let (lo, hi) = bracket(&r);
+        assert!(lo <= truth && truth <= hi, "{g}: {truth} not in [{lo}, {hi}]");
+    }
+}
+
 /// The ends: certain exposures that reach the threshold leave no factor (the tail is 1 at factor 0); a
 /// threshold that even rho 0.99 keeps under the level is answered as such; a threshold below the mean is noted
 /// for rho (the tail then falls with rho: the search's assumption fails, and the answer says so).

@@ -24,6 +24,7 @@ use crate::config::ServiceLimits;
 use crate::engine::exact::lattice;
 use crate::engine::{Side, Value};
 use crate::portfolio::stress::{stressed, Stress};
+use crate::portfolio::validate::build_model_with;
 use crate::portfolio::{Model, PortfolioSpec, Violation};
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
@@ -297,7 +298,16 @@ impl Search<'_> {
             Which::OddsFactor => Law::new(stressed(base, &Stress::OddsFactor(x)), self.law.dependence),
             Which::Rho => {
                 let tol = self.law.dependence.tolerance();
-                Law::new(base.clone(), Dependence::one_factor_with(x, tol.rel, tol.abs))
+                // Exposures with a loading of their own keep it; the others load on the common factor with the
+                // rho searched. The model was built with the default 0 in their place, so a book that names any
+                // loading is built again at x (it has been checked already: a failure is not expected).
+                let model = if base.loaded() {
+                    build_model_with(&self.req.portfolio, "/portfolio", &self.ctx.limits.portfolio, Some(x))
+                        .map_err(Error::Invalid)?
+                } else {
+                    base.clone()
+                };
+                Law::new(model, Dependence::one_factor_with(x, tol.rel, tol.abs))
             }
         }
         .cancellable(self.ctx.cancel);
