@@ -9,8 +9,12 @@ use crate::engine::numerics::float::{compose, gamma};
 use std::cmp::Reverse;
 use std::collections::BinaryHeap;
 
-/// Direct convolution costs la * lb multiply-adds, the FFT about this many times N log2 N.
-const FFT_COST_FACTOR: f64 = 3.0;
+/// Direct convolution costs la * lb multiply-adds, the FFT about N log2 N times a factor; the direct product is
+/// taken while it costs at most this factor times N log2 N. 3 was the break-even of speed; 10 also trades the
+/// FFT's absolute error for the direct product's relative one at the lowest FFT levels of a large book, where
+/// thousands of FFTs made most of the bound (docs/fft_bound.md, "Direct products"): at 10^6 exposures the bound
+/// falls from 1.50e-9 to 7.6e-10 for about 10% more time (benches/README.md).
+const FFT_COST_FACTOR: f64 = 10.0;
 
 /// Convolution of a and b restricted to the counts where Bernstein's inequality leaves more than
 /// exp(-TRUNC_LN) of the product's mass on each side (`Window::keep_range`).
@@ -43,7 +47,7 @@ pub fn product_within(a: &Window, b: &Window, klo: u64, khi: u64) -> Window {
     let l2 = Window::after_product_l2(a, b);
     let mut out = if la.min(lb) <= 16 || direct_cost <= fft_cost {
         let w = direct(&a.w, &b.w, (klo - a.lo - b.lo) as usize, (khi - a.lo - b.lo) as usize);
-        let g = gamma(la.min(lb) as f64 + 1.0);
+        let g = gamma(direct_roundings(la.min(lb)));
         let mut win = Window {
             lo: klo,
             w,
@@ -76,16 +80,27 @@ pub fn product_within(a: &Window, b: &Window, klo: u64, khi: u64) -> Window {
     out
 }
 
+/// The most roundings any term of an output of [`direct`] goes through, with m = min(la, lb): its product (1),
+/// the additions into its accumulator, and the two of the final combine. An output has n <= m terms; lanes 1
+/// to 3 take floor(n / 4) of them and lane 0 floor(n / 4) + n mod 4, starting from 0.0 (the first addition is
+/// exact), so a term sees at most floor(n / 4) + n mod 4 - 1 additions in its lane: floor(m / 4) + 5 covers
+/// every n <= m. Any tree of additions over n terms (additions of an exact 0.0 aside) is at most n - 1 deep, so
+/// m + 1 covers every output too, and is the smaller for m < 6. On non-negative terms each output is within
+/// gamma of the lesser of the two of the exact sum of products, relative (Higham 2002, Lemma 3.1).
+pub fn direct_roundings(m: usize) -> f64 {
+    ((m / 4) as f64 + 5.0).min(m as f64 + 1.0)
+}
+
 /// c_j = sum_i a_i b_{j-i} for j in [from, to] (indices relative to the start of a and b).
-/// Every term is non-negative, so each output keeps a relative error of gamma(min(la, lb)).
+/// Every term is non-negative, so each output keeps a relative error of gamma([`direct_roundings`]).
 pub fn direct(a: &[f64], b: &[f64], from: usize, to: usize) -> Vec<f64> {
     let (a, b) = if a.len() <= b.len() { (a, b) } else { (b, a) };
     let mut out = vec![0.0; to - from + 1];
     for (o, j) in out.iter_mut().zip(from..=to) {
         let i_lo = j.saturating_sub(b.len() - 1);
         let i_hi = j.min(a.len() - 1);
-        // Four independent accumulators break the chain of dependent additions (about 3x faster here); the
-        // error bound gamma(m) holds for any order of summation (Higham 2002, section 3.1).
+        // Four independent accumulators break the chain of dependent additions (about 3x faster here), and
+        // shorten each term's chain of roundings to about a quarter (`direct_roundings`).
         let mut s = [0.0f64; 4];
         if i_lo <= i_hi {
             let xs = &a[i_lo..=i_hi];

@@ -18,34 +18,10 @@ pub const BLOCK: usize = 32;
 /// All terms are non-negative, so every entry keeps a relative error: per exposure, the tilt's own error on q
 /// and 1 - q plus two roundings (Higham 2002, Lemma 3.1 for the products of (1 + d) factors).
 pub fn bernoulli_block(ps: &[f64], c: &TiltConsts) -> Window {
-    let mut w = Vec::with_capacity(ps.len() + 1);
-    w.push(1.0);
-    let (mut mean, mut var) = (0.0, 0.0);
-    for &p in ps {
-        let (q, r) = tilt_qr(p, c);
-        mean += q;
-        var += q * r;
-        w.push(0.0);
-        for j in (1..w.len()).rev() {
-            w[j] = w[j] * r + w[j - 1] * q;
-        }
-        w[0] *= r;
-    }
+    let (w, mean, var, _) = recursion(ps, c);
     let per = compose(TILT_REL, gamma(2.0));
     let rel = (1.0 + per).powi(ps.len() as i32) - 1.0;
-    let mut win = Window {
-        lo: 0,
-        w,
-        rel: rel * (1.0 + 1e-12),
-        abs: 0.0,
-        inf: 0.0,
-        l2: 0.0,
-        mean,
-        var,
-        max: Some(ps.len() as u64),
-    };
-    win.add_underflow_slack(((ps.len() + 1) * ps.len()) as f64);
-    win
+    block_window(w, rel, mean, var, ps.len())
 }
 
 /// [`bernoulli_block`] with the rounding of the tilt itself left out of `rel`, and the number of exposures
@@ -58,8 +34,17 @@ pub fn bernoulli_block(ps: &[f64], c: &TiltConsts) -> Window {
 /// (1 + d1) / (1 + d2)) of b^ / (a^ + b^) and a^ / (a^ + b^), and the recursion adds two more: four factors
 /// (1 + d)^(+-1) per exposure, gamma(4 m) over m exposures (Higham 2002, Lemma 3.1). An exposure whose weights
 /// are not both normal (far tilts) keeps the allowance of [`bernoulli_block`]. The values are those of
-/// [`bernoulli_block`], bit for bit (`tilt_qr` forms q and 1 - q from the same weights).
+/// [`bernoulli_block`], bit for bit (both run [`recursion`]).
 pub fn bernoulli_block_odds(ps: &[f64], c: &TiltConsts) -> (Window, usize) {
+    let (w, mean, var, irregular) = recursion(ps, c);
+    let rel = compose(gamma(4.0 * ps.len() as f64), (1.0 + TILT_REL).powi(irregular as i32) - 1.0);
+    (block_window(w, rel, mean, var, ps.len()), ps.len() - irregular)
+}
+
+/// The recursion of a block at the weights of [`tilt_weights`] (q = b / (a + b), 1 - q = a / (a + b), the
+/// same values as [`tilt_qr`]): the entries, the tilted mean and variance, and the number of exposures whose
+/// weights are not both at least 4 times the smallest normal (a, b <= 1, so q and 1 - q stay normal otherwise).
+fn recursion(ps: &[f64], c: &TiltConsts) -> (Vec<f64>, f64, f64, usize) {
     let mut w = Vec::with_capacity(ps.len() + 1);
     w.push(1.0);
     let (mut mean, mut var) = (0.0, 0.0);
@@ -68,7 +53,6 @@ pub fn bernoulli_block_odds(ps: &[f64], c: &TiltConsts) -> (Window, usize) {
         let (a, b) = tilt_weights(p, c);
         let d = a + b;
         let (q, r) = (b / d, a / d);
-        // Both weights at least 4 times the smallest normal: a, b <= 1, so q and 1 - q stay normal too.
         irregular += (a.min(b) < 4.0 * f64::MIN_POSITIVE) as usize;
         mean += q;
         var += q * r;
@@ -78,20 +62,16 @@ pub fn bernoulli_block_odds(ps: &[f64], c: &TiltConsts) -> (Window, usize) {
         }
         w[0] *= r;
     }
-    let rel = compose(gamma(4.0 * ps.len() as f64), (1.0 + TILT_REL).powi(irregular as i32) - 1.0);
-    let mut win = Window {
-        lo: 0,
-        w,
-        rel: rel * (1.0 + 1e-12),
-        abs: 0.0,
-        inf: 0.0,
-        l2: 0.0,
-        mean,
-        var,
-        max: Some(ps.len() as u64),
-    };
-    win.add_underflow_slack(((ps.len() + 1) * ps.len()) as f64);
-    (win, ps.len() - irregular)
+    (w, mean, var, irregular)
+}
+
+/// The window of a block of m exposures with relative error `rel` (widened by one part in 10^12 for the
+/// rounding of `rel` itself) and the underflow slack of its (m + 1) m operations.
+fn block_window(w: Vec<f64>, rel: f64, mean: f64, var: f64, m: usize) -> Window {
+    let mut win =
+        Window { lo: 0, w, rel: rel * (1.0 + 1e-12), abs: 0.0, inf: 0.0, l2: 0.0, mean, var, max: Some(m as u64) };
+    win.add_underflow_slack(((m + 1) * m) as f64);
+    win
 }
 
 /// Relate a product that holds `m` Bernoulli exposures tilted at their computed odds ([`bernoulli_block_odds`])

@@ -205,12 +205,12 @@ pub fn scale_by_products(model: &Model, t: f64) -> Scale {
     finish_scale(model, &c, phi, err, b)
 }
 
-/// One pass over the Bernoulli exposures at the tilt `c`: with CUM, the four lanes of [`eval`]'s cumulant sums
-/// into `lanes` (lane j takes the exposures j, j + 4, j + 8, ... of the whole quads); with PROD, the block
-/// products of [`scale_by_products`] into (phi, err, b). Compiled for 4-wide vectors where the CPU has them:
-/// the lanes are then the vector's slots, and IEEE operations round alike in every instruction set (Rust
-/// never fuses a * b + c on its own), so the sums are bit for bit those of the portable code, and the fused
-/// pass gives bit for bit what each of its halves gives alone.
+/// One pass over the Bernoulli exposures at the tilt `c`: with CUM (and not PROD), the four lanes of [`eval`]'s
+/// cumulant sums into `lanes` (lane j takes the exposures j, j + 4, j + 8, ... of the whole quads); with PROD,
+/// the block products of [`scale_by_products`] into (phi, err, b), and CUM is then ignored (no caller asks for
+/// both). Compiled for 4-wide vectors where the CPU has them: the lanes are then the vector's slots, and IEEE
+/// operations round alike in every instruction set (Rust never fuses a * b + c on its own), so the sums are bit
+/// for bit those of the portable code.
 fn pass<const CUM: bool, const PROD: bool>(
     ps: &[f64],
     c: &TiltConsts,
@@ -300,9 +300,6 @@ fn pass_body<const CUM: bool, const PROD: bool>(
         if block.len() == PRODUCT_BLOCK {
             for i in 0..PRODUCT_BLOCK / 4 {
                 let p: [f64; 4] = [block[4 * i], block[4 * i + 1], block[4 * i + 2], block[4 * i + 3]];
-                if CUM {
-                    cumulant_quad(lanes, p, ca, cb);
-                }
                 // `factor` in the shape of vector operations: both candidates, then a select.
                 let a = p.map(|p| p * ca);
                 let bb = p.map(|p| (1.0 - p) * cb);
@@ -315,11 +312,6 @@ fn pass_body<const CUM: bool, const PROD: bool>(
                 }
             }
         } else {
-            if CUM {
-                for quad in block.chunks_exact(4) {
-                    cumulant_quad(lanes, [quad[0], quad[1], quad[2], quad[3]], ca, cb);
-                }
-            }
             for (i, &p) in block.iter().enumerate() {
                 let (f, one) = factor(p, ca, cb, c);
                 prod[i % 4] *= f;
