@@ -39,16 +39,18 @@ where
 
     async fn from_request(mut req: Request, state: &S) -> Result<Self, Problem> {
         let held = req.extensions_mut().remove::<BodyPermit>();
-        let ctype = req.headers().get(header::CONTENT_TYPE).and_then(|v| v.to_str().ok()).unwrap_or("").to_string();
-        let mime = ctype.split(';').next().unwrap_or("").trim().to_ascii_lowercase();
-        // A request with its exposures as a table (`api::tables`).
-        let multipart = mime == "multipart/form-data";
-        if !multipart && mime != "application/json" && !(mime.starts_with("application/") && mime.ends_with("+json")) {
+        let ctype = req.headers().get(header::CONTENT_TYPE).and_then(|v| v.to_str().ok()).unwrap_or("");
+        let mime = ctype.split(';').next().unwrap_or("").trim();
+        // A request with its exposures as a table (`api::tables`). Compared without a lowercased copy: the
+        // check runs on every request.
+        let multipart = mime.eq_ignore_ascii_case("multipart/form-data");
+        if !multipart && !is_json(mime) {
             return Err(Problem::unsupported_media(format!(
                 "expected Content-Type: application/json, or multipart/form-data with a table of exposures, got {:?}",
                 ctype
             )));
         }
+        let ctype = if multipart { ctype.to_string() } else { String::new() };
         let bytes = Bytes::from_request(req, state).await.map_err(|e| {
             if e.status() == axum::http::StatusCode::PAYLOAD_TOO_LARGE {
                 Problem::too_large("the request body exceeds the configured limit (see --max-body-bytes)")
@@ -72,6 +74,17 @@ where
         drop(held);
         parsed.map(Body)
     }
+}
+
+/// `application/json` or `application/*+json`, in any case.
+fn is_json(mime: &str) -> bool {
+    const APP: &str = "application/";
+    mime.eq_ignore_ascii_case("application/json")
+        || (mime.len() >= APP.len() + 5
+            && mime.is_char_boundary(APP.len())
+            && mime.is_char_boundary(mime.len() - 5)
+            && mime[..APP.len()].eq_ignore_ascii_case(APP)
+            && mime[mime.len() - 5..].eq_ignore_ascii_case("+json"))
 }
 
 /// Parse JSON, mapping serde's errors to problems with a JSON pointer. Integral floats read as integers

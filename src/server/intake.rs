@@ -231,7 +231,9 @@ pub async fn read_first(State(intake): State<Arc<Intake>>, req: Request, next: N
     if declared.is_some_and(|n| n > intake.budget.total) {
         return Refused::TooLarge(intake.budget.total).problem();
     }
-    let mut buf = BytesMut::with_capacity(declared.unwrap_or(0).min(1 << 20));
+    // A small body usually comes whole in one frame, which is kept as it is (no buffer, no copy).
+    let mut first: Option<Bytes> = None;
+    let mut buf = BytesMut::new();
     let mut since_yield = 0;
     loop {
         let frame = match tokio::time::timeout_at(deadline, body.frame()).await {
@@ -241,11 +243,20 @@ pub async fn read_first(State(intake): State<Arc<Intake>>, req: Request, next: N
             Ok(Some(Ok(frame))) => frame,
         };
         let Ok(data) = frame.into_data() else { continue };
-        let need = buf.len() + data.len();
+        let have = first.as_ref().map_or(buf.len(), Bytes::len);
+        let need = have + data.len();
         if need > held.bytes {
             if let Err(r) = held.grow(need - held.bytes).await {
                 return r.problem();
             }
+        }
+        if have == 0 && first.is_none() {
+            first = Some(data);
+            continue;
+        }
+        if let Some(f) = first.take() {
+            buf.reserve(declared.unwrap_or(0).min(1 << 20).max(need));
+            buf.extend_from_slice(&f);
         }
         buf.extend_from_slice(&data);
         since_yield += data.len();
@@ -254,8 +265,10 @@ pub async fn read_first(State(intake): State<Arc<Intake>>, req: Request, next: N
             tokio::task::yield_now().await;
         }
     }
-    held.shrink_to(buf.len());
-    let mut req = Request::from_parts(parts, Body::from(buf.freeze()));
+    // The one frame is a piece of hyper's read buffer, held until the JSON is parsed, at once.
+    let body = first.unwrap_or_else(|| buf.freeze());
+    held.shrink_to(body.len());
+    let mut req = Request::from_parts(parts, Body::from(body));
     req.extensions_mut().insert(BodyPermit(Arc::new(held)));
     next.run(req).await
 }
