@@ -5,7 +5,7 @@ totals, a range's order and length); `map_body` mends the rest (a listed severit
 one's `largest`, units coarser where the lattice would pass the work budget, counts capped at 1e9 with a
 Poisson part, no factor model on contributions in units past the work budget) and writes the table part of
 multipart bodies; `flatmap_body` leaves out what `map_body` marked (a /v1/distribution range that would hold
-more than --max-thresholds totals). The second table of acceptance.sh measures what the service refuses beyond
+more than --max-thresholds totals, a chart, layers or quantiles past their work rules). The second table of acceptance.sh measures what the service refuses beyond
 them: the memory ceiling, timeouts, and any rule the document forgets. Each rule here must be one the document
 states; change both together.
 
@@ -298,6 +298,8 @@ def map_body(context, body):
     _unbounded(request)
     if (context.operation.path == "/v1/distribution" and not _central_range_fits(request)) or (
         context.operation.path == "/v1/chart" and not _chart_fits(request)
+    ) or (context.operation.path == "/v1/layers" and not _layers_fits(request, form)) or (
+        context.operation.path == "/v1/quantiles" and not _quantiles_fits(request)
     ):
         _LEFT_OUT.add(id(body))
         return body
@@ -321,6 +323,53 @@ def _chart_fits(request: dict) -> bool:
     methods = request.get("methods") if isinstance(request.get("methods"), list) else []
     overlays = len({m for m in methods if m not in ("exact", "auto")})
     return n * (MAX_BARS * (1 + overlays) + 1) <= MAX_WORK
+
+
+def _radius(v: float) -> float:
+    """r(v) of `LayersRequest`: the half-width of a window of counts of variance v."""
+    return 25 + math.sqrt(625 + 150 * v)
+
+
+def _layers_fits(request: dict, form) -> bool:
+    """The rule of `LayersRequest`: (listed exposures and family members + 64 per group + 64 + the lattice
+    width + the windows of the wide parts) x (3 x layers + 20 x tail levels, + 40 under the factor in units)
+    x (150 under the factor) x (2 under a stress) within the work budget. A group's window is counted whether
+    or not the book is in units (in units the lattice width holds it already: a bound, not the estimate)."""
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
+    members = sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
+    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
+    n = len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
+    for g in groups:
+        m = float(g.get("size") or 0)
+        n += max(0.0, min(m + 1, 2 * _radius(m / 4) + 4) - 64)
+    stress = request.get("stress") if isinstance(request.get("stress"), dict) else {}
+    factor = max([1.0] + [float(v) for v in stress.values() if isinstance(v, (int, float))])
+    rate = float(sum(r for r in p.get("poisson_rates") or [] if isinstance(r, (int, float))))
+    if rate > 0:
+        n += 2 * _radius(rate * factor) + 4
+    dep = request.get("dependence")
+    factor_model = isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"
+    layers = request.get("layers") if isinstance(request.get("layers"), list) else []
+    levels = request.get("tail_levels") if isinstance(request.get("tail_levels"), list) else []
+    evaluations = 3 * len(layers) + 20 * len(levels) + (40 if factor_model and _in_units(request, form) else 0)
+    return n * evaluations * (150 if factor_model else 1) * (2 if stress else 1) <= MAX_WORK
+
+
+def _quantiles_fits(request: dict) -> bool:
+    """The rule of `QuantilesRequest`: (listed exposures and family members + 64 per group + 64 + the lattice
+    width) x (40 x levels x methods) x (150 under the factor) x (2 under a stress) within the work budget."""
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
+    members = sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
+    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
+    n = len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
+    levels = request.get("levels") if isinstance(request.get("levels"), list) else []
+    methods = request.get("methods") if isinstance(request.get("methods"), list) else ["exact"]
+    dep = request.get("dependence")
+    factor_model = isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"
+    stress = request.get("stress")
+    return n * 40 * len(levels) * len(methods) * (150 if factor_model else 1) * (2 if stress else 1) <= MAX_WORK
 
 
 def _central_range_fits(request: dict) -> bool:

@@ -47,6 +47,42 @@ async fn factor_nodes_and_contribution_rows_count_against_the_ceiling() {
     s.shutdown().await.unwrap();
 }
 
+/// The layers upload that timed out in scripts/acceptance.sh (seed 1, every run): a group of 906,151,400 and
+/// Poisson rates of 5.2e8 at 8 tail levels under the factor. Their windows (about 3.7e5 and 5.6e5 counts) were
+/// counted as 64 and 0, so the work budget admitted about 130 x 206 x 150 = 4e6 for what took more than 2
+/// minutes (each of about 20 x 8 x 150 tilted laws an FFT convolution of both windows). Now it is refused with
+/// a 413 that names the windows, by the rule `LayersRequest` states (scripts/acceptance_hooks.py,
+/// `_layers_fits`, keeps to it); the same book without the factor and with 2 layers fits and is answered.
+#[tokio::test]
+async fn layers_count_the_windows_of_wide_groups_and_poisson_parts() {
+    let s = start(&[]).await;
+    let portfolio = json!({
+        "probabilities": [0.6488123808070944, 0.5151564525111497, 0.8433034306821272, 0.8345252233988125, 0.8995976526524609],
+        "poisson_rates": [116340175.93311377, 406634680.4674076],
+        "groups": [{"size": 906151400, "units": 1, "probability": 0.5}]
+    });
+    let levels = json!([0.0134, 0.541, 0.202, 0.0948, 3.0e-176, 5.96e-08, 0.4797, 0.3203]);
+    let layers = json!([{"attachment": 312983}, {"limit": 122352355, "attachment": 14830851}]);
+    let body = json!({"portfolio": portfolio, "layers": layers, "tail_levels": levels,
+                      "dependence": {"rho": 2.2250738585e-313, "model": "one_factor_gaussian"}});
+    let (st, ct, v) = s.post_json("/v1/layers", &body).await;
+    assert_problem(st, &ct, &v, 413, None);
+    let detail = v["detail"].as_str().unwrap();
+    assert!(detail.contains("windows of the groups and the Poisson part") && detail.contains("--max-work"), "{detail}");
+    // The rule in words: (5 + 64 + 64 + the group's window less 64 + the Poisson window) x (3 x 2 + 20 x 8,
+    // + 40 in loss units: the group gives `units`) x 150, with r(v) = 25 + sqrt(625 + 150 v).
+    let r = |v: f64| 25.0 + (625.0 + 150.0 * v).sqrt();
+    let windows = (2.0 * r(906151400.0 / 4.0) + 4.0 - 64.0) + (2.0 * r(116340175.93311377 + 406634680.4674076) + 4.0);
+    let stated = (5.0 + 64.0 + 64.0 + windows) * (3.0 * 2.0 + 20.0 * 8.0 + 40.0) * 150.0;
+    let said: f64 = detail.split_whitespace().nth(2).unwrap().parse().unwrap();
+    assert!((said - stated).abs() <= 1e-6 * stated, "the 413 says {said}, the document's rule {stated}");
+    let body = json!({"portfolio": portfolio, "layers": layers});
+    let (st, _, v) = s.post_json("/v1/layers", &body).await;
+    assert_eq!(st, 200, "{v}");
+    assert_eq!(v["layers"].as_array().map(Vec::len), Some(2), "{v}");
+    s.shutdown().await.unwrap();
+}
+
 #[tokio::test]
 async fn a_method_asked_twice_is_refused_at_its_position() {
     let s = start(&[]).await;

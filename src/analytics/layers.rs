@@ -218,6 +218,13 @@ impl Analytic for Layers {
         true
     }
 
+    /// A tail level's quantile search builds about 20 tilted laws, each as wide as the book's windows (under the
+    /// factor, 150 of them per figure): a book of a wide group and a wide Poisson part took minutes (found by
+    /// scripts/acceptance.sh, seed 1: a group of 9 x 10^8 and a rate of 5 x 10^8 at 8 levels under the factor).
+    fn counts_part_windows() -> bool {
+        true
+    }
+
     fn evaluations(req: &LayersRequest) -> Option<f64> {
         let mut n = req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0;
         // Under the factor in units the expectations come from one mixed law (`factor::MixedLaw`) of at most
