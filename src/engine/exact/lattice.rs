@@ -437,11 +437,13 @@ mod tests {
         };
         let mut cut_seen = 0;
         for case in 0..40 {
-            let n = 1 + case % 64;
-            let ps: Vec<f64> = (0..n).map(|_| 0.08 * next()).collect();
-            let mut us: Vec<u64> = (0..n).map(|_| (1000f64.powf(next())).floor().max(1.0) as u64).collect();
+            // Blocks as `tilted` makes them: exposures of similar units (within 5% of a log-uniform u0).
+            let n = 48 + case % 17;
+            let ps: Vec<f64> = (0..n).map(|_| 0.05 * next()).collect();
+            let u0 = 1000f64.powf(next());
+            let mut us: Vec<u64> = (0..n).map(|_| (u0 * (1.0 + 0.05 * next())).floor().max(1.0) as u64).collect();
             us.sort_unstable();
-            let t = round_tilt([0.0, 1e-3, 4e-3, -2e-3][case % 4]);
+            let t = round_tilt([0.0, 5e-4, 1e-3, -1e-3][case % 4]);
             let part = block_part(&ps, &us, t);
             let width: u64 = us.iter().sum();
             let whole = bernoulli_block(&ps, &us, t, width);
@@ -451,12 +453,12 @@ mod tests {
             assert!(above <= (-window::TRUNC_LN).exp(), "case {case}: {above:e} above {cap} of {width}");
             if cap < width {
                 cut_seen += 1;
-                assert!(part.w.abs >= (-window::TRUNC_LN).exp() && part.w.abs > whole.w.abs, "case {case}");
+                assert!(part.w.abs >= (-window::TRUNC_LN).exp() && part.w.abs > whole.abs, "case {case}");
             } else {
-                assert_eq!(part.w.abs, whole.w.abs, "case {case}");
+                assert_eq!(part.w.abs, whole.abs, "case {case}");
             }
         }
-        assert!(cut_seen >= 20, "only {cut_seen} blocks were cut");
+        assert!(cut_seen >= 30, "only {cut_seen} blocks were cut");
     }
 
     #[test]
