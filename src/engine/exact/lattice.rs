@@ -18,7 +18,8 @@
 //!   of its factors leaves at most exp(-TRUNC_LN) on each side, by Bennett's inequality above with the largest
 //!   step among its own summands, and below by the lower tail of a sum of non-negative summands, free of the
 //!   step (`Part`, docs/accuracy.md "Truncation on a lattice"): a law of rare events of many units each is far
-//!   shorter than Bernstein's radius with the book's largest step would say.
+//!   shorter than Bernstein's radius with the book's largest step would say. A block's own recursion stops
+//!   at its upper cut (mass only moves up in it, so the points kept are exact).
 //!
 //! Also here: a question about S in units as one about the lattice index (`query`).
 
@@ -142,15 +143,22 @@ struct Part {
     m2: f64,
 }
 
-/// The Bernoulli block of exposures `ps` of `us` steps as a [`Part`].
+/// The Bernoulli block of exposures `ps` of `us` steps as a [`Part`]. Its recursion stops at the block's own
+/// upper cut ([`keep_range`] on its summands): mass only moves up in it, so the points kept are exact as if
+/// the whole width had been computed, and what lies above the cut is at most exp(-TRUNC_LN), charged there.
 fn block_part(ps: &[f64], us: &[u64], t: f64) -> Part {
-    let mut m2 = 0.0;
+    let (mut m2, mut mean, mut var) = (0.0, 0.0, 0.0);
     for (&p, &u) in ps.iter().zip(us) {
-        let (q, _) = tilt_qr(p, &TiltConsts::new(t * u as f64));
+        let (q, r) = tilt_qr(p, &TiltConsts::new(t * u as f64));
+        let uf = u as f64;
         m2 += (u * u) as f64 * q;
+        mean += uf * q;
+        var += uf * uf * q * r;
     }
     let step = us.iter().copied().max().unwrap_or(1) as f64;
-    Part { w: bernoulli_block(ps, us, t), step, m2 }
+    let width: u64 = us.iter().sum();
+    let (_, cap) = keep_range(mean, var, m2, step, 0, Some(width));
+    Part { w: bernoulli_block(ps, us, t, cap), step, m2 }
 }
 
 /// Radius r with exp(-(v / b^2) h(b r / v)) <= exp(-TRUNC_LN) (Bennett, see [`Part`]), never above
@@ -233,11 +241,15 @@ fn product_all(parts: Vec<Part>) -> Window {
 }
 
 /// Tilted law of a block of Bernoulli exposures of `us` steps each, by w'_j = w_j (1 - q) + w_(j - u) q over
-/// the block's whole support 0..=sum u (unreachable points stay exactly 0). The error per exposure is that of
-/// [`leaf::bernoulli_block`]: the tilt's error on q and 1 - q plus two roundings, all terms non-negative.
-pub fn bernoulli_block(ps: &[f64], us: &[u64], t: f64) -> Window {
+/// the lattice points 0..=cap (unreachable points stay exactly 0). The error per exposure is that of
+/// [`leaf::bernoulli_block`]: the tilt's error on q and 1 - q plus two roundings, all terms non-negative. The
+/// recursion only moves mass upwards, so the points up to `cap` are those of the recursion over the block's
+/// whole width; when `cap` is below that width the caller guarantees that the exact tilted law of the block
+/// holds at most exp(-TRUNC_LN) above it, and that mass (with its relative error) is charged as absolute error.
+pub fn bernoulli_block(ps: &[f64], us: &[u64], t: f64, cap: u64) -> Window {
     let width: u64 = us.iter().sum();
-    let mut w = vec![0.0; width as usize + 1];
+    let cap = cap.min(width);
+    let mut w = vec![0.0; cap as usize + 1];
     w[0] = 1.0;
     let (mut mean, mut var, mut top) = (0.0, 0.0, 0usize);
     for (&p, &u) in ps.iter().zip(us) {
@@ -245,7 +257,7 @@ pub fn bernoulli_block(ps: &[f64], us: &[u64], t: f64) -> Window {
         let (uf, u) = (u as f64, u as usize);
         mean += uf * q;
         var += uf * uf * q * r;
-        top += u;
+        top = (top + u).min(cap as usize);
         // Downwards in stretches of at most u points, each read from the u points below it, which are not
         // updated yet: the same operations as one point at a time from the top, in loops that vectorise.
         let mut hi = top + 1;
@@ -265,7 +277,11 @@ pub fn bernoulli_block(ps: &[f64], us: &[u64], t: f64) -> Window {
     let rel = (1.0 + per).powi(ps.len() as i32) - 1.0;
     let mut win =
         Window { lo: 0, w, rel: rel * (1.0 + 1e-12), abs: 0.0, inf: 0.0, l2: 0.0, mean, var, max: Some(width) };
-    win.add_underflow_slack(((width + 1) as usize * ps.len()) as f64);
+    win.add_underflow_slack(((cap + 1) as usize * ps.len()) as f64);
+    if cap < width {
+        let cut = (1.0 + win.rel) * (-window::TRUNC_LN).exp();
+        win.add_abs(cut, cut);
+    }
     win
 }
 
@@ -405,6 +421,44 @@ mod tests {
             let bernstein = Window::bernstein_radius_step(v, uf);
             assert!(mean - (lo as f64) <= bernstein * (1.0 + 1e-9) + 2.0, "m = {m}");
         }
+    }
+
+    /// The block recursion stopped at its upper cut, against the same recursion over the block's whole width
+    /// (the textbook recursion, every term non-negative): the kept points are bit for bit the same, the mass
+    /// left above the cut is below exp(-TRUNC_LN), and the cut is charged as absolute error.
+    #[test]
+    fn capped_blocks_keep_their_points_and_cut_little() {
+        let mut x = 0x2545_f491_4f6c_dd1du64;
+        let mut next = || {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            (x >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let mut cut_seen = 0;
+        for case in 0..40 {
+            // Blocks as `tilted` makes them: exposures of similar units (within 5% of a log-uniform u0).
+            let n = 48 + case % 17;
+            let ps: Vec<f64> = (0..n).map(|_| 0.05 * next()).collect();
+            let u0 = 1000f64.powf(next());
+            let mut us: Vec<u64> = (0..n).map(|_| (u0 * (1.0 + 0.05 * next())).floor().max(1.0) as u64).collect();
+            us.sort_unstable();
+            let t = round_tilt([0.0, 5e-4, 1e-3, -1e-3][case % 4]);
+            let part = block_part(&ps, &us, t);
+            let width: u64 = us.iter().sum();
+            let whole = bernoulli_block(&ps, &us, t, width);
+            let cap = part.w.hi();
+            assert_eq!(part.w.w[..], whole.w[..=cap as usize], "case {case}");
+            let above: f64 = whole.w[cap as usize + 1..].iter().sum();
+            assert!(above <= (-window::TRUNC_LN).exp(), "case {case}: {above:e} above {cap} of {width}");
+            if cap < width {
+                cut_seen += 1;
+                assert!(part.w.abs >= (-window::TRUNC_LN).exp() && part.w.abs > whole.abs, "case {case}");
+            } else {
+                assert_eq!(part.w.abs, whole.abs, "case {case}");
+            }
+        }
+        assert!(cut_seen >= 30, "only {cut_seen} blocks were cut");
     }
 
     #[test]
