@@ -401,7 +401,44 @@ def _central_range_fits(request: dict) -> bool:
             var += factor * src["rate"] * float(max(_sizes(sev), default=1)) ** 2
     mass = request.get("mass") or 1e-12
     z = -statistics.NormalDist().inv_cdf(min(max(mass / 2, 1e-300), 0.25))
-    return 2 * z * math.sqrt(var) + 1 <= MAX_THRESHOLDS
+    return 2 * z * math.sqrt(var) + _factor_spread(request, z) + 1 <= MAX_THRESHOLDS
+
+
+def _factor_spread(request: dict, z: float) -> float:
+    """Under the one-factor model (the document's rule for /v1/distribution): how far the conditional mean moves
+    between the factor at -z and at +z, sum u (p(+z) - p(-z)) with p(z) = Phi((Phi^-1(p) + sqrt(r) z) /
+    sqrt(1 - r)) and r the exposure's loading or rho. Where p is hidden (a family, a stress) the members may move
+    across their whole range, n u."""
+    dep = request.get("dependence")
+    if not isinstance(dep, dict) or dep.get("model") != "one_factor_gaussian":
+        return 0.0
+    rho = dep.get("rho")
+    rho = float(rho) if isinstance(rho, (int, float)) and 0 <= rho < 1 else 0.0
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    nd = statistics.NormalDist()
+    hidden = bool(request.get("stress"))
+
+    def move(q, r, count, u) -> float:
+        r = float(r) if isinstance(r, (int, float)) and 0 <= r < 1 else rho
+        if hidden or not isinstance(q, (int, float)):
+            return count * u
+        if r <= 0 or q <= 0 or q >= 1:
+            return 0.0
+        x, s, d = nd.inv_cdf(q), math.sqrt(r) * z, math.sqrt(1 - r)
+        return count * u * (nd.cdf((x + s) / d) - nd.cdf((x - s) / d))
+
+    probabilities = p.get("probabilities") or []
+    units = p.get("units") or [1] * len(probabilities)
+    loadings = p.get("loadings") or [None] * len(probabilities)
+    spread = 0.0
+    for q, u, r in zip(probabilities, units, loadings):
+        spread += move(q, r, 1, float(u) if _whole(u) else 1.0)
+    for g in p.get("groups") or []:
+        spread += move(g.get("probability"), g.get("loading"), float(g.get("size") or 0), float(g.get("units") or 1))
+    for f in p.get("families") or []:
+        members = len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0)
+        spread += float(members) * float(f.get("units") or 1)
+    return spread
 
 
 @schemathesis.hook

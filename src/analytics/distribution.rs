@@ -61,7 +61,12 @@ pub fn central_range(law: &Law, mass: f64) -> (u64, u64) {
 /// Mass left outside the range when neither `from`/`to` nor `mass` is given.
 pub const DEFAULT_MASS: f64 = 1e-12;
 
-/// POST /v1/distribution request: `from` and `to` (inclusive), or `mass` (default 1e-12).
+/// POST /v1/distribution request: `from` and `to` (inclusive), or `mass` (default 1e-12). The range answered
+/// holds at most `--max-thresholds` (10,000 by default) counts, or lattice points with loss units; a wider one
+/// is refused with 413. The central range by `mass` is about 2 z sd wide for an independent book (z the normal
+/// quantile of mass / 2, sd the law's standard deviation) and wider under the one-factor model, where the
+/// conditional mean moves with the factor (from its value at the factor's -z to its value at +z): there, ask
+/// for an explicit range or a larger mass.
 #[derive(Debug, Clone, Deserialize, Serialize, ToSchema)]
 #[serde(remote = "Self", deny_unknown_fields)]
 pub struct DistributionRequest {
