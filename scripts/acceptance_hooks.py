@@ -312,14 +312,20 @@ def map_body(context, body):
     return body
 
 
+def _steps(p: dict) -> float:
+    """The work rules' common factor: listed exposures and family members + 64 per group + 64 + the lattice
+    width."""
+    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
+    members = sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
+    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
+    return len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
+
+
 def _chart_fits(request: dict) -> bool:
     """The rule of `ChartRequest`: (listed exposures and family members + 64 per group + 64 + the lattice width)
     x (300 x (1 + overlay methods) + 1) within the work budget."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
-    members = sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
-    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
-    n = len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
+    n = _steps(p)
     methods = request.get("methods") if isinstance(request.get("methods"), list) else []
     overlays = len({m for m in methods if m not in ("exact", "auto")})
     return n * (MAX_BARS * (1 + overlays) + 1) <= MAX_WORK
@@ -336,11 +342,8 @@ def _layers_fits(request: dict, form) -> bool:
     x (150 under the factor) x (2 under a stress) within the work budget. A group's window is counted whether
     or not the book is in units (in units the lattice width holds it already: a bound, not the estimate)."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
-    members = sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
-    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
-    n = len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
-    for g in groups:
+    n = _steps(p)
+    for g in (g for g in p.get("groups") or [] if isinstance(g, dict)):
         m = float(g.get("size") or 0)
         n += max(0.0, min(m + 1, 2 * _radius(m / 4) + 4) - 64)
     stress = request.get("stress") if isinstance(request.get("stress"), dict) else {}
@@ -360,10 +363,7 @@ def _quantiles_fits(request: dict) -> bool:
     """The rule of `QuantilesRequest`: (listed exposures and family members + 64 per group + 64 + the lattice
     width) x (40 x levels x methods) x (150 under the factor) x (2 under a stress) within the work budget."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    families = [f for f in p.get("families") or [] if isinstance(f, dict)]
-    members = sum(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) for f in families)
-    groups = [g for g in p.get("groups") or [] if isinstance(g, dict)]
-    n = len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
+    n = _steps(p)
     levels = request.get("levels") if isinstance(request.get("levels"), list) else []
     methods = request.get("methods") if isinstance(request.get("methods"), list) else ["exact"]
     dep = request.get("dependence")
