@@ -23,24 +23,12 @@ mod common;
 #[path = "common/factor_reference.rs"]
 mod factor_reference;
 
-use common::{assert_problem, start};
+use common::{ask_json as ask, assert_problem, start};
 use factor_reference::*;
 use serde_json::{json, Value};
-use tailtally::analytics::cancel::Cancel;
 use tailtally::analytics::contributions::Contributions;
 use tailtally::analytics::reverse_stress::ReverseStress;
 use tailtally::analytics::Analytic;
-use tailtally::config::{Options, ServiceLimits};
-
-fn ask<A: Analytic>(req: Value) -> Result<Value, tailtally::analytics::Error>
-where
-    A::Request: serde::de::DeserializeOwned,
-    A::Answer: serde::Serialize,
-{
-    let req: A::Request = serde_json::from_value(req).unwrap();
-    let limits = ServiceLimits::from_options(&Options::default());
-    tailtally::analytics::run::<A>(&req, &limits, &Cancel::never()).map(|a| serde_json::to_value(a).unwrap())
-}
 
 fn answer<A: Analytic>(req: Value) -> Value
 where

@@ -286,3 +286,15 @@ fn dechunk(mut s: &str) -> String {
     }
     out
 }
+
+/// One question asked in process on the default limits, its answer as JSON (what the route would encode).
+pub fn ask_json<A: tailtally::analytics::Analytic>(req: Value) -> Result<Value, tailtally::analytics::Error>
+where
+    A::Request: serde::de::DeserializeOwned,
+    A::Answer: serde::Serialize,
+{
+    let req: A::Request = serde_json::from_value(req).unwrap();
+    let limits = tailtally::config::ServiceLimits::from_options(&Options::default());
+    tailtally::analytics::run::<A>(&req, &limits, &tailtally::analytics::cancel::Cancel::never())
+        .map(|a| serde_json::to_value(a).unwrap())
+}
