@@ -122,7 +122,9 @@ fn main() {
         t.elapsed().as_secs_f64() * 1e3
     });
     println!("n = {n}, k = mean + 5 sd = {k}, medians of {runs} runs\n");
-    println!("| form | body MB | decode only ms | end to end ms | minus engine ms | minus the answer's `elapsed_us` ms |");
+    println!(
+        "| form | body MB | decode only ms | end to end ms | minus engine ms | minus the answer's `elapsed_us` ms |"
+    );
     println!("|---|---|---|---|---|---|");
     println!("| engine alone (`Law::exact`) | | | {engine:.1} | | |");
     println!("| the question in process (`analytics::run`) | | | {question:.1} | {:.1} | |", question - engine);
@@ -172,6 +174,10 @@ fn main() {
         });
         over.sort_by(f64::total_cmp);
         let over = over[over.len() / 2];
-        println!("| {name} | {:.1} | {decode:.1} | {ms:.1} | {:.1} | {over:.1} |", body.len() as f64 / 1e6, ms - engine);
+        println!(
+            "| {name} | {:.1} | {decode:.1} | {ms:.1} | {:.1} | {over:.1} |",
+            body.len() as f64 / 1e6,
+            ms - engine
+        );
     }
 }
