@@ -9,33 +9,14 @@
 //! what a distribution over the 1e-12 central range needs at most). Prints medians and minimums in ms, the
 //! lattice width and the widest window. Timings depend on the machine's load: say so beside any you quote.
 
+#[path = "common/units_book.rs"]
+mod units_book;
 use std::time::Instant;
 use tailtally::engine::exact::{self, lattice};
 use tailtally::engine::numerics::moments::Moments;
 use tailtally::engine::Side;
 use tailtally::portfolio::Model;
-
-fn book(n: usize, seed: u64) -> (Vec<f64>, Vec<u64>) {
-    let mut x = seed;
-    let mut next = || {
-        x ^= x << 13;
-        x ^= x >> 7;
-        x ^= x << 17;
-        (x >> 11) as f64 / (1u64 << 53) as f64
-    };
-    let ps: Vec<f64> = (0..n).map(|_| 0.05 * next()).collect();
-    let us: Vec<u64> = (0..n).map(|_| (1000f64.powf(next())).floor().clamp(1.0, 1000.0) as u64).collect();
-    (ps, us)
-}
-
-fn model(ps: &[f64], us: &[u64]) -> Model {
-    let mut m = Model::default();
-    for (&p, &u) in ps.iter().zip(us) {
-        m.push_weighted(p, u);
-    }
-    m.set_lattice();
-    m
-}
+use units_book::{book, model};
 
 fn median_min(mut v: Vec<f64>) -> (f64, f64) {
     v.sort_by(f64::total_cmp);

@@ -6,33 +6,19 @@
 //! Usage: `cargo run --release --example time_units_methods [REPEATS=11]`. Prints medians and minimums in ms
 //! per method (one call of one threshold, moments included); timings depend on the machine's load.
 
+#[path = "common/units_book.rs"]
+mod units_book;
 use std::time::Instant;
 use tailtally::engine::exact::lattice;
 use tailtally::engine::{self, MethodId, Prepared, Side};
 use tailtally::portfolio::Model;
-
-fn book(n: usize, seed: u64) -> (Vec<f64>, Vec<u64>) {
-    let mut x = seed;
-    let mut next = || {
-        x ^= x << 13;
-        x ^= x >> 7;
-        x ^= x << 17;
-        (x >> 11) as f64 / (1u64 << 53) as f64
-    };
-    let ps: Vec<f64> = (0..n).map(|_| 0.05 * next()).collect();
-    let us: Vec<u64> = (0..n).map(|_| (1000f64.powf(next())).floor().clamp(1.0, 1000.0) as u64).collect();
-    (ps, us)
-}
+use units_book::book;
 
 fn main() {
     let repeats: usize = std::env::args().nth(1).and_then(|s| s.parse().ok()).unwrap_or(11);
     let n = 10_000;
     let (ps, us) = book(n, 0x9e37_79b9_7f4a_7c15 ^ n as u64);
-    let mut weighted = Model::default();
-    for (&p, &u) in ps.iter().zip(&us) {
-        weighted.push_weighted(p, u);
-    }
-    weighted.set_lattice();
+    let weighted = units_book::model(&ps, &us);
     let count = Model::from_parts(&ps, &[], 0.0);
     for (name, m) in [("units", &weighted), ("count", &count)] {
         for z in [3.0, 5.0, 8.0] {

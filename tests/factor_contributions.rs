@@ -354,12 +354,7 @@ fn reverse_stress_with_a_compound_source_under_the_factor_brackets_the_reference
 #[tokio::test]
 async fn the_newly_opened_routes_answer_over_http_and_in_a_batch_and_a_large_book_is_413() {
     let s = start(&[]).await;
-    let factor = json!({"model": "one_factor_gaussian", "rho": 0.25});
-    let source =
-        json!({"rate": 2.0, "severity": {"kind": "geometric", "first": 2, "step": 2, "largest": 20, "ratio": 0.7}});
-    let units = json!({"probabilities": [0.05, 0.1, 0.2, 0.02], "units": [10, 25, 5, 100],
-        "groups": [{"size": 20, "probability": 0.03, "units": 15}]});
-    let compound = json!({"probabilities": [0.05, 0.1], "units": [3, 4], "compound_sources": [source]});
+    let (factor, units, compound) = mixed_books();
     for portfolio in [&units, &compound] {
         let q = json!({"portfolio": portfolio, "threshold": 40, "dependence": factor});
         let (st, _, body) = s.post_json("/v1/contributions", &q).await;

@@ -274,12 +274,7 @@ fn a_lattice_too_wide_for_the_work_budget_is_refused_before_any_work() {
 #[tokio::test]
 async fn every_route_answers_under_the_factor_in_units_and_with_compound_sources() {
     let s = start(&[]).await;
-    let factor = json!({"model": "one_factor_gaussian", "rho": 0.25});
-    let source =
-        json!({"rate": 2.0, "severity": {"kind": "geometric", "first": 2, "step": 2, "largest": 20, "ratio": 0.7}});
-    let units = json!({"probabilities": [0.05, 0.1, 0.2, 0.02], "units": [10, 25, 5, 100],
-        "groups": [{"size": 20, "probability": 0.03, "units": 15}]});
-    let compound = json!({"probabilities": [0.05, 0.1], "units": [3, 4], "compound_sources": [source]});
+    let (factor, units, compound) = mixed_books();
     for portfolio in [&units, &compound] {
         let asks = [
             ("/v1/tail", json!({"portfolio": portfolio, "thresholds": [40], "dependence": factor})),

@@ -101,3 +101,16 @@ pub fn mix(len: usize, cond: impl Fn(f64) -> Vec<f64>) -> Vec<f64> {
     }
     out
 }
+
+/// The small mixed books the route tests send under the factor (rho 0.25): one in units with a group, one
+/// with a geometric compound source. Returns (dependence, the book in units, the book with the source).
+pub fn mixed_books() -> (serde_json::Value, serde_json::Value, serde_json::Value) {
+    use serde_json::json;
+    let factor = json!({"model": "one_factor_gaussian", "rho": 0.25});
+    let source =
+        json!({"rate": 2.0, "severity": {"kind": "geometric", "first": 2, "step": 2, "largest": 20, "ratio": 0.7}});
+    let units = json!({"probabilities": [0.05, 0.1, 0.2, 0.02], "units": [10, 25, 5, 100],
+        "groups": [{"size": 20, "probability": 0.03, "units": 15}]});
+    let compound = json!({"probabilities": [0.05, 0.1], "units": [3, 4], "compound_sources": [source]});
+    (factor, units, compound)
+}
