@@ -68,7 +68,12 @@ impl Moments {
                 a.add(x);
             }
         }
-        let [mean, var, m3, a3, p2] = acc;
+        Moments::finish(model, acc)
+    }
+
+    /// The moments from the compensated sums (mean, variance, third central, third absolute, sum p^2) of the
+    /// Bernoulli and binomial parts: the certain exposures' shift and the unit Poisson source added.
+    fn finish(model: &Model, [mean, var, m3, a3, p2]: [Sum; 5]) -> Moments {
         let lam = model.poisson;
         Moments {
             mean: mean.value() + model.shift as f64 + lam,
@@ -107,14 +112,7 @@ impl Moments {
         }
         let [mut mean, mut var, mut m3, mut a3, p2] = acc;
         scaled_poisson_terms(model, [&mut mean, &mut var, &mut m3, &mut a3]);
-        let lam = model.poisson;
-        Moments {
-            mean: mean.value() + model.shift as f64 + lam,
-            variance: var.value() + lam,
-            third_central: m3.value() + lam,
-            third_abs_sum: a3.value() + lam,
-            sum_p_squared: p2.value(),
-        }
+        Moments::finish(model, [mean, var, m3, a3, p2])
     }
 
     pub fn sd(&self) -> f64 {
