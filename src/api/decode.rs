@@ -1,0 +1,808 @@
+//! `from_slice`: the first reader of a JSON request, one pass over the bytes with the numbers converted where
+//! they are scanned. serde_json (with `float_roundtrip`) spends most of a long list of probabilities in its
+//! number conversion; this reader takes Clinger's exact fast path where it applies (W. D. Clinger, 1990, "How
+//! to read floating point numbers accurately": a significand of at most 2^53 times or over a power of ten of
+//! at most 10^22 is one correctly rounded IEEE operation) and the standard library's correctly rounded parser
+//! otherwise, so every double is the one serde_json reads, bit for bit.
+//!
+//! It reads valid documents only. Anything it does not accept (a syntax error, a value of the wrong type, a
+//! number out of range, a 128-bit integer, a raw value, nesting past serde_json's limit) makes it give up with
+//! no message, and `extract::parse` reads the document again with serde_json, whose errors and pointers the
+//! problems carry. So it must never accept what serde_json refuses, and must read what both accept into the
+//! same value: strings are checked as serde_json checks them (UTF-8, escapes, surrogate pairs, no control
+//! characters), integers become `u64`, `i64` or `f64` by serde_json's rules (`-0` is the float -0.0), and
+//! borrowed strings are handed over borrowed, escaped ones as copies.
+
+use serde::de::value::{BorrowedStrDeserializer, StrDeserializer};
+use serde::de::{self, DeserializeSeed, Deserializer, EnumAccess, MapAccess, SeqAccess, VariantAccess, Visitor};
+use serde::Deserialize;
+use std::fmt;
+
+/// `T` read from `input`, or `None` where serde_json must read it (see the module's note).
+pub fn from_slice<'de, T: Deserialize<'de>>(input: &'de [u8]) -> Option<T> {
+    let mut r = Reader { input, pos: 0, depth: DEPTH };
+    let value = T::deserialize(&mut r).ok()?;
+    r.skip_ws();
+    (r.pos == input.len()).then_some(value)
+}
+
+/// serde_json's nesting limit (arrays, objects and enum objects together: at most 127 deep).
+const DEPTH: u32 = 128;
+
+/// The one error: give up, serde_json says why.
+#[derive(Debug)]
+pub struct GiveUp;
+
+impl fmt::Display for GiveUp {
+    fn fmt(&self, f: &mut fmt::Formatter) -> fmt::Result {
+        f.write_str("not read by the fast reader")
+    }
+}
+
+impl std::error::Error for GiveUp {}
+
+impl de::Error for GiveUp {
+    fn custom<T: fmt::Display>(_: T) -> Self {
+        GiveUp
+    }
+}
+
+type Res<T> = Result<T, GiveUp>;
+
+struct Reader<'de> {
+    input: &'de [u8],
+    pos: usize,
+    depth: u32,
+}
+
+enum Num {
+    U64(u64),
+    I64(i64),
+    F64(f64),
+}
+
+enum Text<'de> {
+    Borrowed(&'de str),
+    Owned(String),
+}
+
+/// 10^0 to 10^22: the powers of ten that are exact doubles.
+const POW10: [f64; 23] = [
+    1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19,
+    1e20, 1e21, 1e22,
+];
+
+impl<'de> Reader<'de> {
+    #[inline]
+    fn peek(&self) -> Option<u8> {
+        self.input.get(self.pos).copied()
+    }
+
+    #[inline]
+    fn skip_ws(&mut self) {
+        while let Some(b' ' | b'\n' | b'\t' | b'\r') = self.peek() {
+            self.pos += 1;
+        }
+    }
+
+    #[inline]
+    fn next_ws(&mut self) -> Option<u8> {
+        self.skip_ws();
+        self.peek()
+    }
+
+    fn literal(&mut self, word: &[u8]) -> Res<()> {
+        if self.input[self.pos..].starts_with(word) {
+            self.pos += word.len();
+            Ok(())
+        } else {
+            Err(GiveUp)
+        }
+    }
+
+    fn enter(&mut self) -> Res<()> {
+        self.depth -= 1;
+        if self.depth == 0 {
+            return Err(GiveUp);
+        }
+        self.pos += 1;
+        Ok(())
+    }
+
+    fn close(&mut self, end: u8) -> Res<()> {
+        self.depth += 1;
+        if self.next_ws() == Some(end) {
+            self.pos += 1;
+            Ok(())
+        } else {
+            Err(GiveUp)
+        }
+    }
+
+    /// A number by JSON's grammar, `-?(0|[1-9][0-9]*)(\.[0-9]+)?([eE][+-]?[0-9]+)?`, as serde_json reads it.
+    fn number(&mut self) -> Res<Num> {
+        let b = self.input;
+        let start = self.pos;
+        let mut i = start;
+        let neg = b.get(i) == Some(&b'-');
+        if neg {
+            i += 1;
+        }
+        // The first 19 digits in `m` (any 19 digits fit in a u64); `long` once there are more.
+        let mut m: u64 = 0;
+        let mut digits = 0u32;
+        let mut long = false;
+        match b.get(i) {
+            Some(b'0') => {
+                i += 1;
+                if matches!(b.get(i), Some(b'0'..=b'9')) {
+                    return Err(GiveUp);
+                }
+            }
+            Some(b'1'..=b'9') => {
+                while let Some(&c @ b'0'..=b'9') = b.get(i) {
+                    if digits < 19 {
+                        m = m * 10 + u64::from(c - b'0');
+                        digits += 1;
+                    } else {
+                        long = true;
+                    }
+                    i += 1;
+                }
+            }
+            _ => return Err(GiveUp),
+        }
+        let int_end = i;
+        let mut float = false;
+        let mut exp10: i64 = 0;
+        if b.get(i) == Some(&b'.') {
+            float = true;
+            i += 1;
+            let first = i;
+            while let Some(&c @ b'0'..=b'9') = b.get(i) {
+                if digits < 19 {
+                    m = m * 10 + u64::from(c - b'0');
+                    digits += 1;
+                    exp10 -= 1;
+                } else {
+                    long = true;
+                }
+                i += 1;
+            }
+            if i == first {
+                return Err(GiveUp);
+            }
+        }
+        if let Some(b'e' | b'E') = b.get(i) {
+            float = true;
+            i += 1;
+            let eneg = match b.get(i) {
+                Some(b'-') => {
+                    i += 1;
+                    true
+                }
+                Some(b'+') => {
+                    i += 1;
+                    false
+                }
+                _ => false,
+            };
+            let first = i;
+            let mut e: i64 = 0;
+            while let Some(&c @ b'0'..=b'9') = b.get(i) {
+                // Past 10^6 the value is 0 or out of range either way; the standard parser decides which.
+                e = (e * 10 + i64::from(c - b'0')).min(1_000_000);
+                i += 1;
+            }
+            if i == first {
+                return Err(GiveUp);
+            }
+            exp10 += if eneg { -e } else { e };
+        }
+        self.pos = i;
+        // ASCII by construction.
+        let text = std::str::from_utf8(&b[start..i]).map_err(|_| GiveUp)?;
+        if !float {
+            let magnitude = if long { text[usize::from(neg)..int_end - start].parse::<u64>().ok() } else { Some(m) };
+            if let Some(s) = magnitude {
+                return Ok(if !neg {
+                    Num::U64(s)
+                } else {
+                    // serde_json's rule: below i64::MIN, and -0, are floats.
+                    let n = (s as i64).wrapping_neg();
+                    if n >= 0 {
+                        Num::F64(-(s as f64))
+                    } else {
+                        Num::I64(n)
+                    }
+                });
+            }
+        }
+        let x = if !long && m <= 1 << 53 && (-22..=22).contains(&exp10) {
+            let x = m as f64;
+            let x = if exp10 < 0 { x / POW10[(-exp10) as usize] } else { x * POW10[exp10 as usize] };
+            if neg {
+                -x
+            } else {
+                x
+            }
+        } else {
+            text.parse::<f64>().map_err(|_| GiveUp)?
+        };
+        if x.is_finite() {
+            Ok(Num::F64(x))
+        } else {
+            Err(GiveUp)
+        }
+    }
+
+    /// A string (at its opening quote), borrowed unless it has escapes.
+    fn string(&mut self) -> Res<Text<'de>> {
+        let b = self.input;
+        let start = self.pos + 1;
+        let mut i = start;
+        loop {
+            match b.get(i) {
+                Some(b'"') => {
+                    self.pos = i + 1;
+                    return std::str::from_utf8(&b[start..i]).map(Text::Borrowed).map_err(|_| GiveUp);
+                }
+                Some(b'\\') => break,
+                Some(0..=0x1f) | None => return Err(GiveUp),
+                Some(_) => i += 1,
+            }
+        }
+        let mut out: Vec<u8> = b[start..i].to_vec();
+        loop {
+            match b.get(i) {
+                Some(b'"') => {
+                    self.pos = i + 1;
+                    return String::from_utf8(out).map(Text::Owned).map_err(|_| GiveUp);
+                }
+                Some(b'\\') => {
+                    let c = match b.get(i + 1) {
+                        Some(b'"') => '"',
+                        Some(b'\\') => '\\',
+                        Some(b'/') => '/',
+                        Some(b'b') => '\u{8}',
+                        Some(b'f') => '\u{c}',
+                        Some(b'n') => '\n',
+                        Some(b'r') => '\r',
+                        Some(b't') => '\t',
+                        Some(b'u') => {
+                            let hi = hex4(b, i + 2)?;
+                            let (code, used) = match hi {
+                                0xD800..=0xDBFF => {
+                                    if b.get(i + 6) != Some(&b'\\') || b.get(i + 7) != Some(&b'u') {
+                                        return Err(GiveUp);
+                                    }
+                                    let lo = hex4(b, i + 8)?;
+                                    if !(0xDC00..=0xDFFF).contains(&lo) {
+                                        return Err(GiveUp);
+                                    }
+                                    (0x10000 + ((hi - 0xD800) << 10) + (lo - 0xDC00), 12)
+                                }
+                                0xDC00..=0xDFFF => return Err(GiveUp),
+                                _ => (hi, 6),
+                            };
+                            let c = char::from_u32(code).ok_or(GiveUp)?;
+                            out.extend_from_slice(c.encode_utf8(&mut [0; 4]).as_bytes());
+                            i += used;
+                            continue;
+                        }
+                        _ => return Err(GiveUp),
+                    };
+                    out.extend_from_slice(c.encode_utf8(&mut [0; 4]).as_bytes());
+                    i += 2;
+                }
+                Some(0..=0x1f) | None => return Err(GiveUp),
+                Some(&c) => {
+                    out.push(c);
+                    i += 1;
+                }
+            }
+        }
+    }
+}
+
+fn hex4(b: &[u8], at: usize) -> Res<u32> {
+    let digits = b.get(at..at + 4).ok_or(GiveUp)?;
+    let mut v = 0u32;
+    for &d in digits {
+        v = v * 16 + char::from(d).to_digit(16).ok_or(GiveUp)?;
+    }
+    Ok(v)
+}
+
+fn visit_num<'de, V: Visitor<'de>>(n: Num, visitor: V) -> Res<V::Value> {
+    match n {
+        Num::U64(v) => visitor.visit_u64(v),
+        Num::I64(v) => visitor.visit_i64(v),
+        Num::F64(v) => visitor.visit_f64(v),
+    }
+}
+
+fn visit_text<'de, V: Visitor<'de>>(t: Text<'de>, visitor: V) -> Res<V::Value> {
+    match t {
+        Text::Borrowed(s) => visitor.visit_borrowed_str(s),
+        Text::Owned(s) => visitor.visit_str(&s),
+    }
+}
+
+macro_rules! numbers {
+    ($($method:ident)*) => {$(
+        fn $method<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+            match self.next_ws() {
+                Some(b'-' | b'0'..=b'9') => visit_num(self.number()?, visitor),
+                _ => Err(GiveUp),
+            }
+        }
+    )*};
+}
+
+macro_rules! give_up {
+    ($($method:ident)*) => {$(
+        fn $method<V: Visitor<'de>>(self, _: V) -> Res<V::Value> {
+            Err(GiveUp)
+        }
+    )*};
+}
+
+impl<'de> Reader<'de> {
+    fn seq<V: Visitor<'de>>(&mut self, visitor: V) -> Res<V::Value> {
+        self.enter()?;
+        let value = visitor.visit_seq(Seq { r: self, first: true });
+        let value = value?;
+        self.close(b']')?;
+        Ok(value)
+    }
+
+    fn map<V: Visitor<'de>>(&mut self, visitor: V) -> Res<V::Value> {
+        self.enter()?;
+        let value = visitor.visit_map(Map { r: self, first: true })?;
+        self.close(b'}')?;
+        Ok(value)
+    }
+}
+
+impl<'de> Deserializer<'de> for &mut Reader<'de> {
+    type Error = GiveUp;
+
+    fn deserialize_any<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        match self.next_ws() {
+            Some(b'n') => {
+                self.literal(b"null")?;
+                visitor.visit_unit()
+            }
+            Some(b't') => {
+                self.literal(b"true")?;
+                visitor.visit_bool(true)
+            }
+            Some(b'f') => {
+                self.literal(b"false")?;
+                visitor.visit_bool(false)
+            }
+            Some(b'-' | b'0'..=b'9') => visit_num(self.number()?, visitor),
+            Some(b'"') => visit_text(self.string()?, visitor),
+            Some(b'[') => self.seq(visitor),
+            Some(b'{') => self.map(visitor),
+            _ => Err(GiveUp),
+        }
+    }
+
+    numbers! {
+        deserialize_i8 deserialize_i16 deserialize_i32 deserialize_i64 deserialize_u8 deserialize_u16
+        deserialize_u32 deserialize_u64 deserialize_f64
+    }
+
+    // serde_json reads these its own way (f32 rounded once from the text, 128-bit integers in full).
+    give_up! { deserialize_f32 deserialize_i128 deserialize_u128 deserialize_bytes deserialize_byte_buf }
+
+    fn deserialize_bool<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        match self.next_ws() {
+            Some(b't') => {
+                self.literal(b"true")?;
+                visitor.visit_bool(true)
+            }
+            Some(b'f') => {
+                self.literal(b"false")?;
+                visitor.visit_bool(false)
+            }
+            _ => Err(GiveUp),
+        }
+    }
+
+    fn deserialize_str<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        match self.next_ws() {
+            Some(b'"') => visit_text(self.string()?, visitor),
+            _ => Err(GiveUp),
+        }
+    }
+
+    fn deserialize_char<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        self.deserialize_str(visitor)
+    }
+
+    fn deserialize_string<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        self.deserialize_str(visitor)
+    }
+
+    fn deserialize_identifier<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        self.deserialize_str(visitor)
+    }
+
+    fn deserialize_option<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        if self.next_ws() == Some(b'n') {
+            self.literal(b"null")?;
+            visitor.visit_none()
+        } else {
+            visitor.visit_some(self)
+        }
+    }
+
+    fn deserialize_unit<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        if self.next_ws() == Some(b'n') {
+            self.literal(b"null")?;
+            visitor.visit_unit()
+        } else {
+            Err(GiveUp)
+        }
+    }
+
+    fn deserialize_unit_struct<V: Visitor<'de>>(self, _: &'static str, visitor: V) -> Res<V::Value> {
+        self.deserialize_unit(visitor)
+    }
+
+    fn deserialize_newtype_struct<V: Visitor<'de>>(self, name: &'static str, visitor: V) -> Res<V::Value> {
+        // serde_json's raw values are its own business.
+        if name.starts_with("$serde_json") {
+            return Err(GiveUp);
+        }
+        visitor.visit_newtype_struct(self)
+    }
+
+    fn deserialize_seq<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        match self.next_ws() {
+            Some(b'[') => self.seq(visitor),
+            _ => Err(GiveUp),
+        }
+    }
+
+    fn deserialize_tuple<V: Visitor<'de>>(self, _: usize, visitor: V) -> Res<V::Value> {
+        self.deserialize_seq(visitor)
+    }
+
+    fn deserialize_tuple_struct<V: Visitor<'de>>(self, _: &'static str, _: usize, visitor: V) -> Res<V::Value> {
+        self.deserialize_seq(visitor)
+    }
+
+    fn deserialize_map<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        match self.next_ws() {
+            Some(b'{') => self.map(visitor),
+            _ => Err(GiveUp),
+        }
+    }
+
+    /// serde_json reads a struct from an object or from an array of its fields.
+    fn deserialize_struct<V: Visitor<'de>>(
+        self,
+        _: &'static str,
+        _: &'static [&'static str],
+        visitor: V,
+    ) -> Res<V::Value> {
+        match self.next_ws() {
+            Some(b'{') => self.map(visitor),
+            Some(b'[') => self.seq(visitor),
+            _ => Err(GiveUp),
+        }
+    }
+
+    fn deserialize_enum<V: Visitor<'de>>(
+        self,
+        _: &'static str,
+        _: &'static [&'static str],
+        visitor: V,
+    ) -> Res<V::Value> {
+        match self.next_ws() {
+            Some(b'"') => match self.string()? {
+                Text::Borrowed(s) => visitor.visit_enum(BorrowedStrDeserializer::<GiveUp>::new(s)),
+                Text::Owned(s) => visitor.visit_enum(StrDeserializer::<GiveUp>::new(&s)),
+            },
+            Some(b'{') => {
+                self.enter()?;
+                let value = visitor.visit_enum(Variant { r: self })?;
+                self.close(b'}')?;
+                Ok(value)
+            }
+            _ => Err(GiveUp),
+        }
+    }
+
+    fn deserialize_ignored_any<V: Visitor<'de>>(self, visitor: V) -> Res<V::Value> {
+        self.deserialize_any(de::IgnoredAny)?;
+        visitor.visit_unit()
+    }
+}
+
+struct Seq<'a, 'de> {
+    r: &'a mut Reader<'de>,
+    first: bool,
+}
+
+impl<'de> SeqAccess<'de> for Seq<'_, 'de> {
+    type Error = GiveUp;
+
+    fn next_element_seed<T: DeserializeSeed<'de>>(&mut self, seed: T) -> Res<Option<T::Value>> {
+        match self.r.next_ws() {
+            Some(b']') => return Ok(None),
+            Some(b',') if !self.first => self.r.pos += 1,
+            _ if self.first => {}
+            _ => return Err(GiveUp),
+        }
+        self.first = false;
+        seed.deserialize(&mut *self.r).map(Some)
+    }
+}
+
+struct Map<'a, 'de> {
+    r: &'a mut Reader<'de>,
+    first: bool,
+}
+
+impl<'de> MapAccess<'de> for Map<'_, 'de> {
+    type Error = GiveUp;
+
+    fn next_key_seed<K: DeserializeSeed<'de>>(&mut self, seed: K) -> Res<Option<K::Value>> {
+        match self.r.next_ws() {
+            Some(b'}') => return Ok(None),
+            Some(b',') if !self.first => {
+                self.r.pos += 1;
+                self.r.skip_ws();
+            }
+            _ if self.first => {}
+            _ => return Err(GiveUp),
+        }
+        self.first = false;
+        if self.r.peek() != Some(b'"') {
+            return Err(GiveUp);
+        }
+        let key = match self.r.string()? {
+            Text::Borrowed(s) => seed.deserialize(BorrowedStrDeserializer::<GiveUp>::new(s))?,
+            Text::Owned(s) => seed.deserialize(StrDeserializer::<GiveUp>::new(&s))?,
+        };
+        if self.r.next_ws() != Some(b':') {
+            return Err(GiveUp);
+        }
+        self.r.pos += 1;
+        Ok(Some(key))
+    }
+
+    fn next_value_seed<T: DeserializeSeed<'de>>(&mut self, seed: T) -> Res<T::Value> {
+        seed.deserialize(&mut *self.r)
+    }
+}
+
+/// An enum written as an object of one member, `{"variant": value}`.
+struct Variant<'a, 'de> {
+    r: &'a mut Reader<'de>,
+}
+
+impl<'de> EnumAccess<'de> for Variant<'_, 'de> {
+    type Error = GiveUp;
+    type Variant = Self;
+
+    fn variant_seed<T: DeserializeSeed<'de>>(self, seed: T) -> Res<(T::Value, Self)> {
+        let tag = seed.deserialize(&mut *self.r)?;
+        if self.r.next_ws() != Some(b':') {
+            return Err(GiveUp);
+        }
+        self.r.pos += 1;
+        Ok((tag, self))
+    }
+}
+
+impl<'de> VariantAccess<'de> for Variant<'_, 'de> {
+    type Error = GiveUp;
+
+    fn unit_variant(self) -> Res<()> {
+        <()>::deserialize(&mut *self.r)
+    }
+
+    fn newtype_variant_seed<T: DeserializeSeed<'de>>(self, seed: T) -> Res<T::Value> {
+        seed.deserialize(&mut *self.r)
+    }
+
+    fn tuple_variant<V: Visitor<'de>>(self, _: usize, visitor: V) -> Res<V::Value> {
+        self.r.deserialize_seq(visitor)
+    }
+
+    fn struct_variant<V: Visitor<'de>>(self, fields: &'static [&'static str], visitor: V) -> Res<V::Value> {
+        self.r.deserialize_struct("", fields, visitor)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    //! Checked against serde_json itself (with `float_roundtrip`, correctly rounded): on every input, the fast
+    //! reader either gives up or reads exactly serde_json's value, and it never reads what serde_json refuses.
+    use super::from_slice;
+    use rand::{Rng, SeedableRng};
+    use serde_json::Value;
+
+    /// The two readers agree on `text` as a `Value` (numbers compared by kind and bits); `Some(accepted)`.
+    fn agree(text: &str) -> Option<bool> {
+        let ours = from_slice::<Value>(text.as_bytes());
+        let theirs = serde_json::from_str::<Value>(text);
+        match (ours, theirs) {
+            (Some(a), Ok(b)) => {
+                assert!(same(&a, &b), "{text:?}: read {a:?}, serde_json {b:?}");
+                Some(true)
+            }
+            (Some(a), Err(e)) => panic!("{text:?}: read {a:?}, serde_json refuses it ({e})"),
+            (None, Ok(_)) => Some(false),
+            (None, Err(_)) => None,
+        }
+    }
+
+    fn same(a: &Value, b: &Value) -> bool {
+        match (a, b) {
+            (Value::Number(x), Value::Number(y)) => {
+                x.as_u64() == y.as_u64()
+                    && x.as_i64() == y.as_i64()
+                    && x.is_f64() == y.is_f64()
+                    && x.as_f64().map(f64::to_bits) == y.as_f64().map(f64::to_bits)
+            }
+            (Value::Array(x), Value::Array(y)) => x.len() == y.len() && x.iter().zip(y).all(|(a, b)| same(a, b)),
+            (Value::Object(x), Value::Object(y)) => {
+                x.len() == y.len() && x.iter().zip(y).all(|((k, a), (l, b))| k == l && same(a, b))
+            }
+            _ => a == b,
+        }
+    }
+
+    /// Every finite number serde_json reads, the fast reader reads too, to the same bits: as a `Value` (the
+    /// integer kinds) and as an `f64` (the requests' probabilities).
+    fn number(text: &str) {
+        let theirs = serde_json::from_str::<f64>(text);
+        let ours = from_slice::<f64>(text.as_bytes());
+        match theirs {
+            Ok(x) => assert_eq!(ours.map(f64::to_bits), Some(x.to_bits()), "{text}: serde_json reads {x:e}"),
+            Err(_) => assert!(ours.is_none(), "{text}: serde_json refuses it, read {ours:?}"),
+        }
+        if serde_json::from_str::<Value>(text).is_ok() {
+            assert_eq!(agree(text), Some(true), "{text}");
+        }
+    }
+
+    #[test]
+    fn numbers_of_every_form_read_to_serde_jsons_bits() {
+        let fixed = [
+            "0", "-0", "0.0", "-0.0", "1", "-1", "9007199254740992", "9007199254740993", "18446744073709551615",
+            "18446744073709551616", "-9223372036854775808", "-9223372036854775809", "12345678901234567890123",
+            "-12345678901234567890123", "1e22", "1e23", "1.7976931348623157e308", "1.7976931348623159e308",
+            "4.9e-324", "2.4703282292062327e-324", "2.4703282292062328e-324", "1e-400", "-1e-400", "1e400",
+            "0.1", "0.30000000000000004", "1E5", "1e+5", "1e-5", "0e0", "123.456e-2", "1e1000000000000",
+            "1e-1000000000000", "0.0000000000000000000000000000001", "2.2250738585072011e-308",
+            "2.2250738585072014e-308", "9007199254740993.0", "0.1000000000000000055511151231257827",
+        ];
+        for t in fixed {
+            number(t);
+        }
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(13);
+        let mut forms = 0;
+        while forms < 60_000 {
+            let x = f64::from_bits(rng.gen());
+            if !x.is_finite() {
+                continue;
+            }
+            let p: f64 = rng.gen::<f64>() * 0.2;
+            for t in [format!("{x:?}"), format!("{x:e}"), format!("{:.16e}", x), format!("{p:?}"), format!("{p:.20}")]
+            {
+                number(&t);
+                forms += 1;
+            }
+            // Digit strings of any length with a point and an exponent anywhere (beyond 19 digits, and near
+            // halfway cases, the standard parser decides).
+            let n = rng.gen_range(1..40);
+            let mut t: String = (0..n).map(|i| char::from(b'0' + rng.gen_range(u8::from(i == 0)..10))).collect();
+            if rng.gen_bool(0.5) {
+                t.insert(rng.gen_range(1..=t.len()), '.');
+                if t.ends_with('.') {
+                    t.push('5');
+                }
+            }
+            if rng.gen_bool(0.5) {
+                t.push_str(&format!("e{}", rng.gen_range(-340..320)));
+            }
+            if rng.gen_bool(0.3) {
+                t.insert(0, '-');
+            }
+            number(&t);
+            forms += 1;
+        }
+    }
+
+    #[test]
+    fn what_serde_json_refuses_is_refused() {
+        let deep_ok = format!("{}{}", "[".repeat(127), "]".repeat(127));
+        let deep_bad = format!("{}{}", "[".repeat(128), "]".repeat(128));
+        assert_eq!(agree(&deep_ok), Some(true));
+        assert_eq!(agree(&deep_bad), None);
+        let bad = [
+            "", " ", "[1,]", "[,1]", "{\"a\":1,}", "{,}", "01", "-01", "1.", ".5", "-", "+1", "1e", "1e+", "1.e5",
+            "[1 2]", "{\"a\" 1}", "{\"a\":}", "{1:2}", "nul", "tru", "falsy", "[", "]", "{", "1 2", "\"\\x\"",
+            "\"\\u12\"", "\"\\ud800\"", "\"\\udc00\"", "\"\\ud800\\u0041\"", "\"a\nb\"", "\"\u{1}\"", "[1]x",
+            "NaN", "Infinity", "-Infinity", "[1e400]", "{\"a\":1 \"b\":2}", "'a'", "\"abc", "[\"a\",]",
+        ];
+        for t in bad {
+            assert_eq!(agree(t), None, "{t:?}");
+        }
+        assert!(from_slice::<Value>(b"\"\xff\"").is_none() && serde_json::from_slice::<Value>(b"\"\xff\"").is_err());
+        let good = [
+            "null", "true", "false", " [ ] ", "{}", "{\"a\":[1,2.5,-3,{\"b\":null}]}", "\"\\\"\\\\\\/\\b\\f\\n\\r\\t\"",
+            "\"\\u00e9\\ud83d\\ude00\\u0000\"", "\"caf\u{e9} \u{1f600}\"", "\r\n\t[1]\r\n\t", "[-0, 0, -1, 1]",
+        ];
+        for t in good {
+            assert_eq!(agree(t), Some(true), "{t:?}");
+        }
+    }
+
+    /// Every documented example request, and each with one byte changed thousands of ways, read into its own
+    /// type: the same value as serde_json's (compared by `Debug`, which writes every double's shortest
+    /// round-trip form), or given up where serde_json refuses it.
+    #[test]
+    fn example_requests_and_their_mutations() {
+        use crate::analytics::{
+            chart::ChartRequest, contributions::ContributionsRequest, distribution::DistributionRequest,
+            layers::LayersRequest, quantiles::QuantilesRequest, reverse_stress::ReverseStressRequest,
+            tail::TailRequest,
+        };
+        fn check<T: serde::de::DeserializeOwned + std::fmt::Debug>(text: &[u8]) -> bool {
+            let ours = from_slice::<T>(text);
+            match serde_json::from_slice::<T>(text) {
+                Ok(theirs) => {
+                    if let Some(ours) = ours {
+                        assert_eq!(format!("{ours:?}"), format!("{theirs:?}"), "{}", String::from_utf8_lossy(text));
+                    }
+                    true
+                }
+                Err(_) => {
+                    assert!(ours.is_none(), "refused by serde_json, read: {}", String::from_utf8_lossy(text));
+                    false
+                }
+            }
+        }
+        let examples: Value = serde_json::from_str(include_str!("../../openapi/examples/requests.json")).unwrap();
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(7);
+        let alphabet = b" ,:[]{}\"\\-+.eE0123456789antrufl";
+        let mut read = 0;
+        for (kind, body) in examples.as_object().unwrap() {
+            let check: fn(&[u8]) -> bool = match kind.as_str() {
+                "tail" => check::<TailRequest>,
+                "quantiles" => check::<QuantilesRequest>,
+                "distribution" => check::<DistributionRequest>,
+                "layers" => check::<LayersRequest>,
+                "contributions" => check::<ContributionsRequest>,
+                "chart" => check::<ChartRequest>,
+                "reverse_stress" => check::<ReverseStressRequest>,
+                _ => continue,
+            };
+            let text = serde_json::to_vec(body).unwrap();
+            assert!(check(&text) && from_slice::<Value>(&text).is_some(), "{kind}");
+            for _ in 0..3000 {
+                let mut t = text.clone();
+                let at = rng.gen_range(0..t.len());
+                match rng.gen_range(0..3) {
+                    0 => t[at] = alphabet[rng.gen_range(0..alphabet.len())],
+                    1 => {
+                        t.remove(at);
+                    }
+                    _ => t.insert(at, alphabet[rng.gen_range(0..alphabet.len())]),
+                }
+                read += usize::from(check(&t));
+                agree(std::str::from_utf8(&t).unwrap());
+            }
+        }
+        assert!(read > 1000, "the mutations should leave many documents readable ({read})");
+    }
+}
