@@ -72,6 +72,129 @@ const POW10: [f64; 23] = [
     1e20, 1e21, 1e22,
 ];
 
+/// Exponents of ten read by `eisel_lemire` (outside, the standard library's parser): a probability of up to
+/// 19 digits down to 10^-8 lies within.
+const EL_MIN: i64 = -27;
+const EL_MAX: i64 = 27;
+
+/// 5^q for q in `EL_MIN..=EL_MAX`, as (high, low) 64-bit words of a 128-bit number whose top bit is set: for
+/// q >= 0, 5^q shifted left (exact); for q < 0, floor(2^(b + 127) / 5^-q) + 1 with 2^(b - 1) < 5^-q < 2^b
+/// (the table of Lemire 2021, section 5, for these q; `tests::the_table_of_powers_of_five` recomputes it in
+/// exact integers).
+const POW5: [(u64, u64); 55] = [
+    (0x9e74d1b791e07e48, 0x775ea264cf55347e),
+    (0xc612062576589dda, 0x95364afe032a819e),
+    (0xf79687aed3eec551, 0x3a83ddbd83f52205),
+    (0x9abe14cd44753b52, 0xc4926a9672793543),
+    (0xc16d9a0095928a27, 0x75b7053c0f178294),
+    (0xf1c90080baf72cb1, 0x5324c68b12dd6339),
+    (0x971da05074da7bee, 0xd3f6fc16ebca5e04),
+    (0xbce5086492111aea, 0x88f4bb1ca6bcf585),
+    (0xec1e4a7db69561a5, 0x2b31e9e3d06c32e6),
+    (0x9392ee8e921d5d07, 0x3aff322e62439fd0),
+    (0xb877aa3236a4b449, 0x09befeb9fad487c3),
+    (0xe69594bec44de15b, 0x4c2ebe687989a9b4),
+    (0x901d7cf73ab0acd9, 0x0f9d37014bf60a11),
+    (0xb424dc35095cd80f, 0x538484c19ef38c95),
+    (0xe12e13424bb40e13, 0x2865a5f206b06fba),
+    (0x8cbccc096f5088cb, 0xf93f87b7442e45d4),
+    (0xafebff0bcb24aafe, 0xf78f69a51539d749),
+    (0xdbe6fecebdedd5be, 0xb573440e5a884d1c),
+    (0x89705f4136b4a597, 0x31680a88f8953031),
+    (0xabcc77118461cefc, 0xfdc20d2b36ba7c3e),
+    (0xd6bf94d5e57a42bc, 0x3d32907604691b4d),
+    (0x8637bd05af6c69b5, 0xa63f9a49c2c1b110),
+    (0xa7c5ac471b478423, 0x0fcf80dc33721d54),
+    (0xd1b71758e219652b, 0xd3c36113404ea4a9),
+    (0x83126e978d4fdf3b, 0x645a1cac083126ea),
+    (0xa3d70a3d70a3d70a, 0x3d70a3d70a3d70a4),
+    (0xcccccccccccccccc, 0xcccccccccccccccd),
+    (0x8000000000000000, 0x0000000000000000),
+    (0xa000000000000000, 0x0000000000000000),
+    (0xc800000000000000, 0x0000000000000000),
+    (0xfa00000000000000, 0x0000000000000000),
+    (0x9c40000000000000, 0x0000000000000000),
+    (0xc350000000000000, 0x0000000000000000),
+    (0xf424000000000000, 0x0000000000000000),
+    (0x9896800000000000, 0x0000000000000000),
+    (0xbebc200000000000, 0x0000000000000000),
+    (0xee6b280000000000, 0x0000000000000000),
+    (0x9502f90000000000, 0x0000000000000000),
+    (0xba43b74000000000, 0x0000000000000000),
+    (0xe8d4a51000000000, 0x0000000000000000),
+    (0x9184e72a00000000, 0x0000000000000000),
+    (0xb5e620f480000000, 0x0000000000000000),
+    (0xe35fa931a0000000, 0x0000000000000000),
+    (0x8e1bc9bf04000000, 0x0000000000000000),
+    (0xb1a2bc2ec5000000, 0x0000000000000000),
+    (0xde0b6b3a76400000, 0x0000000000000000),
+    (0x8ac7230489e80000, 0x0000000000000000),
+    (0xad78ebc5ac620000, 0x0000000000000000),
+    (0xd8d726b7177a8000, 0x0000000000000000),
+    (0x878678326eac9000, 0x0000000000000000),
+    (0xa968163f0a57b400, 0x0000000000000000),
+    (0xd3c21bcecceda100, 0x0000000000000000),
+    (0x84595161401484a0, 0x0000000000000000),
+    (0xa56fa5b99019a5c8, 0x0000000000000000),
+    (0xcecb8f27f4200f3a, 0x0000000000000000),
+];
+
+/// The double nearest to w * 10^q (ties to even), for w < 10^19 with every digit kept and q in
+/// `EL_MIN..=EL_MAX`: D. Lemire, 2021, "Number parsing at a gigabyte per second" (Software: Practice and
+/// Experience 51(8)), Algorithm 1 with its section 8-9 rounding; within this range of q the one ambiguous case
+/// (the low product word all ones) rounds correctly without a fallback (sections 8 and 9; N. Mushtak and
+/// D. Lemire, 2023, "Fast number parsing without fallback", Software: Practice and Experience 53(6), prove it
+/// for every q). The answers are compared with serde_json's, bit for bit, in `tests`.
+fn eisel_lemire(w: u64, q: i64) -> f64 {
+    debug_assert!((EL_MIN..=EL_MAX).contains(&q));
+    if w == 0 {
+        return 0.0;
+    }
+    let lz = w.leading_zeros();
+    let w = w << lz;
+    let (hi5, lo5) = POW5[(q - EL_MIN) as usize];
+    // The product's top 64 bits hold 54 bits of mantissa, a rounding bit and a possible leading zero; a
+    // second product of the low words is needed only when the bits below them are all ones.
+    let first = u128::from(w) * u128::from(hi5);
+    let (mut lo, mut hi) = (first as u64, (first >> 64) as u64);
+    const MASK: u64 = u64::MAX >> 55;
+    if hi & MASK == MASK {
+        let second_hi = ((u128::from(w) * u128::from(lo5)) >> 64) as u64;
+        lo = lo.wrapping_add(second_hi);
+        if second_hi > lo {
+            hi += 1;
+        }
+    }
+    let upper = (hi >> 63) as i32;
+    let mut mantissa = hi >> (upper + 64 - 52 - 3);
+    // floor(q log2(10)) + 63, biased by the least normal exponent.
+    let mut power2 = (((q as i32).wrapping_mul(152_170 + 65_536)) >> 16) + 63 + upper - lz as i32 + 1023;
+    if power2 <= 0 {
+        // Below the normal range (not reached for q >= EL_MIN, kept for a whole algorithm).
+        if -power2 + 1 >= 64 {
+            return 0.0;
+        }
+        mantissa >>= -power2 + 1;
+        mantissa += mantissa & 1;
+        mantissa >>= 1;
+        let e = u64::from(mantissa >= 1 << 52);
+        return f64::from_bits((e << 52) | (mantissa & ((1 << 52) - 1)));
+    }
+    // Exactly halfway between two doubles (possible only for small q, where 5^q is exact): to even.
+    if lo <= 1 && (-4..=23).contains(&q) && mantissa & 3 == 1 && (mantissa << (upper + 64 - 52 - 3)) == hi {
+        mantissa &= !1;
+    }
+    mantissa += mantissa & 1;
+    mantissa >>= 1;
+    if mantissa >= 2 << 52 {
+        mantissa = 1 << 52;
+        power2 += 1;
+    }
+    mantissa &= !(1 << 52);
+    // power2 < 0x7ff: q <= 27 with w < 10^19 is far below the largest double.
+    f64::from_bits(((power2 as u64) << 52) | mantissa)
+}
+
 impl<'de> Reader<'de> {
     #[inline]
     fn peek(&self) -> Option<u8> {
@@ -200,10 +323,10 @@ impl<'de> Reader<'de> {
             exp10 += if eneg { -e } else { e };
         }
         self.pos = i;
-        // ASCII by construction.
-        let text = std::str::from_utf8(&b[start..i]).map_err(|_| GiveUp)?;
+        // ASCII by construction (no check needed, but the standard parser is reached rarely).
+        let text = || std::str::from_utf8(&b[start..i]).map_err(|_| GiveUp);
         if !float {
-            let magnitude = if long { text[usize::from(neg)..int_end - start].parse::<u64>().ok() } else { Some(m) };
+            let magnitude = if long { text()?[usize::from(neg)..int_end - start].parse::<u64>().ok() } else { Some(m) };
             if let Some(s) = magnitude {
                 return Ok(if !neg {
                     Num::U64(s)
@@ -226,8 +349,15 @@ impl<'de> Reader<'de> {
             } else {
                 x
             }
+        } else if !long && (EL_MIN..=EL_MAX).contains(&exp10) {
+            let x = eisel_lemire(m, exp10);
+            if neg {
+                -x
+            } else {
+                x
+            }
         } else {
-            text.parse::<f64>().map_err(|_| GiveUp)?
+            text()?.parse::<f64>().map_err(|_| GiveUp)?
         };
         if x.is_finite() {
             Ok(Num::F64(x))
@@ -719,6 +849,40 @@ mod tests {
             }
             number(&t);
             forms += 1;
+        }
+    }
+
+    /// `POW5` against its definition, in exact integers (num-bigint).
+    #[test]
+    fn the_table_of_powers_of_five() {
+        use num_bigint::BigUint;
+        for (i, &(hi, lo)) in super::POW5.iter().enumerate() {
+            let q = super::EL_MIN + i as i64;
+            let five = BigUint::from(5u32).pow(q.unsigned_abs() as u32);
+            let v = if q >= 0 {
+                let shift = 128 - five.bits();
+                five << shift
+            } else {
+                (BigUint::from(1u32) << (five.bits() + 127)) / &five + 1u32
+            };
+            assert_eq!(v, (BigUint::from(hi) << 64) + BigUint::from(lo), "5^{q}");
+        }
+    }
+
+    /// Where `eisel_lemire` decides: 19-digit significands at every exponent it takes, and numbers exactly
+    /// halfway between two doubles (an odd 54-bit integer times a power of two, which has to round to even).
+    #[test]
+    fn full_significands_and_halfway_cases() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(19);
+        for _ in 0..40_000 {
+            let w: u64 = rng.gen_range(1_000_000_000_000_000_000..10_000_000_000_000_000_000);
+            let q = rng.gen_range(super::EL_MIN - 19..=super::EL_MAX);
+            number(&format!("{w}e{q}"));
+            number(&format!("0.{w}"));
+            let half = (rng.gen_range(1u64 << 53..1 << 54) | 1) << rng.gen_range(0..5);
+            number(&format!("{half}e0"));
+            number(&format!("{half}.0"));
+            number(&format!("{}.{}e1", half / 10, half % 10));
         }
     }
 
