@@ -2,8 +2,9 @@
 //! they are scanned. serde_json (with `float_roundtrip`) spends most of a long list of probabilities in its
 //! number conversion; this reader takes Clinger's exact fast path where it applies (W. D. Clinger, 1990, "How
 //! to read floating point numbers accurately": a significand of at most 2^53 times or over a power of ten of
-//! at most 10^22 is one correctly rounded IEEE operation) and the standard library's correctly rounded parser
-//! otherwise, so every double is the one serde_json reads, bit for bit.
+//! at most 10^22 is one correctly rounded IEEE operation), else Eisel-Lemire for up to 19 digits at the
+//! exponents a probability has (`eisel_lemire`), else the standard library's correctly rounded parser, so
+//! every double is the one serde_json reads, bit for bit.
 //!
 //! It reads valid documents only. Anything it does not accept (a syntax error, a value of the wrong type, a
 //! number out of range, a 128-bit integer, a raw value, nesting past serde_json's limit) makes it give up with
@@ -79,8 +80,8 @@ const EL_MAX: i64 = 27;
 
 /// 5^q for q in `EL_MIN..=EL_MAX`, as (high, low) 64-bit words of a 128-bit number whose top bit is set: for
 /// q >= 0, 5^q shifted left (exact); for q < 0, floor(2^(b + 127) / 5^-q) + 1 with 2^(b - 1) < 5^-q < 2^b
-/// (the table of Lemire 2021, section 5, for these q; `tests::the_table_of_powers_of_five` recomputes it in
-/// exact integers).
+/// (the table of Lemire 2021 for these q; `tests::the_table_of_powers_of_five` recomputes it in exact
+/// integers).
 const POW5: [(u64, u64); 55] = [
     (0x9e74d1b791e07e48, 0x775ea264cf55347e),
     (0xc612062576589dda, 0x95364afe032a819e),
@@ -141,10 +142,10 @@ const POW5: [(u64, u64); 55] = [
 
 /// The double nearest to w * 10^q (ties to even), for w < 10^19 with every digit kept and q in
 /// `EL_MIN..=EL_MAX`: D. Lemire, 2021, "Number parsing at a gigabyte per second" (Software: Practice and
-/// Experience 51(8)), Algorithm 1 with its section 8-9 rounding; within this range of q the one ambiguous case
-/// (the low product word all ones) rounds correctly without a fallback (sections 8 and 9; N. Mushtak and
-/// D. Lemire, 2023, "Fast number parsing without fallback", Software: Practice and Experience 53(6), prove it
-/// for every q). The answers are compared with serde_json's, bit for bit, in `tests`.
+/// Experience), with its rounding of ties to even; within this range of q the one ambiguous case (the low
+/// product word all ones) rounds correctly without a fallback, as that paper shows (and N. Mushtak and D.
+/// Lemire, 2023, "Fast number parsing without fallback", for every q). The answers are compared with
+/// serde_json's, bit for bit, in `tests`.
 fn eisel_lemire(w: u64, q: i64) -> f64 {
     debug_assert!((EL_MIN..=EL_MAX).contains(&q));
     if w == 0 {
@@ -443,8 +444,8 @@ impl<'de> Reader<'de> {
     }
 }
 
-/// The value of the eight bytes at `at` if all are ASCII digits (the SWAR conversion of Lemire 2021, section 6:
-/// one test for eight digits, three multiplications for their value).
+/// The value of the eight bytes at `at` if all are ASCII digits (the eight-digit conversion within one 64-bit
+/// word of Lemire 2021: one test for eight digits, three multiplications for their value).
 #[inline]
 fn eight_digits(b: &[u8], at: usize) -> Option<u64> {
     let chunk: [u8; 8] = b.get(at..at + 8)?.try_into().ok()?;
