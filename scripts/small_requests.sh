@@ -30,14 +30,25 @@ wrk.body = f:read("*a")
 f:close()
 wrk.headers["Content-Type"] = "application/json"
 LUA
-rate() { wrk -t2 -c32 -d"${DURATION}s" "$@" | awk '/Requests\/sec/ {print $2}'; }
-echo "| binary | /healthz req/s | tail req/s | ratio | inline answers |"
-echo "|---|---|---|---|---|"
+# The server's CPU (user + system, from /proc) per request: unlike the rates, it does not count wrk's own CPU
+# on the same cores, and moves less with the machine's other load.
+cpu() { awk '{print $14 + $15}' "/proc/$SERVER_PID/stat"; }
+TICK=$(getconf CLK_TCK)
+# "RATE CPU_US_PER_REQUEST" of one wrk run.
+rate() {
+    local before out
+    before=$(cpu)
+    out=$(wrk -t2 -c32 -d"${DURATION}s" "$@")
+    python3 -c "import sys; n, rate = sys.argv[1:3]; print(rate, f'{($(cpu) - $before) / $TICK / int(n) * 1e6:.1f}')" \
+        "$(echo "$out" | awk '/requests in/ {print $1}')" "$(echo "$out" | awk '/Requests\/sec/ {print $2}')"
+}
+echo "| binary | /healthz req/s | tail req/s | ratio | server CPU us/request: /healthz | tail | inline answers |"
+echo "|---|---|---|---|---|---|---|"
 for BIN in "$@"; do
     start_server
-    H=$(rate "http://$ADDR/healthz")
-    T=$(BODY="$WORK/tail.json" rate -s "$WORK/post.lua" "http://$ADDR/v1/tail")
+    read -r H HC < <(rate "http://$ADDR/healthz")
+    read -r T TC < <(BODY="$WORK/tail.json" rate -s "$WORK/post.lua" "http://$ADDR/v1/tail")
     I=$(curl -s "http://$ADDR/metrics" | awk '/^tailtally_questions_inline_total/ {print $2}')
-    echo "| $BIN | $H | $T | $(python3 -c "print(f'{$T/$H:.2f}')") | ${I:-n/a} |"
+    echo "| $BIN | $H | $T | $(python3 -c "print(f'{$T/$H:.2f}')") | $HC | $TC | ${I:-n/a} |"
     stop_server
 done

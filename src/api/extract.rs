@@ -90,11 +90,16 @@ fn is_json(mime: &str) -> bool {
 /// Parse JSON, mapping serde's errors to problems with a JSON pointer. Integral floats read as integers
 /// (`integral`), as JSON Schema's `integer` allows.
 ///
-/// Valid documents are read by serde_json alone; the path tracking that gives a failure its pointer wraps
+/// Valid documents are read by `decode::from_slice` (or serde_json where it gives up); the path tracking that gives a failure its pointer wraps
 /// every value (about a fifth of the parse of a list of numbers), so it is paid only by a document that
 /// fails, read a second time. The second reader accepts everything the first does (and integral floats
 /// besides), so a document the first refuses is answered by the second: accepted, or refused with a pointer.
 pub fn parse<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, Problem> {
+    // The one-pass reader first (`api::decode`: the same values, about twice as fast on lists of numbers); it
+    // gives up without a word on anything it does not read, and serde_json says what is wrong.
+    if let Some(v) = super::decode::from_slice(bytes) {
+        return Ok(v);
+    }
     if let Ok(v) = serde_json::from_slice(bytes) {
         return Ok(v);
     }

@@ -4,6 +4,7 @@
 //! their wire types live in `crate::analytics`.
 
 pub mod batch;
+pub mod decode;
 pub mod encode;
 pub mod extract;
 pub mod integral;
