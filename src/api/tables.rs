@@ -493,7 +493,7 @@ fn probability_ok(p: f64) -> bool {
 
 /// Whether every value is a probability (`probability_ok`), folded without early exit so that it vectorises.
 fn all_probabilities(ps: &[f64]) -> bool {
-    ps.chunks(4096).all(|c| c.iter().fold(true, |ok, &p| ok & (p >= 0.0) & (p <= 1.0)))
+    ps.chunks(4096).all(|c| c.iter().fold(true, |ok, &p| ok & (0.0..=1.0).contains(&p)))
 }
 
 fn out_of_range(p: f64) -> String {
