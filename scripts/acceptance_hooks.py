@@ -5,7 +5,7 @@ totals, a range's order and length); `map_body` mends the rest (a listed severit
 one's `largest`, units coarser where the lattice would pass the work budget, counts capped at 1e9 with a
 Poisson part, no factor model on contributions in units past the work budget) and writes the table part of
 multipart bodies; `flatmap_body` leaves out what `map_body` marked (a /v1/distribution range that would hold
-more than --max-thresholds totals, a tail, distribution, chart, layers or quantiles past their work rules). The second table of acceptance.sh measures what the service refuses beyond
+more than --max-thresholds totals, any question past its work rule). The second table of acceptance.sh measures what the service refuses beyond
 them: the memory ceiling, timeouts, and any rule the document forgets. Each rule here must be one the document
 states; change both together.
 
@@ -297,7 +297,7 @@ def map_body(context, body):
     _dependence(request, form, context.operation.path)
     _unbounded(request)
     if (context.operation.path == "/v1/distribution" and not _central_range_fits(request)) or (
-        context.operation.path in ("/v1/tail", "/v1/distribution") and not _work_fits(request, context.operation.path)
+        context.operation.path in _EVALUATIONS and not _work_fits(request, context.operation.path)
     ) or (
         context.operation.path == "/v1/chart" and not _chart_fits(request)
     ) or (context.operation.path == "/v1/layers" and not _layers_fits(request, form)) or (
@@ -341,18 +341,40 @@ def _windows(request: dict) -> float:
     return n
 
 
-def _work_fits(request: dict, path: str) -> bool:
-    """The work budget's rule for /v1/tail (one evaluation per threshold) and /v1/distribution (20): (listed
-    exposures and family members + 64 per group + 64 + the lattice width + the wide parts' windows) x
-    evaluations x (150 under the factor) x (2 under a stress) within the work budget."""
-    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    if path == "/v1/tail":
-        thresholds = request.get("thresholds")
-        evaluations = len(thresholds) if isinstance(thresholds, list) else 1
+def _reverse_stress_evaluations(request: dict) -> float:
+    """analytics::reverse_stress::planned_evaluations: the search's ends (3, or the rho grid's 21) and its
+    bisection to the tolerance (default 1e-4, within [1e-12, 1]) over ln f's span of 921.1, or rho's steps of
+    0.05."""
+    tol = request.get("tolerance")
+    tol = tol if isinstance(tol, (int, float)) and not math.isnan(tol) else 1e-4
+    tol = min(max(float(tol), 1e-12), 1.0)
+    if request.get("which") == "rho":
+        ends, span, width = 21, 0.05, tol
     else:
-        evaluations = 20
+        ends, span, width = 3, 921.1, math.log1p(tol)
+    return ends + max(0, math.ceil(math.log2(span / width)))
+
+
+# The questions whose work the hooks check by `_work_fits`: their evaluations.
+_EVALUATIONS = {
+    "/v1/tail": lambda r: len(r["thresholds"]) if isinstance(r.get("thresholds"), list) else 1,
+    "/v1/distribution": lambda r: 20,
+    "/v1/contributions": lambda r: 40,
+    "/v1/reverse-stress": _reverse_stress_evaluations,
+}
+
+
+def _work_fits(request: dict, path: str) -> bool:
+    """The work budget's rule for /v1/tail (one evaluation per threshold), /v1/distribution (20),
+    /v1/contributions (40) and /v1/reverse-stress (its search's plan): (listed exposures and family members +
+    64 per group + 64 + the lattice width + the wide parts' windows) x evaluations x (150 under the factor, and
+    always for a rho search) x (2 under a stress) within the work budget."""
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    evaluations = _EVALUATIONS[path](request)
     dep = request.get("dependence")
-    factor_model = isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"
+    factor_model = (isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian") or (
+        path == "/v1/reverse-stress" and request.get("which") == "rho"
+    )
     stress = request.get("stress")
     work = (_steps(p) + _windows(request)) * evaluations * (150 if factor_model else 1) * (2 if stress else 1)
     return work <= MAX_WORK
