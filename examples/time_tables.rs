@@ -1,6 +1,7 @@
 //! Time a book sent as a table against the engine alone: n exposures (p_i ~ U(0, 0.2), fixed seed), one exact
 //! tail at mean + 5 sd, medians of R runs in ms:
-//!   cargo run --release --example time_tables -- 1000000 [R=7]
+//!   cargo run --release --example time_tables -- 1000000 [R=7] [FORM]
+//! (FORM, e.g. `Arrow`: that form's row alone, for profiling the server under its load).
 //! End to end is one POST /v1/tail to the real service on a loopback port (bodies built beforehand: upload,
 //! multipart split, table parse, validation, the exact tail, the answer), timed at the client. Prints one
 //! markdown row per form; the last column is end to end less the engine time the answer reports (`elapsed_us`),
@@ -72,6 +73,7 @@ fn main() {
     let mut args = std::env::args().skip(1);
     let n: usize = args.next().and_then(|s| s.parse().ok()).unwrap_or(1_000_000);
     let runs: usize = args.next().and_then(|s| s.parse().ok()).unwrap_or(7);
+    let only: Option<String> = args.next();
     let mut rng = ChaCha8Rng::seed_from_u64(42);
     let ps: Vec<f64> = (0..n).map(|_| rng.gen_range(0.0..0.2)).collect();
     let ids: Vec<String> = (0..n).map(|i| format!("L-{i:07}")).collect();
@@ -129,7 +131,7 @@ fn main() {
     println!("| engine alone (`Law::exact`) | | | {engine:.1} | | |");
     println!("| the question in process (`analytics::run`) | | | {question:.1} | {:.1} | |", question - engine);
     let mut first: Option<String> = None;
-    for (name, ctype, body) in &forms {
+    for (name, ctype, body) in forms.iter().filter(|f| only.as_ref().is_none_or(|o| o == &f.0)) {
         let body = bytes::Bytes::from(body.clone());
         // Decoding alone: the extractor's work on the received body.
         let decode = median(runs, || {

@@ -5,7 +5,7 @@ totals, a range's order and length); `map_body` mends the rest (a listed severit
 one's `largest`, units coarser where the lattice would pass the work budget, counts capped at 1e9 with a
 Poisson part, no factor model on contributions in units past the work budget) and writes the table part of
 multipart bodies; `flatmap_body` leaves out what `map_body` marked (a /v1/distribution range that would hold
-more than --max-thresholds totals, a chart, layers or quantiles past their work rules). The second table of acceptance.sh measures what the service refuses beyond
+more than --max-thresholds totals, any question past its work rule). The second table of acceptance.sh measures what the service refuses beyond
 them: the memory ceiling, timeouts, and any rule the document forgets. Each rule here must be one the document
 states; change both together.
 
@@ -258,14 +258,14 @@ def _dependence(request: dict, form, path: str) -> None:
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
     if not _in_units(request, form):
         return
-    # The budget's count (analytics::contributions): (exposures + lattice width + 64) x (40 evaluations + one
-    # law per exposure at most) x FACTOR_WORK nodes, twice under stress.
+    # The budget's count (analytics::contributions): (exposures + lattice width + 64 + the wide parts'
+    # windows) x (40 evaluations + one law per exposure at most) x FACTOR_WORK nodes, twice under stress.
     families = [f for f in p.get("families") or [] if isinstance(f, dict)]
     n = float(len(p.get("probabilities") or []))
     for f in families:
         n += float(len(f.get("scores") or []) if f.get("kind") == "logistic" else f.get("n", 0) or 0)
     stress = 2.0 if request.get("stress") else 1.0
-    if (n + _lattice_width(p) + 64.0) * (40.0 + n) * FACTOR_WORK * stress > MAX_WORK:
+    if (n + _lattice_width(p) + 64.0 + _windows(request)) * (40.0 + n) * FACTOR_WORK * stress > MAX_WORK:
         del request["dependence"]
 
 
@@ -297,6 +297,8 @@ def map_body(context, body):
     _dependence(request, form, context.operation.path)
     _unbounded(request)
     if (context.operation.path == "/v1/distribution" and not _central_range_fits(request)) or (
+        context.operation.path in _EVALUATIONS and not _work_fits(request, context.operation.path)
+    ) or (
         context.operation.path == "/v1/chart" and not _chart_fits(request)
     ) or (context.operation.path == "/v1/layers" and not _layers_fits(request, form)) or (
         context.operation.path == "/v1/quantiles" and not _quantiles_fits(request)
@@ -321,11 +323,68 @@ def _steps(p: dict) -> float:
     return len(p.get("probabilities") or []) + members + 64 * len(groups) + 64 + _lattice_width(p)
 
 
-def _chart_fits(request: dict) -> bool:
-    """The rule of `ChartRequest`: (listed exposures and family members + 64 per group + 64 + the lattice width)
-    x (300 x (1 + overlay methods) + 1) within the work budget."""
+def _windows(request: dict) -> float:
+    """The windows of the wide parts every question counts in its work (the rule under `LayersRequest`): per
+    group of size m, min(m + 1, 2 r(m / 4) + 4) - 64 when above 0, and with a Poisson part 2 r(total rate x
+    the stress factor when above 1) + 4. A group's window is counted whether or not the book is in units (in
+    units the lattice width holds it already: a bound, not the estimate)."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    n = _steps(p)
+    n = 0.0
+    for g in (g for g in p.get("groups") or [] if isinstance(g, dict)):
+        m = float(g.get("size") or 0)
+        n += max(0.0, min(m + 1, 2 * _radius(m / 4) + 4) - 64)
+    stress = request.get("stress") if isinstance(request.get("stress"), dict) else {}
+    factor = max([1.0] + [float(v) for v in stress.values() if isinstance(v, (int, float))])
+    rate = float(sum(r for r in p.get("poisson_rates") or [] if isinstance(r, (int, float))))
+    if rate > 0:
+        n += 2 * _radius(rate * factor) + 4
+    return n
+
+
+def _reverse_stress_evaluations(request: dict) -> float:
+    """analytics::reverse_stress::planned_evaluations: the search's ends (3, or the rho grid's 21) and its
+    bisection to the tolerance (default 1e-4, within [1e-12, 1]) over ln f's span of 921.1, or rho's steps of
+    0.05."""
+    tol = request.get("tolerance")
+    tol = tol if isinstance(tol, (int, float)) and not math.isnan(tol) else 1e-4
+    tol = min(max(float(tol), 1e-12), 1.0)
+    if request.get("which") == "rho":
+        ends, span, width = 21, 0.05, tol
+    else:
+        ends, span, width = 3, 921.1, math.log1p(tol)
+    return ends + max(0, math.ceil(math.log2(span / width)))
+
+
+# The questions whose work the hooks check by `_work_fits`: their evaluations.
+_EVALUATIONS = {
+    "/v1/tail": lambda r: len(r["thresholds"]) if isinstance(r.get("thresholds"), list) else 1,
+    "/v1/distribution": lambda r: 20,
+    "/v1/contributions": lambda r: 40,
+    "/v1/reverse-stress": _reverse_stress_evaluations,
+}
+
+
+def _work_fits(request: dict, path: str) -> bool:
+    """The work budget's rule for /v1/tail (one evaluation per threshold), /v1/distribution (20),
+    /v1/contributions (40) and /v1/reverse-stress (its search's plan): (listed exposures and family members +
+    64 per group + 64 + the lattice width + the wide parts' windows) x evaluations x (150 under the factor, and
+    always for a rho search) x (2 under a stress) within the work budget."""
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    evaluations = _EVALUATIONS[path](request)
+    dep = request.get("dependence")
+    factor_model = (isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian") or (
+        path == "/v1/reverse-stress" and request.get("which") == "rho"
+    )
+    stress = request.get("stress")
+    work = (_steps(p) + _windows(request)) * evaluations * (150 if factor_model else 1) * (2 if stress else 1)
+    return work <= MAX_WORK
+
+
+def _chart_fits(request: dict) -> bool:
+    """The rule of `ChartRequest`: (listed exposures and family members + 64 per group + 64 + the lattice width
+    + the wide parts' windows) x (300 x (1 + overlay methods) + 1) within the work budget."""
+    p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
+    n = _steps(p) + _windows(request)
     methods = request.get("methods") if isinstance(request.get("methods"), list) else []
     overlays = len({m for m in methods if m not in ("exact", "auto")})
     return n * (MAX_BARS * (1 + overlays) + 1) <= MAX_WORK
@@ -338,38 +397,31 @@ def _radius(v: float) -> float:
 
 def _layers_fits(request: dict, form) -> bool:
     """The rule of `LayersRequest`: (listed exposures and family members + 64 per group + 64 + the lattice
-    width + the windows of the wide parts) x (3 x layers + 20 x tail levels, + 40 under the factor in units)
-    x (150 under the factor) x (2 under a stress) within the work budget. A group's window is counted whether
-    or not the book is in units (in units the lattice width holds it already: a bound, not the estimate)."""
+    width + the windows of the wide parts) x (3 x layers + 5 x tail levels, + 40 under the factor in units)
+    x (150 under the factor) x (2 under a stress) within the work budget."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    n = _steps(p)
-    for g in (g for g in p.get("groups") or [] if isinstance(g, dict)):
-        m = float(g.get("size") or 0)
-        n += max(0.0, min(m + 1, 2 * _radius(m / 4) + 4) - 64)
-    stress = request.get("stress") if isinstance(request.get("stress"), dict) else {}
-    factor = max([1.0] + [float(v) for v in stress.values() if isinstance(v, (int, float))])
-    rate = float(sum(r for r in p.get("poisson_rates") or [] if isinstance(r, (int, float))))
-    if rate > 0:
-        n += 2 * _radius(rate * factor) + 4
+    n = _steps(p) + _windows(request)
+    stress = request.get("stress")
     dep = request.get("dependence")
     factor_model = isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"
     layers = request.get("layers") if isinstance(request.get("layers"), list) else []
     levels = request.get("tail_levels") if isinstance(request.get("tail_levels"), list) else []
-    evaluations = 3 * len(layers) + 20 * len(levels) + (40 if factor_model and _in_units(request, form) else 0)
+    evaluations = 3 * len(layers) + 5 * len(levels) + (40 if factor_model and _in_units(request, form) else 0)
     return n * evaluations * (150 if factor_model else 1) * (2 if stress else 1) <= MAX_WORK
 
 
 def _quantiles_fits(request: dict) -> bool:
     """The rule of `QuantilesRequest`: (listed exposures and family members + 64 per group + 64 + the lattice
-    width) x (40 x levels x methods) x (150 under the factor) x (2 under a stress) within the work budget."""
+    width + the wide parts' windows) x (4 x levels x methods) x (150 under the factor) x (2 under a stress)
+    within the work budget."""
     p = request.get("portfolio") if isinstance(request.get("portfolio"), dict) else {}
-    n = _steps(p)
+    n = _steps(p) + _windows(request)
     levels = request.get("levels") if isinstance(request.get("levels"), list) else []
     methods = request.get("methods") if isinstance(request.get("methods"), list) else ["exact"]
     dep = request.get("dependence")
     factor_model = isinstance(dep, dict) and dep.get("model") == "one_factor_gaussian"
     stress = request.get("stress")
-    return n * 40 * len(levels) * len(methods) * (150 if factor_model else 1) * (2 if stress else 1) <= MAX_WORK
+    return n * 4 * len(levels) * len(methods) * (150 if factor_model else 1) * (2 if stress else 1) <= MAX_WORK
 
 
 def _central_range_fits(request: dict) -> bool:

@@ -12,7 +12,7 @@ use super::cost::{self, Footprint};
 use super::error::Error;
 use super::law::Law;
 use super::pipeline::{Analytic, Ctx, Inputs};
-use super::scenario::work_of;
+use super::scenario::{part_windows, work_of};
 use crate::config::ServiceLimits;
 use crate::engine::exact::lattice;
 use crate::engine::{self, Estimate, MethodId, Prepared, Side};
@@ -164,7 +164,8 @@ impl Analytic for Chart {
         };
         let (counts, stride) = plot_counts(m.mean, m.sd(), model.support_min(), model.support_max(), anchor, req.side);
         // One exact batch for the bars plus the title's tail, one batch per overlay.
-        let work = work_of(model, counts.len() * (1 + overlays.len()) + 1);
+        let evaluations = counts.len() * (1 + overlays.len()) + 1;
+        let work = work_of(model, evaluations) + part_windows(model, &None) * evaluations as f64;
         if work > ctx.limits.max_work {
             return Err(Error::TooLarge(format!(
                 "exposures x plotted counts = {work:.0} exceeds the work budget {} (see --max-work)",

@@ -165,6 +165,9 @@ pub struct LayersResponse {
     pub assumptions: Assumptions,
 }
 
+/// Tilted laws a tail level costs, for the work budget (`Layers::evaluations`).
+pub const TAIL_LEVEL_EVALUATIONS: f64 = 5.0;
+
 pub struct Layers;
 
 impl Analytic for Layers {
@@ -218,15 +221,12 @@ impl Analytic for Layers {
         true
     }
 
-    /// A tail level's quantile search builds about 20 tilted laws, each as wide as the book's windows (under the
-    /// factor, 150 of them per figure): a book of a wide group and a wide Poisson part took minutes (found by
-    /// scripts/acceptance.sh, seed 1: a group of 9 x 10^8 and a rate of 5 x 10^8 at 8 levels under the factor).
-    fn counts_part_windows() -> bool {
-        true
-    }
-
+    /// A layer costs about 3 tilted laws and a tail level (its quantile's search and the expectation beyond it)
+    /// about 5, each as wide as the book's windows, which the pipeline counts (`scenario::part_windows`; under
+    /// the factor, 150 of them per figure). Measured by examples/work_calibration: at 20 per level a tail level
+    /// cost a quarter of what its work said.
     fn evaluations(req: &LayersRequest) -> Option<f64> {
-        let mut n = req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * 20.0;
+        let mut n = req.layers.len() as f64 * 3.0 + req.tail_levels.len() as f64 * TAIL_LEVEL_EVALUATIONS;
         // Under the factor in units the expectations come from one mixed law (`factor::MixedLaw`) of at most
         // MAX_NODES lattice laws, FACTOR_WORK each per evaluation counted.
         let units = super::distribution::has_units(&req.portfolio) || !req.portfolio.compound_sources.is_empty();

@@ -61,13 +61,6 @@ pub trait Analytic {
     /// when the question checks its budget itself (it needs the law's moments to know its size).
     fn evaluations(req: &Self::Request) -> Option<f64>;
 
-    /// Whether the work budget counts the windows of the book's wide parts (`scenario::part_windows`): a
-    /// question that builds many tilted laws of one book (layers' quantile searches) must, or a book of two
-    /// wide windows passes a budget it exceeds many times over.
-    fn counts_part_windows() -> bool {
-        false
-    }
-
     /// Whether the question may be answered on the async worker when its work is small (`cost::inline_work`);
     /// a question whose size the request does not bound by its evaluations says no.
     fn may_inline(_req: &Self::Request) -> bool {
@@ -119,7 +112,10 @@ fn steps<A: Analytic>(req: &A::Request, limits: &ServiceLimits, cancel: &Cancel)
     A::check_model(req, &model)?;
     if let Some(evaluations) = A::evaluations(req) {
         let factor = scenario::work_factor(&inputs.stress, &inputs.dependence);
-        let extra = if A::counts_part_windows() { scenario::part_windows(&model, &inputs.stress) } else { 0.0 };
+        // Every question counts the windows of the book's wide parts (`scenario::part_windows`): each tilted
+        // law convolves them, and a tail of 1,000 groups of 10^6 counted as 64 each took 1.4 s for a work of
+        // 6.4e4 (22,000 ns a unit, where the budget's unit is about 100; examples/work_calibration).
+        let extra = scenario::part_windows(&model, &inputs.stress);
         scenario::check_work_with(&model, extra, evaluations, factor, limits)?;
     }
     let footprint = A::footprint(req, &model, limits);

@@ -274,9 +274,9 @@ fn name_ids(spec: &PortfolioSpec, errs: &mut [Violation]) {
     }
 }
 
-/// Refuse work over the budget (exposures x evaluations x scenario factor).
+/// Refuse work over the budget ((exposures + the wide parts' windows) x evaluations x scenario factor).
 pub fn check_work(model: &Model, evaluations: f64, factor: f64, limits: &ServiceLimits) -> Result<(), Error> {
-    check_work_with(model, 0.0, evaluations, factor, limits)
+    check_work_with(model, part_windows(model, &None), evaluations, factor, limits)
 }
 
 /// The windows of a book's wide parts beyond what `work_of` counts for them, per evaluation, in the same

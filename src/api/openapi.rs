@@ -149,34 +149,37 @@ fn rules(doc: &mut Value) {
         "The exact engine works on the lattice of totals: its width in steps is about the sum of the units \
          (a group's window of counts times its units, a family's members times theirs, a compound source's \
          sizes times its window of counts) over their greatest common divisor. The work of a question, that \
-         width plus the exposures times its evaluations, must fit the work budget (`--max-work`, 2e9 by \
-         default); past it the answer is 413 with the factor by which coarser units would fit: divide every \
+         width plus the exposures (plus the Poisson part's window, 2 r(rate) + 4 with r(v) = 25 + sqrt(625 + \
+         150 v)) times its evaluations, must fit the work budget (`--max-work`, 2e9 by default, about 200 s \
+         of one core); past it the answer is 413 with the factor by which coarser units would fit: divide every \
          unit and severity size by it and round.",
     );
     append(
         &mut schemas["ChartRequest"]["description"],
         "A chart evaluates up to 300 bars with the exact method and again with each overlay method, so its work \
          is (listed exposures and family members + 64 per group + 64 + the lattice width in units, 0 for a \
-         count) x (300 x (1 + overlay methods) + 1); past the work budget (`--max-work`, 2e9 by default) the \
-         answer is 413.",
+         count + the windows of the wide parts, as for `LayersRequest`) x (300 x (1 + overlay methods) + 1); \
+         past the work budget (`--max-work`, 2e9 by default) the answer is 413.",
     );
     append(
         &mut schemas["LayersRequest"]["description"],
-        "Each layer costs 3 exact evaluations and each tail level about 20 (its quantile's search), plus 40 \
-         under `one_factor_gaussian` in loss units, so the work is (listed exposures and family members + 64 \
-         per group + 64 + the lattice width in units, 0 for a count + the windows of the wide parts) x (3 x \
-         layers + 20 x tail levels (+ 40)) x (150 under `one_factor_gaussian`) x (2 under a \
-         stress). The windows of the wide parts: for a count, per group of size m, min(m + 1, 2 r(m / 4) + 4) - \
-         64 when above 0, and with a Poisson part (a rate above 0 in `poisson_rates`) 2 r(total rate x the \
-         stress factor when above 1) + 4, where r(v) = 25 + sqrt(625 + 150 v). Past the work budget \
-         (`--max-work`, 2e9 by default) the answer is 413.",
+        "Each layer costs 3 exact evaluations and each tail level about 5 (its quantile's search and the \
+         expectation beyond), plus 40 under `one_factor_gaussian` in loss units, so the work is (listed \
+         exposures and family members + 64 per group + 64 + the lattice width in units, 0 for a count + the \
+         windows of the wide parts) x (3 x layers + 5 x tail levels (+ 40)) x (150 under \
+         `one_factor_gaussian`) x (2 under a stress). The windows of the wide parts: for a count, per group of \
+         size m, min(m + 1, 2 r(m / 4) + 4) - 64 when above 0, and with a Poisson part (a rate above 0 in \
+         `poisson_rates`) 2 r(total rate x the stress factor when above 1) + 4, where r(v) = 25 + sqrt(625 + \
+         150 v); every question counts these windows in its work. Past the work budget (`--max-work`, 2e9 by \
+         default) the answer is 413.",
     );
     append(
         &mut schemas["QuantilesRequest"]["description"],
-        "A quantile's search probes up to 40 exact tails per level and method, so the work is (listed \
-         exposures and family members + 64 per group + 64 + the lattice width in units, 0 for a count) x (40 x \
-         levels x methods) x (150 under `one_factor_gaussian`) x (2 under a stress); past the work budget \
-         (`--max-work`, 2e9 by default) the answer is 413.",
+        "A quantile's search costs about 4 exact tails per level and method (its probes share tilted laws), so \
+         the work is (listed exposures and family members + 64 per group + 64 + the lattice width in units, 0 \
+         for a count + the windows of the wide parts, as for `LayersRequest`) x (4 x levels x methods) x (150 \
+         under `one_factor_gaussian`) x (2 under a stress); past the work budget (`--max-work`, 2e9 by \
+         default) the answer is 413.",
     );
     let unbounded = "With a Poisson part (a rate above 0 here, or a compound source) the total has no largest \
          value, and a threshold, count or range end above 1e9 is refused (422).";

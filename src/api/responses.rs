@@ -12,7 +12,10 @@ pub struct ComputingProblems;
 pub const COMPUTING_PROBLEMS: [(&str, &str); 6] = [
     ("400", "Malformed JSON, multipart body or table"),
     ("408", "Not answered within the request timeout"),
-    ("413", "Body, table rows or work over the configured limits"),
+    (
+        "413",
+        "Body, table rows or work over the configured limits (the default work budget, --max-work 2e9, is about 200 s of one core)",
+    ),
     ("415", "Neither JSON nor multipart/form-data, or a part of another type"),
     ("422", "Invalid field, with its JSON pointer (/exposures/<row>/<column> for a table's row)"),
     ("503", "All computing slots busy and the queue full (see Retry-After)"),

@@ -491,6 +491,11 @@ fn probability_ok(p: f64) -> bool {
     p.is_finite() && (0.0..=1.0).contains(&p)
 }
 
+/// Whether every value is a probability (`probability_ok`), folded without early exit so that it vectorises.
+fn all_probabilities(ps: &[f64]) -> bool {
+    ps.chunks(4096).all(|c| c.iter().fold(true, |ok, &p| ok & (0.0..=1.0).contains(&p)))
+}
+
 fn out_of_range(p: f64) -> String {
     format!("{p} is not in [0, 1]")
 }
@@ -723,8 +728,11 @@ fn decode_arrow(data: Bytes, cols: &Columns, budget: &Budget) -> Result<Table, P
                 }
             }
         }
-        // Only the rows that break the rules are looked at twice.
-        for (i, &v) in p.values().iter().enumerate() {
+        // Only the rows that break the rules are looked at twice; a column without nulls whose values are all
+        // probabilities (the usual case) is told so by one branch-free pass.
+        let clean = p.null_count() == 0 && all_probabilities(p.values());
+        let walked: &[f64] = if clean { &[] } else { p.values() };
+        for (i, &v) in walked.iter().enumerate() {
             let valid = p.is_valid(i);
             if valid && probability_ok(v) {
                 continue;
@@ -955,6 +963,26 @@ fn part(headers: &str, data: Bytes) -> Result<Part, String> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The branch-free test of an Arrow column agrees with `probability_ok` row by row, for every value that
+    /// breaks it, placed at the start, at a block's edge and at the end.
+    #[test]
+    fn all_probabilities_agrees_with_the_row_check() {
+        let odd = [f64::NAN, f64::INFINITY, f64::NEG_INFINITY, -1e-300, 1.0 + f64::EPSILON, -1.0];
+        let good = [0.0, -0.0, 1.0, 0.25, 5e-324];
+        for n in [1usize, 4096, 4097, 9000] {
+            let base: Vec<f64> = (0..n).map(|i| good[i % good.len()]).collect();
+            assert!(all_probabilities(&base), "n={n}");
+            for at in [0, 4095.min(n - 1), n - 1] {
+                for &x in &odd {
+                    let mut v = base.clone();
+                    v[at] = x;
+                    assert_eq!(all_probabilities(&v), v.iter().all(|&p| probability_ok(p)), "n={n}, at={at}, x={x}");
+                    assert!(!all_probabilities(&v));
+                }
+            }
+        }
+    }
 
     #[test]
     fn a_column_is_found_once_absent_or_refused_when_named_twice() {

@@ -255,7 +255,10 @@ pub async fn read_first(State(intake): State<Arc<Intake>>, req: Request, next: N
             continue;
         }
         if let Some(f) = first.take() {
-            buf.reserve(declared.unwrap_or(0).min(1 << 20).max(need));
+            // The declared length (checked above to fit the budget) is reserved at once: growing by doubling
+            // copied 7 MB more of an 8 MB body into fresh pages. Address space only: pages are touched as the
+            // bytes arrive, and the budget is taken as they do.
+            buf.reserve(declared.unwrap_or(0).max(need));
             buf.extend_from_slice(&f);
         }
         buf.extend_from_slice(&data);

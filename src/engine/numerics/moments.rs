@@ -33,20 +33,26 @@ impl Moments {
         // five times as much), and a block of BLOCK / LANES terms per lane loses at most (BLOCK / LANES) ulps of
         // the block's absolute sum. The blocks are then added with Neumaier's compensation, so n = 10^7 loses no
         // more than that. Measured against a fully compensated sum in the tests below.
+        // Each sum in an array of its own, and each group of LANES terms as an array: the compiler then keeps
+        // every sum's lanes in one vector register (with the lanes as one [[f64; LANES]; 5] indexed by an
+        // enumerate it did not: 2.4 times slower at 10^6, the same bits).
         for block in model.bernoulli.chunks(BLOCK) {
-            let mut lanes = [[0.0f64; LANES]; 5];
+            let [mut l0, mut l1, mut l2, mut l3, mut l4] = [[0.0f64; LANES]; 5];
             let mut quads = block.chunks_exact(LANES);
             for quad in &mut quads {
-                for (j, &p) in quad.iter().enumerate() {
+                let quad: &[f64; LANES] = quad.try_into().expect("chunks_exact gives LANES terms");
+                for j in 0..LANES {
+                    let p = quad[j];
                     let q = 1.0 - p;
                     let v = p * q;
-                    lanes[0][j] += p;
-                    lanes[1][j] += v;
-                    lanes[2][j] += v * (q - p);
-                    lanes[3][j] += v * (p * p + q * q);
-                    lanes[4][j] += p * p;
+                    l0[j] += p;
+                    l1[j] += v;
+                    l2[j] += v * (q - p);
+                    l3[j] += v * (p * p + q * q);
+                    l4[j] += p * p;
                 }
             }
+            let mut lanes = [l0, l1, l2, l3, l4];
             for &p in quads.remainder() {
                 let q = 1.0 - p;
                 let v = p * q;
@@ -154,6 +160,47 @@ mod tests {
     use super::*;
 
     /// The blocked sums against one compensated sum per term (the layout this replaced).
+    /// The lanes held as five arrays give the very bits of the lanes held as one array of five indexed term
+    /// by term (the form before, written out here as the reference), on books of every remainder.
+    #[test]
+    fn the_lanes_as_arrays_sum_as_before() {
+        fn reference(ps: &[f64]) -> [f64; 5] {
+            let mut acc = [Sum::default(), Sum::default(), Sum::default(), Sum::default(), Sum::default()];
+            for block in ps.chunks(BLOCK) {
+                let mut lanes = [[0.0f64; LANES]; 5];
+                for (i, &p) in block.iter().enumerate() {
+                    let j = if i < block.len() / LANES * LANES { i % LANES } else { 0 };
+                    let q = 1.0 - p;
+                    let v = p * q;
+                    lanes[0][j] += p;
+                    lanes[1][j] += v;
+                    lanes[2][j] += v * (q - p);
+                    lanes[3][j] += v * (p * p + q * q);
+                    lanes[4][j] += p * p;
+                }
+                for (a, l) in acc.iter_mut().zip(lanes.iter()) {
+                    a.add((l[0] + l[1]) + (l[2] + l[3]));
+                }
+            }
+            acc.map(|a| a.value())
+        }
+        let mut x = 0x9e37_79b9_7f4a_7c15u64;
+        for n in [1usize, 3, 1024, 1027, 5000, 100_001] {
+            let ps: Vec<f64> = (0..n)
+                .map(|_| {
+                    x ^= x << 13;
+                    x ^= x >> 7;
+                    x ^= x << 17;
+                    (x >> 11) as f64 / (1u64 << 53) as f64 * 0.999 + 1e-4
+                })
+                .collect();
+            let m = Moments::of(&Model::from_parts(&ps, &[], 0.0));
+            let [mean, var, m3, a3, p2] = reference(&ps);
+            let got = [m.mean, m.variance, m.third_central, m.third_abs_sum, m.sum_p_squared];
+            assert_eq!(got.map(f64::to_bits), [mean, var, m3, a3, p2].map(f64::to_bits), "n={n}");
+        }
+    }
+
     #[test]
     fn blocked_sums_match_compensated_sums() {
         let mut x = 0x2545_f491_4f6c_dd1du64;
