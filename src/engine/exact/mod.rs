@@ -9,6 +9,12 @@
 //! of order 1 / sd, so an absolute error there is a relative error of the answer, whether it is 1e-3 or 1e-4000;
 //! the logarithm is returned as well, since such values underflow f64.
 //!
+//! From 321 exposures, a book of counts takes the tilted law from its characteristic function
+//! (`characteristic`, docs/characteristic.md): power sums of the probabilities, a few hundred samples of the tilted
+//! generating function, one inverse FFT, in O(n M + N log N) with M about 14 terms at 10^6 exposures, and an
+//! error bound that does not grow with n (2e-14 to 4e-14 relative at z = 5 sd from 10^3 to 10^6). Where its series
+//! does not converge fast enough (probabilities near 1/2 or above, far tilts), and for smaller books, the tree:
+//!
 //! The tilted law is the product of its parts (`leaf`): Bernoulli exposures in blocks by direct recursion,
 //! binomial and Poisson parts from closed-form ratio recurrences. The parts are multiplied smallest-first
 //! (`convolve`), each product by direct convolution or FFT, whichever is cheaper, and each truncated to the
