@@ -8,6 +8,8 @@
 //!   - `tail`: P(S >= k) with k = ceil(mean + 5 sd), through `exact::evaluate`;
 //!   - `full`: the untilted law over its Bernstein window, through `exact::tilted(&model, 0.0)`;
 //!   - `phases` (diagnostic): one `tail` computation split into its stages, to see where the time goes;
+//!   - `compare`: the tilted law of the tail by the product tree and by the characteristic function,
+//!     alternated, medians of each, and the tail and bound each gives;
 //!   - `tightness`: here `PROBS_FILE` is fixtures/reference/tightness.json; for each case there (the "mod1000"
 //!     portfolios, n up to 10^6, P(S >= ceil(mean + 5 sd)) from python-flint at 256 bits) it prints the exact
 //!     method's value, observed relative error, rigorous relative bound and their ratio (docs/accuracy.md).
@@ -26,7 +28,7 @@ use tailtally::engine::{Side, Value};
 use tailtally::portfolio::Model;
 
 fn usage() -> ! {
-    eprintln!("usage: time_exact PROBS_FILE tail|full|phases [REPEATS=7]");
+    eprintln!("usage: time_exact PROBS_FILE tail|full|phases|compare [REPEATS=7]");
     std::process::exit(2);
 }
 
@@ -96,15 +98,24 @@ fn tightness(path: &str) {
         let elapsed = ms(start.elapsed());
         let observed = (v.value - p_ref).abs() / p_ref;
         let ratio = v.rel_err / observed.max(f64::EPSILON / 2.0);
+        // The same tail from the product tree at the same tilt, for the table's "tree" columns.
+        let mom = Moments::of(&model);
+        let t = cgf::solve(&model, &mom, k as f64, 0.05 * mom.sd().clamp(1.0, 10.0)).t.max(0.0);
+        let tree = exact::upper_tail_of(&exact::tilted_tree(&model, t), k);
+        let tree_obs = (tree.value - p_ref).abs() / p_ref;
         println!(
             "{{\"mode\":\"tightness\",\"n\":{n},\"k\":{k},\"p\":{},\"reference\":{},\"observed_rel\":{},\
-             \"rel_err_bound\":{},\"ratio\":{},\"ms\":{}}}",
+             \"rel_err_bound\":{},\"ratio\":{},\"ms\":{},\"tree_observed_rel\":{},\"tree_rel_err_bound\":{},\
+             \"tree_ratio\":{}}}",
             num(v.value),
             num(p_ref),
             num(observed),
             num(v.rel_err),
             num(ratio),
             num(elapsed),
+            num(tree_obs),
+            num(tree.rel_err),
+            num(tree.rel_err / tree_obs.max(f64::EPSILON / 2.0)),
         );
     }
 }
@@ -188,6 +199,39 @@ fn main() {
                 w.lo,
                 w.w.len(),
                 num(total),
+            );
+        }
+        "compare" => {
+            // The two constructions of the same tilted law, alternated at the tilt of the tail: the product tree
+            // (`exact::tilted_tree`) and the characteristic function (`characteristic::build`), medians of each,
+            // and the tail each gives with its rigorous bound.
+            let model = Model::from_parts(&probs, &[], 0.0);
+            let mom = Moments::of(&model);
+            let t = cgf::solve(&model, &mom, k as f64, 0.05 * mom.sd().clamp(1.0, 10.0)).t.max(0.0);
+            let (mut tt, mut tc) = (Vec::new(), Vec::new());
+            let (mut vt, mut vc) = (None, None);
+            for _ in 0..repeats {
+                let s = Instant::now();
+                let law = exact::tilted_tree(&model, t);
+                tt.push(ms(s.elapsed()));
+                vt = Some(exact::upper_tail_of(&law, k));
+                let s = Instant::now();
+                let law = exact::characteristic::build(&model, t);
+                tc.push(ms(s.elapsed()));
+                vc = law.map(|l| exact::upper_tail_of(&l, k));
+            }
+            let vt = vt.unwrap();
+            let (cf_p, cf_b) = vc.map_or((f64::NAN, f64::NAN), |v| (v.value, v.rel_err));
+            println!(
+                "{{\"mode\":\"compare\",\"n\":{n},\"k\":{k},\"t\":{},\"tree_median_ms\":{},\"cf_median_ms\":{},\
+                 \"tree_p\":{},\"tree_rel_err_bound\":{},\"cf_p\":{},\"cf_rel_err_bound\":{},\"repeats\":{repeats}}}",
+                num(t),
+                num(median(&mut tt)),
+                num(median(&mut tc)),
+                num(vt.value),
+                num(vt.rel_err),
+                num(cf_p),
+                num(cf_b),
             );
         }
         "phases" => {

@@ -40,31 +40,32 @@ pub fn transform_rel(m: u32) -> f64 {
 
 // ---------- twiddles ----------
 
-type Dd = (f64, f64);
+/// A double-double: hi + lo with |lo| <= ulp(hi) / 2.
+pub(crate) type Dd = (f64, f64);
 
-fn fast_two_sum(a: f64, b: f64) -> Dd {
+pub(crate) fn fast_two_sum(a: f64, b: f64) -> Dd {
     let s = a + b;
     (s, b - (s - a))
 }
 
-fn dd_add(a: Dd, b: Dd) -> Dd {
+pub(crate) fn dd_add(a: Dd, b: Dd) -> Dd {
     let (s, e) = two_sum(a.0, b.0);
     fast_two_sum(s, e + (a.1 + b.1))
 }
 
-fn dd_mul(a: Dd, b: Dd) -> Dd {
+pub(crate) fn dd_mul(a: Dd, b: Dd) -> Dd {
     let (p, e) = two_prod(a.0, b.0);
     fast_two_sum(p, e + (a.0 * b.1 + a.1 * b.0))
 }
 
-fn dd_div(a: Dd, d: f64) -> Dd {
+pub(crate) fn dd_div(a: Dd, d: f64) -> Dd {
     let q = a.0 / d;
     let (p, e) = two_prod(q, d);
     fast_two_sum(q, ((a.0 - p) - e + a.1) / d)
 }
 
 /// pi as a double-double: the nearest double and the nearest double to the rest (|pi - hi - lo| < 2^-106).
-const PI_DD: Dd = (std::f64::consts::PI, 1.224_646_799_147_353_2e-16);
+pub(crate) const PI_DD: Dd = (std::f64::consts::PI, 1.224_646_799_147_353_2e-16);
 
 /// cos and sin of 2 pi j / n as double-doubles, for n a power of two and 0 <= j <= n / 8 (angles up to pi/4).
 ///
@@ -267,8 +268,17 @@ fn fft_body(re: &mut [f64], im: &mut [f64], tw: &Table) {
     }
 }
 
-/// Forward DFT of (re, im) in natural order, in place (used by the tests).
-#[cfg(test)]
+/// Forward DFT y_k = sum_j x_j exp(-2 pi i j k / n) of (re, im) in natural order, in place, for n = 2^m >= 4:
+/// the same butterflies and twiddles as [`convolve`], so Theorem 24.2 holds with [`transform_rel`]`(m)`
+/// (the bit-reversal permutation is exact). Used by the characteristic-function construction.
+pub(crate) fn transform(re: &mut [f64], im: &mut [f64]) {
+    let n = re.len();
+    assert!(n >= 4 && n.is_power_of_two() && im.len() == n);
+    TABLE.with(|t| t.borrow_mut().ensure(n));
+    TABLE.with(|t| fft_in_place(re, im, &t.borrow()));
+}
+
+/// Forward DFT of (re, im) in natural order, in place.
 fn fft_in_place(re: &mut [f64], im: &mut [f64], tw: &Table) {
     let n = re.len();
     let bits = n.trailing_zeros();

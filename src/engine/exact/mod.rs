@@ -9,6 +9,12 @@
 //! of order 1 / sd, so an absolute error there is a relative error of the answer, whether it is 1e-3 or 1e-4000;
 //! the logarithm is returned as well, since such values underflow f64.
 //!
+//! From 321 exposures, a book of counts takes the tilted law from its characteristic function
+//! (`characteristic`, docs/characteristic.md): power sums of the probabilities, a few hundred samples of the tilted
+//! generating function, one inverse FFT, in O(n M + N log N) with M about 14 terms at 10^6 exposures, and an
+//! error bound that does not grow with n (2e-14 to 4e-14 relative at z = 5 sd from 10^3 to 10^6). Where its series
+//! does not converge fast enough (probabilities near 1/2 or above, far tilts), and for smaller books, the tree:
+//!
 //! The tilted law is the product of its parts (`leaf`): Bernoulli exposures in blocks by direct recursion,
 //! binomial and Poisson parts from closed-form ratio recurrences. The parts are multiplied smallest-first
 //! (`convolve`), each product by direct convolution or FFT, whichever is cheaper, and each truncated to the
@@ -19,6 +25,7 @@
 //! tilted probability and every product (relative, since all terms are non-negative), the FFT's bound
 //! (absolute, `fft`), the truncated mass (absolute), the rounding of K(t) and of the final tail sum.
 
+pub mod characteristic;
 pub mod convolve;
 pub mod fft;
 pub mod lattice;
@@ -29,7 +36,7 @@ pub mod window;
 
 use crate::engine::interrupt;
 use crate::engine::numerics::cgf::{self, TiltConsts};
-use crate::engine::numerics::float::{gamma, log1m_exp, up, U};
+use crate::engine::numerics::float::{gamma, log1m_exp, up, Sum, U};
 use crate::engine::numerics::moments::Moments;
 use crate::engine::vocabulary::{BoundKind::Rigorous, Estimate, MethodId, Prepared, Side, TailMethod, Value};
 use crate::portfolio::Model;
@@ -70,11 +77,21 @@ pub struct Tilted {
     pub var: f64,
 }
 
-/// Build the tilted law at t over its Bernstein window (support shifted by the certain exposures).
+/// Build the tilted law at t over its Bernstein window (support shifted by the certain exposures): by the
+/// characteristic function (`characteristic`) for books of counts from `characteristic::MIN_EXPOSURES`
+/// exposures where its series converges, by the product tree otherwise.
 pub fn tilted(model: &Model, t: f64) -> Tilted {
     if model.weighted() {
         return lattice::tilted(model, t);
     }
+    if let Some(law) = characteristic::tilted(model, t) {
+        return law;
+    }
+    tilted_tree(model, t)
+}
+
+/// The tilted law at t by the product tree of leaves (`leaf`, `convolve`), for books of counts.
+pub fn tilted_tree(model: &Model, t: f64) -> Tilted {
     let c = TiltConsts::new(t);
     let mut parts: Vec<Window> =
         Vec::with_capacity(model.bernoulli.len().div_ceil(leaf::BLOCK) + model.binomials.len() + 1);
@@ -244,6 +261,12 @@ pub(crate) fn solve_tilt(model: &Model, moments: &Moments, x: f64, dir: Dir) -> 
     }
 }
 
+/// P(S >= k) read from a tilted law built at t >= 0 (`tilted`, `tilted_tree`, `characteristic::build`): for
+/// benchmarks and cross-checks of the ways of building it.
+pub fn upper_tail_of(law: &Tilted, k: u64) -> Value {
+    tail_from(law, &Job { idx: 0, target: k, dir: Dir::Up, point: false, complement: false })
+}
+
 fn tail_from(law: &Tilted, job: &Job) -> Value {
     let w = &law.window;
     let (lo, hi) = (w.lo, w.hi());
@@ -298,15 +321,19 @@ fn tail_from(law: &Tilted, job: &Job) -> Value {
 }
 
 /// The weighted sum over the window from x outwards in `dir`: sum_j w_j rho^|j - x| h(j), with the
-/// distance-weighted sum sum_j v_j |j - x| (for the rounding bound) and the number of terms. The weights
-/// rho^d <= 1 are formed by repeated products from x, so a weight d steps out carries at most 2 d roundings;
-/// the walk stops where the weight underflows to 0.
+/// distance-weighted sum sum_j v_j |j - x| (for the rounding bound) and the roundings of the summation
+/// that [`finish`] counts (its `terms`). The weights rho^d <= 1 are formed by repeated products from x, so a
+/// weight d steps out carries at most 2 d roundings; the walk stops where the weight underflows to 0. The terms
+/// are non-negative and summed by Neumaier's compensated summation, within 2 U + 2 gamma(4 n + 4) U of their
+/// exact sum (`float::Sum::error_bound`), which gamma(3) covers for any n below 10^15: so 2 is returned as
+/// the count (0 when nothing was added). A plain sum of n terms would need gamma(n + 1), 4.4e-13 for the
+/// 4,000 terms of a tail at 10^6 exposures, more than the rest of the bound there.
 fn walk(w: &Window, x: u64, dir: Dir, rho: f64, h: impl Fn(u64) -> f64) -> (f64, f64, usize) {
     let (lo, hi) = (w.lo, w.hi());
-    let (mut sum, mut dsum, mut terms) = (0.0f64, 0.0f64, 0usize);
+    let (mut sum, mut dsum, mut terms) = (Sum::default(), 0.0f64, 0usize);
     let mut add = |j: u64, wt: f64, d: f64| {
         let v = w.w[(j - lo) as usize] * wt * h(j);
-        sum += v;
+        sum.add(v);
         dsum += v * d;
         terms += 1;
     };
@@ -341,7 +368,8 @@ fn walk(w: &Window, x: u64, dir: Dir, rho: f64, h: impl Fn(u64) -> f64) -> (f64,
             }
         }
     }
-    (sum, dsum, terms)
+    debug_assert!(terms < 1 << 50);
+    (sum.value(), dsum, terms.min(2))
 }
 
 /// ln P = K(t) - t x + ln T, and its error bound.
