@@ -3,7 +3,8 @@
 //!
 //! The error analysis in this crate follows the standard model of Higham, "Accuracy and Stability of Numerical
 //! Algorithms" (2nd ed., 2002): fl(x op y) = (x op y)(1 + d), |d| <= U. The elementary functions of the platform
-//! libm (exp, ln, ln_1p, exp_m1) are assumed accurate to 1 ulp, which glibc documents for x86_64.
+//! libm (exp, ln, ln_1p, exp_m1, and sin and cos for the characteristic function's samples) are assumed
+//! accurate to 1 ulp, which glibc documents for x86_64.
 
 /// Unit roundoff of f64 (half an ulp of 1).
 pub const U: f64 = f64::EPSILON / 2.0;
