@@ -509,7 +509,7 @@ impl Spectrum {
                 let dp =
                     (DD_TAIL * (aden + DD_TAIL) + anum * DD_TAIL + (64.0 * U * U + 2.0 * DD_TRIG) * anum * aden) * 1.01;
                 let dm = 2.0 * (aden + DD_TAIL) * DD_TAIL + 32.0 * U * U * m.0;
-                if !(dm < 0.25 * m.0) {
+                if dm.is_nan() || dm >= 0.25 * m.0 {
                     return None;
                 }
                 (p, m, dm / m.0, dp)
