@@ -21,7 +21,9 @@
 //! sample (errors of the power sums, the series' truncation, double-double and double roundings, libm's exp,
 //! sin and cos at 1 ulp), Parseval's identity turns them into a 2-norm bound on the window, and Higham's
 //! Theorem 24.2 bounds the FFT (`fft::transform`, `fft::transform_rel`). The window carries no relative error,
-//! only absolute ones (`rel` = 0), which the tail sums weigh by their 2-norm (`exact::tail_from`).
+//! only absolute ones (`rel` = 0), which the tail sums weigh by their 2-norm (`exact::tail_from`). A tail or a
+//! point inside the window is read from the samples instead (`Spectrum::tail`: a geometric sum per sample, no
+//! inverse transform, so no FFT constant in its bound).
 
 use super::fft::{self, dd_add, dd_cos_sin, dd_div, dd_mul, Dd, PI_DD};
 use super::window::{Window, TRUNC_LN};
@@ -344,7 +346,7 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
     }
     let sums = power_sums(model, m_top + 1);
     if interrupt::requested() {
-        return Some(Tilted { t, var: 0.0, window: Window::point(), scale: Scale::default() });
+        return Some(Tilted { t, var: 0.0, window: Window::point(), scale: Scale::default(), spectrum: None });
     }
     let scale = scale(model, &sums, e, z0, m_top, p_max);
     let (mut re, mut im) = (vec![0.0f64; n], vec![0.0f64; n]);
@@ -352,6 +354,8 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
     // Sum of squares of the per-sample error bounds, and of the computed samples.
     let (mut err2, mut norm2) = (0.0f64, 1.0f64);
     let mut last = 0usize;
+    // The evaluated samples r = 0 ..= last and their error bounds, kept for `Spectrum::tail`.
+    let (mut kept, mut kept_err) = (vec![(1.0, 0.0)], vec![0.0]);
     for r in 1..=n / 2 {
         let (c, sn) = cos_sin(r as u64, n as u64);
         let om = dd_sub((1.0, 0.0), c);
@@ -370,6 +374,8 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
         }
         norm2 += mult * (pr * pr + pi * pi);
         err2 += mult * smp.err * smp.err;
+        kept.push((pr, pi));
+        kept_err.push(smp.err);
         last = r;
     }
     // Samples not evaluated: |phi| <= e^-CUT each.
@@ -400,7 +406,141 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
     window.lo += shift;
     window.mean += shift as f64;
     window.max = window.max.map(|mx| mx + shift);
-    Some(Tilted { t, var, window, scale })
+    let spectrum = Spectrum { n: n as u64, lo: klo + shift, len: len as u64, psi: kept, err: kept_err };
+    Some(Tilted { t, var, window, scale, spectrum: Some(Box::new(spectrum)) })
+}
+
+/// The samples psi_r = phi(w_r) w_r^(-L), r = 0 ..= R (the others are below e^-CUT in modulus), with their
+/// error bounds, of the law on the window [lo, lo + len) (lo = L plus the certain exposures, N = `n`).
+pub struct Spectrum {
+    n: u64,
+    lo: u64,
+    len: u64,
+    psi: Vec<(f64, f64)>,
+    err: Vec<f64>,
+}
+
+/// Absolute error of every double-double quantity in `Spectrum::tail` before its last rounding (at most
+/// 2^-95 for rho^D, 2^-96 per part for the unit roots, 16 U^2 per double-double operation on moduli <= 2).
+const DD_TAIL: f64 = 1.0 / (1u128 << 90) as f64;
+
+/// e^(-2 pi i j / n) as double-doubles (0 <= j < n), within 2^-96 per part (`cos_sin`).
+fn unit(j: u64, n: u64) -> (Dd, Dd) {
+    if j <= n / 2 {
+        let (c, s) = cos_sin(j, n);
+        (c, neg(s))
+    } else {
+        cos_sin(n - j, n)
+    }
+}
+
+fn cmul(a: (Dd, Dd), b: (Dd, Dd)) -> (Dd, Dd) {
+    (dd_sub(dd_mul(a.0, b.0), dd_mul(a.1, b.1)), dd_add(dd_mul(a.0, b.1), dd_mul(a.1, b.0)))
+}
+
+/// a^d for d >= 1 by binary powering in double-double (at most 2 log2 d products, each within 16 U^2).
+fn dd_powi(a: Dd, mut d: u64) -> Dd {
+    let (mut acc, mut b) = ((1.0, 0.0), a);
+    while d > 0 {
+        if d & 1 == 1 {
+            acc = dd_mul(acc, b);
+        }
+        b = dd_mul(b, b);
+        d >>= 1;
+    }
+    acc
+}
+
+impl Spectrum {
+    /// The weighted tail T = sum_j f_j rho^|j - x| over j from x to the window's end (`upper`) or down to its start,
+    /// or f_x alone (`point`), rho = e^(-|t|), read from the samples without the inverse transform
+    /// (docs/characteristic.md, "The tail from the samples"): T = (1/N) sum_r psi_r c_r with c_r a geometric sum.
+    /// Returns (T^, rel, abs) for `exact::finish` (T^ within rel T + abs + 3 U T^ of the tail of the exact law,
+    /// the weights being e^(-|t| d) exactly), or None where x is outside the window or a step's condition fails
+    /// (the window is then summed instead).
+    pub(crate) fn tail(&self, x: u64, upper: bool, point: bool, t: f64) -> Option<(f64, f64, f64)> {
+        let n = self.n;
+        if x < self.lo || x >= self.lo + self.len || t.is_nan() || t.abs() > 700.0 {
+            return None;
+        }
+        let a = x - self.lo;
+        // Terms d = 0 .. D - 1 of the geometric sum.
+        let dcount = if point {
+            1
+        } else if upper {
+            self.len - a
+        } else {
+            a + 1
+        };
+        // The weights are the powers of this double-double rho' (within 2^-96 of e^(-|t|), relative): rho'^d is
+        // within (1 + 2^-96)^d - 1 <= 1.01 d 2^-96 of e^(-|t| d), relative, d < N.
+        let rho = exp_dd(-t.abs());
+        let rel = 1.01 * n as f64 * DD_TRIG;
+        let rho_d = dd_powi(rho, dcount);
+        let one_rho = rho.0 == 1.0 && rho.1 == 0.0;
+        let (mut acc, mut acc_err, mut err) = ((0.0, 0.0), 0.0f64, 0.0f64);
+        for (r, (&(pr, pi), &pe)) in self.psi.iter().zip(&self.err).enumerate() {
+            let r = r as u64;
+            // c_r = w^(-a) (1 - q^D) / (1 - q), q = rho w^(-1) (up) or rho w (down): p = w^(-a) (1 - q^D) conj(1 - q)
+            // and m = |1 - q|^2 in double-double, c = p / m with both rounded to doubles.
+            let u = unit((r as u128 * a as u128 % n as u128) as u64, n);
+            let (p, m, dm_rel, dp) = if dcount == 1 {
+                (u, (1.0, 0.0), 0.0, 2.0 * DD_TRIG)
+            } else if r == 0 && one_rho {
+                ((((dcount as f64), 0.0), (0.0, 0.0)), (1.0, 0.0), 0.0, 0.0)
+            } else {
+                let (jq, jqd) = if upper {
+                    (r, (r as u128 * dcount as u128 % n as u128) as u64)
+                } else {
+                    ((n - r) % n, ((n as u128 - r as u128 * dcount as u128 % n as u128) % n as u128) as u64)
+                };
+                let uq = unit(jq, n);
+                let q = (dd_mul(rho, uq.0), dd_mul(rho, uq.1));
+                let uqd = unit(jqd, n);
+                let qd = (dd_mul(rho_d, uqd.0), dd_mul(rho_d, uqd.1));
+                let num = (dd_sub((1.0, 0.0), qd.0), neg(qd.1));
+                let den = (dd_sub((1.0, 0.0), q.0), neg(q.1));
+                let p = cmul(u, cmul(num, (den.0, neg(den.1))));
+                let m = dd_add(dd_mul(den.0, den.0), dd_mul(den.1, den.1));
+                let anum = (dd_abs(num.0).powi(2) + dd_abs(num.1).powi(2)).sqrt() * (1.0 + 3.0 * U) + DD_TAIL;
+                let aden = (dd_abs(den.0).powi(2) + dd_abs(den.1).powi(2)).sqrt() * (1.0 + 3.0 * U);
+                // |num^ - num|, |den^ - den| <= DD_TAIL each; the products add 64 U^2 of |num| |den|, the unit
+                // root 2^-95 of it; m errs by 2 |den| DD_TAIL + 32 U^2 m.
+                let dp =
+                    (DD_TAIL * (aden + DD_TAIL) + anum * DD_TAIL + (64.0 * U * U + 2.0 * DD_TRIG) * anum * aden) * 1.01;
+                let dm = 2.0 * (aden + DD_TAIL) * DD_TAIL + 32.0 * U * U * m.0;
+                if dm.is_nan() || dm >= 0.25 * m.0 {
+                    return None;
+                }
+                (p, m, dm / m.0, dp)
+            };
+            let (pd, md) = ((p.0 .0, p.1 .0), m.0);
+            let c = (pd.0 / md, pd.1 / md);
+            let ac = norm(c);
+            // |c^ - c|: rounding p and m to doubles and the division (3 U per part, relative), then the
+            // double-double errors of p (absolute, over m) and of m (relative).
+            let ec = up((3.01 * U * ac + dp / (md * (1.0 - dm_rel)) + 2.01 * dm_rel * ac) * 1.01);
+            let mult = if r == 0 || 2 * r == n { 1.0 } else { 2.0 };
+            let term = mult * (pr * c.0 - pi * c.1);
+            let apsi = norm((pr, pi));
+            // The sample's error times |c|, the sample times c's error, the products' and difference's roundings.
+            err += mult * (pe * (ac + ec) + apsi * ec + 2.02 * U * (pr * c.0).abs().max((pi * c.1).abs()) * 2.0);
+            acc_err += 3.0 * U * U * (dd_abs(acc) + term.abs());
+            acc = dd_add(acc, (term, 0.0));
+        }
+        // The samples not evaluated: |psi_r| <= e^-CUT and |c_r| <= D, N - 2 R - 1 of them.
+        let skipped = (n + 1).saturating_sub(2 * self.psi.len() as u64) as f64;
+        err += skipped * (-CUT).exp() * dcount as f64;
+        let inv = 1.0 / n as f64;
+        let sum = (acc.0 + acc.1) * inv;
+        // The aliased mass and the mass beyond the window, as in `build`; gradual underflow of the scaling.
+        let tau = 4.0 * (-TRUNC_LN).exp() * (1.0 + 1e-12);
+        let abs = up((err + acc_err) * inv * (1.0 + 1e-9)) + tau + 4.0 * f64::from_bits(1);
+        if !sum.is_finite() || sum <= 0.0 {
+            return None;
+        }
+        Some((sum, rel, abs))
+    }
 }
 
 /// An upper bound on |x| for a complex x held as doubles of moderate size: sqrt(fl(a^2 + b^2)) is within

@@ -69,7 +69,7 @@ pub fn round_tilt(t: f64) -> f64 {
 /// The tilted law of a model with loss units, at t (rounded by [`round_tilt`]).
 pub fn tilted(model: &Model, t: f64) -> Tilted {
     let t = round_tilt(t);
-    let stopped = |t| Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default() };
+    let stopped = |t| Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default(), spectrum: None };
     let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1);
     // Exposures in blocks of similar units (sorted by units, ties in their given order): a block of small
     // units spans few steps and its truncation is placed for its own largest step (`Part`).
@@ -117,7 +117,7 @@ pub fn tilted(model: &Model, t: f64) -> Tilted {
     window.lo += model.shift;
     window.mean += model.shift as f64;
     window.max = window.max.map(|m| m + model.shift);
-    Tilted { t, var: window.var, window, scale: cgf::scale(model, t) }
+    Tilted { t, var: window.var, window, scale: cgf::scale(model, t), spectrum: None }
 }
 
 /// A factor of the tilted law with what places its truncations: `step`, the largest number of lattice steps

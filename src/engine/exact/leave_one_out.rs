@@ -194,7 +194,7 @@ pub fn contributions(model: &Model, moments: &Moments, k: u64) -> Vec<Contributi
             s.phi = sc.phi - ti.phi;
             s.phi_err = sc.phi_err + 8.0 * U * ti.phi.abs() + U * s.phi.abs();
             s.b = sc.b - ti.b as u8 as f64;
-            let tl = Tilted { t, window: Window::point(), scale: s, var: 0.0 };
+            let tl = Tilted { t, window: Window::point(), scale: s, var: 0.0, spectrum: None };
             let (mut point, mut tail) = (0.0f64, 0.0f64);
             for (mm, &hv) in h.iter().enumerate() {
                 if hv == 0.0 {

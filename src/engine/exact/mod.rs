@@ -75,6 +75,9 @@ pub struct Tilted {
     pub window: Window,
     pub scale: cgf::Scale,
     pub var: f64,
+    /// The samples the window came from, when built by the characteristic function: tails are read from them
+    /// (`characteristic::Spectrum::tail`) without the inverse FFT's error.
+    pub spectrum: Option<Box<characteristic::Spectrum>>,
 }
 
 /// Build the tilted law at t over its Bernstein window (support shifted by the certain exposures): by the
@@ -100,7 +103,7 @@ pub fn tilted_tree(model: &Model, t: f64) -> Tilted {
     for (i, ch) in model.bernoulli.chunks(leaf::BLOCK).enumerate() {
         // A stopped computation's result is thrown away: a point mass keeps what follows well defined.
         if i % 1024 == 0 && interrupt::requested() {
-            return Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default() };
+            return Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default(), spectrum: None };
         }
         let (part, at_odds) = leaf::bernoulli_block_odds(ch, &c);
         parts.push(part);
@@ -108,7 +111,7 @@ pub fn tilted_tree(model: &Model, t: f64) -> Tilted {
     }
     for (i, b) in model.binomials.iter().enumerate() {
         if i % 1024 == 0 && interrupt::requested() {
-            return Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default() };
+            return Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default(), spectrum: None };
         }
         parts.push(leaf::binomial(b.size, b.p, &c));
     }
@@ -120,7 +123,7 @@ pub fn tilted_tree(model: &Model, t: f64) -> Tilted {
     window.lo += model.shift;
     window.mean += model.shift as f64;
     window.max = window.max.map(|m| m + model.shift);
-    Tilted { t, var: window.var, window, scale: cgf::scale(model, t) }
+    Tilted { t, var: window.var, window, scale: cgf::scale(model, t), spectrum: None }
 }
 
 /// The exact method as a [`TailMethod`].
@@ -275,6 +278,11 @@ fn tail_from(law: &Tilted, job: &Job) -> Value {
     // Weights exp(-t (j - x)) <= 1 on the summed side, by repeated products from j = x outwards; a weight d
     // steps out carries at most 2 d roundings, hence the mean distance dbar in the bound.
     let rho = (-t.abs()).exp();
+    if let Some(spec) = law.spectrum.as_deref() {
+        if let Some((sum, rel, abs)) = spec.tail(x, job.dir == Dir::Up, job.point, t) {
+            return complement_of(finish(law, x, sum, 0.0, 0, rel, abs), job.complement);
+        }
+    }
     let (sum, dsum, terms) = if job.point {
         if (lo..=hi).contains(&x) {
             let v = w.w[(x - lo) as usize];
@@ -303,8 +311,12 @@ fn tail_from(law: &Tilted, job: &Job) -> Value {
         f64::INFINITY
     };
     let abs = w.abs.min(w.inf * weights).min(w.l2 * weights2);
-    let tail = finish(law, x, sum, dsum, terms, w.rel, abs);
-    if !job.complement {
+    complement_of(finish(law, x, sum, dsum, terms, w.rel, abs), job.complement)
+}
+
+/// The tail itself, or 1 minus it for the other side.
+fn complement_of(tail: Value, complement: bool) -> Value {
+    if !complement {
         return tail;
     }
     // 1 - P where P < 1/2-ish: the absolute error carries over and the logarithm comes from log1m_exp.
