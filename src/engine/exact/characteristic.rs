@@ -34,7 +34,7 @@ use crate::engine::numerics::float::{gamma, two_prod, two_sum, up, U};
 use crate::portfolio::Model;
 
 /// Samples where V (1 - cos theta) exceeds this are set to 0: their modulus is below e^-CUT.
-const CUT: f64 = 90.0;
+pub(crate) const CUT: f64 = 90.0;
 /// Largest p_max |z| at which the series is used (the ratio of its geometric tail).
 pub const RATIO_MAX: f64 = 0.75;
 /// Most terms of the series; more means the tree is the better tool.
@@ -81,7 +81,7 @@ pub(crate) fn exp_dd(t: f64) -> Dd {
 
 /// cos and sin of 2 pi j / n as double-doubles for n a power of two >= 8 and 0 <= j <= n / 2, within 2^-96
 /// each: `dd_cos_sin` on the first octant and the exact symmetries of the others.
-fn cos_sin(j: u64, n: u64) -> (Dd, Dd) {
+pub(crate) fn cos_sin(j: u64, n: u64) -> (Dd, Dd) {
     let (q, h) = (n / 8, n / 4);
     if j <= q {
         dd_cos_sin(j, n)
@@ -406,18 +406,22 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
     window.lo += shift;
     window.mean += shift as f64;
     window.max = window.max.map(|mx| mx + shift);
-    let spectrum = Spectrum { n: n as u64, lo: klo + shift, len: len as u64, psi: kept, err: kept_err };
+    let r = (0..kept.len() as u64).collect();
+    let spectrum = Spectrum { n: n as u64, lo: klo + shift, len: len as u64, r, psi: kept, err: kept_err };
     Some(Tilted { t, var, window, scale, spectrum: Some(Box::new(spectrum)) })
 }
 
 /// The samples psi_r = phi(w_r) w_r^(-L), r = 0 ..= R (the others are below e^-CUT in modulus), with their
 /// error bounds, of the law on the window [lo, lo + len) (lo = L plus the certain exposures, N = `n`).
 pub struct Spectrum {
-    n: u64,
-    lo: u64,
-    len: u64,
-    psi: Vec<(f64, f64)>,
-    err: Vec<f64>,
+    pub(crate) n: u64,
+    pub(crate) lo: u64,
+    pub(crate) len: u64,
+    /// The sample indices r of `psi` (0 first, each at most N / 2, increasing); every other sample in 0..=N/2
+    /// is below e^-CUT in modulus.
+    pub(crate) r: Vec<u64>,
+    pub(crate) psi: Vec<(f64, f64)>,
+    pub(crate) err: Vec<f64>,
 }
 
 /// Absolute error of every double-double quantity in `Spectrum::tail` before its last rounding (at most
@@ -479,8 +483,8 @@ impl Spectrum {
         let rho_d = dd_powi(rho, dcount);
         let one_rho = rho.0 == 1.0 && rho.1 == 0.0;
         let (mut acc, mut acc_err, mut err) = ((0.0, 0.0), 0.0f64, 0.0f64);
-        for (r, (&(pr, pi), &pe)) in self.psi.iter().zip(&self.err).enumerate() {
-            let r = r as u64;
+        let mut kept_mult = 0u64;
+        for (&r, (&(pr, pi), &pe)) in self.r.iter().zip(self.psi.iter().zip(&self.err)) {
             // c_r = w^(-a) (1 - q^D) / (1 - q), q = rho w^(-1) (up) or rho w (down): p = w^(-a) (1 - q^D) conj(1 - q)
             // and m = |1 - q|^2 in double-double, c = p / m with both rounded to doubles.
             let u = unit((r as u128 * a as u128 % n as u128) as u64, n);
@@ -521,6 +525,7 @@ impl Spectrum {
             // double-double errors of p (absolute, over m) and of m (relative).
             let ec = up((3.01 * U * ac + dp / (md * (1.0 - dm_rel)) + 2.01 * dm_rel * ac) * 1.01);
             let mult = if r == 0 || 2 * r == n { 1.0 } else { 2.0 };
+            kept_mult += mult as u64;
             let term = mult * (pr * c.0 - pi * c.1);
             let apsi = norm((pr, pi));
             // The sample's error times |c|, the sample times c's error, the products' and difference's roundings.
@@ -528,8 +533,8 @@ impl Spectrum {
             acc_err += 3.0 * U * U * (dd_abs(acc) + term.abs());
             acc = dd_add(acc, (term, 0.0));
         }
-        // The samples not evaluated: |psi_r| <= e^-CUT and |c_r| <= D, N - 2 R - 1 of them.
-        let skipped = (n + 1).saturating_sub(2 * self.psi.len() as u64) as f64;
+        // The samples not evaluated: |psi_r| <= e^-CUT and |c_r| <= D each (those of r and N - r counted apart).
+        let skipped = n.saturating_sub(kept_mult) as f64;
         err += skipped * (-CUT).exp() * dcount as f64;
         let inv = 1.0 / n as f64;
         let sum = (acc.0 + acc.1) * inv;

@@ -54,7 +54,7 @@ const BLOCK: usize = 64;
 
 /// Lattices up to this many steps wide are multiplied whole by direct convolution (at most about 4096^2
 /// multiply-adds in all, smallest first).
-const KEEP_WHOLE: u64 = 4096;
+pub(crate) const KEEP_WHOLE: u64 = 4096;
 
 /// t rounded to 21 significant bits, so that t u is exact for every u < 2^30 (see the module note).
 pub fn round_tilt(t: f64) -> f64 {
@@ -69,6 +69,9 @@ pub fn round_tilt(t: f64) -> f64 {
 /// The tilted law of a model with loss units, at t (rounded by [`round_tilt`]).
 pub fn tilted(model: &Model, t: f64) -> Tilted {
     let t = round_tilt(t);
+    if let Some(law) = super::characteristic_lattice::tilted(model, t) {
+        return law;
+    }
     let stopped = |t| Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default(), spectrum: None };
     let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1);
     // Exposures in blocks of similar units (sorted by units, ties in their given order): a block of small
@@ -194,7 +197,7 @@ fn bennett_radius(v: f64, b: f64) -> f64 {
 /// The lattice points [lo, hi] a product keeps: outside them the exact product of the parts holds at most
 /// exp(-TRUNC_LN) on each side ([`Part`]). Margins as in `Window::keep_range`: 1e-9 relative and one step
 /// absorb the rounding of the mean and the variance.
-fn keep_range(mean: f64, v: f64, m2: f64, step: f64, min: u64, max: Option<u64>) -> (u64, u64) {
+pub(crate) fn keep_range(mean: f64, v: f64, m2: f64, step: f64, min: u64, max: Option<u64>) -> (u64, u64) {
     let up = bennett_radius(v, step) * (1.0 + 1e-9) + 1.0;
     let down =
         Window::bernstein_radius_step(v, step).min((2.0 * window::TRUNC_LN * m2.max(v)).sqrt()) * (1.0 + 1e-9) + 1.0;

@@ -26,6 +26,7 @@
 //! (absolute, `fft`), the truncated mass (absolute), the rounding of K(t) and of the final tail sum.
 
 pub mod characteristic;
+pub mod characteristic_lattice;
 pub mod convolve;
 pub mod fft;
 pub mod lattice;
