@@ -67,11 +67,19 @@ pub fn round_tilt(t: f64) -> f64 {
 }
 
 /// The tilted law of a model with loss units, at t (rounded by [`round_tilt`]).
+/// Below `characteristic::MIN_EXPOSURES` random exposures, on narrow lattices and where the samples would be
+/// too many, by the product tree ([`tilted_tree`]); otherwise from the characteristic function.
 pub fn tilted(model: &Model, t: f64) -> Tilted {
     let t = round_tilt(t);
     if let Some(law) = super::characteristic_lattice::tilted(model, t) {
         return law;
     }
+    tilted_tree(model, t)
+}
+
+/// The tilted law of a model with loss units at t (rounded by [`round_tilt`]) by the product tree.
+pub fn tilted_tree(model: &Model, t: f64) -> Tilted {
+    let t = round_tilt(t);
     let stopped = |t| Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default(), spectrum: None };
     let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1);
     // Exposures in blocks of similar units (sorted by units, ties in their given order): a block of small
