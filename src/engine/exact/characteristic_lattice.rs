@@ -277,7 +277,8 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
         bk.mults += mf + 1.0;
     }
     let mut lam_tot = 0.0f64;
-    let sources = (model.poisson > 0.0).then_some((1u64, model.poisson)).into_iter().chain(model.scaled_poisson.iter().copied());
+    let sources =
+        (model.poisson > 0.0).then_some((1u64, model.poisson)).into_iter().chain(model.scaled_poisson.iter().copied());
     for (s, lam) in sources {
         // t s is exact (t has 21 significant bits, s < 2^30); exp at 1 ulp and one product: 3.01 U relative.
         let l = lam * (t * s as f64).exp();
@@ -375,8 +376,7 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
     window.lo += shift;
     window.mean += shift as f64;
     window.max = window.max.map(|mx| mx + shift);
-    let spectrum =
-        Spectrum { n: n as u64, lo: klo + shift, len: len_keep as u64, r: kept_r, psi: kept, err: kept_err };
+    let spectrum = Spectrum { n: n as u64, lo: klo + shift, len: len_keep as u64, r: kept_r, psi: kept, err: kept_err };
     Some(Tilted { t, var, window, scale, spectrum: Some(Box::new(spectrum)) })
 }
 
