@@ -7,12 +7,17 @@
 //! fixed seed), n = 10^4 and 10^5. Figures: the exact P(S >= k) at k = mean + 5 sd (in units), and the
 //! untilted law over its whole Bernstein window (the central range holding all but about 1e-32 of the mass:
 //! what a distribution over the 1e-12 central range needs at most). Prints medians and minimums in ms, the
-//! lattice width and the widest window. Timings depend on the machine's load: say so beside any you quote.
+//! lattice width and the widest window. For the books in units it also times the two constructions of the
+//! tilted law side by side in the same run, at the tail's tilt: the characteristic function
+//! (`lattice::tilted`, which the service uses) and the product tree (`lattice::tilted_tree`), each with the tail
+//! read from it, and prints both tails and bounds. Timings depend on the machine's load: say so beside any you
+//! quote.
 
 #[path = "common/units_book.rs"]
 mod units_book;
 use std::time::Instant;
 use tailtally::engine::exact::{self, lattice};
+use tailtally::engine::numerics::cgf;
 use tailtally::engine::numerics::moments::Moments;
 use tailtally::engine::Side;
 use tailtally::portfolio::Model;
@@ -75,6 +80,23 @@ fn main() {
                 "{{\"n\": {n}, \"book\": \"{name}\", \"lattice_width\": {}, \"threshold\": {k_units}, \"p\": {p:e}, \"rel_bound\": {bound:.3e}, \"tail_ms_median\": {tail_med:.1}, \"tail_cpu_ms_median\": {tail_cpu:.1}, \"tail_ms_min\": {tail_min:.1}, \"tail_window\": {tail_w}{full}}}",
                 m.lattice_width()
             );
+            if name == "units" {
+                // The two constructions at the tail's tilt, alternately, in this run.
+                let mo = Moments::of(m);
+                let t = cgf::solve(m, &mo, j as f64, 0.05 * mo.sd().min(10.0)).t.max(0.0);
+                let mut line = format!("{{\"n\": {n}, \"construction_at_tilt\": {t:e}");
+                for (label, tree) in [("characteristic", false), ("tree", true)] {
+                    let (mut v, mut b) = (0.0, 0.0);
+                    let (med, cpu, min, _) = time(repeats, || {
+                        let law = if tree { lattice::tilted_tree(m, t) } else { lattice::tilted(m, t) };
+                        let val = exact::upper_tail_of(&law, j);
+                        (v, b) = (val.value, val.rel_err);
+                        law.window.w.len()
+                    });
+                    line += &format!(", \"{label}\": {{\"p\": {v:e}, \"rel_bound\": {b:.3e}, \"ms_median\": {med:.1}, \"cpu_ms_median\": {cpu:.1}, \"ms_min\": {min:.1}}}");
+                }
+                println!("{line}}}");
+            }
         }
     }
 }

@@ -13,7 +13,10 @@
 //! (`characteristic`, docs/characteristic.md): power sums of the probabilities, a few hundred samples of the tilted
 //! generating function, one inverse FFT, in O(n M + N log N) with M about 14 terms at 10^6 exposures, and an
 //! error bound that does not grow with n (2e-14 to 4e-14 relative at z = 5 sd from 10^3 to 10^6). Where its series
-//! does not converge fast enough (probabilities near 1/2 or above, far tilts), and for smaller books, the tree:
+//! does not converge fast enough (probabilities near 1/2 or above, far tilts), and for smaller books, the tree.
+//! Books in units (`lattice`) of as many exposures on lattices wider than 4,096 steps take it from their
+//! characteristic function as well (`characteristic_lattice`): about a hundred samples, each a product over the
+//! exposures, certified by a grid bound on |phi| for the rest. Otherwise the tree:
 //!
 //! The tilted law is the product of its parts (`leaf`): Bernoulli exposures in blocks by direct recursion,
 //! binomial and Poisson parts from closed-form ratio recurrences. The parts are multiplied smallest-first
