@@ -202,7 +202,8 @@ impl Contributions {
     }
 
     /// The figures of an independent book in units (`leave_one_out::contributions_in_units`): the exact law
-    /// without each distinct (p_i, u_i), so the work budget is checked again here with their number.
+    /// without each distinct (p_i, u_i), or for big books on wide lattices one law's samples divided by each
+    /// exposure's factor, so the work budget is checked again here with what that costs.
     /// Impossible and certain exposures are not in the model: S without one is S, or S - u_i.
     #[allow(clippy::too_many_arguments)]
     fn in_units(
@@ -214,10 +215,22 @@ impl Contributions {
         moments: &crate::engine::numerics::moments::Moments,
         ctx: &Ctx,
     ) -> Result<ContributionsResponse, Error> {
-        let classes = leave_one_out::classes_in_units(model) as f64;
-        scenario::check_work(model, EVALUATIONS + classes, if stress.is_some() { 2.0 } else { 1.0 }, ctx.limits)?;
         let k = req.threshold;
-        let per = leave_one_out::contributions_in_units(model, k);
+        let factor = if stress.is_some() { 2.0 } else { 1.0 };
+        let spectral = if leave_one_out::spectrum_may_answer(model, k) {
+            scenario::check_work(model, EVALUATIONS + 4.0, factor, ctx.limits)?;
+            leave_one_out::contributions_in_units_spectrum(model, k)
+        } else {
+            None
+        };
+        let per = match spectral {
+            Some(per) => per,
+            None => {
+                let classes = leave_one_out::classes_in_units(model) as f64;
+                scenario::check_work(model, EVALUATIONS + classes, factor, ctx.limits)?;
+                leave_one_out::contributions_in_units_by_class(model, k)
+            }
+        };
         ctx.cancel.check()?;
         let units = listed_units(&req.portfolio);
         let tail = leave_one_out::upper_in_units(model, moments, &[k])[0];

@@ -463,18 +463,25 @@ impl Spectrum {
     /// the weights being e^(-|t| d) exactly), or None where x is outside the window or a step's condition fails
     /// (the window is then summed instead).
     pub(crate) fn tail(&self, x: u64, upper: bool, point: bool, t: f64) -> Option<(f64, f64, f64)> {
+        let w = self.weights(x, upper, point.then_some(1), t)?;
+        self.apply(&w, self.psi.iter().copied().zip(self.err.iter().copied()), 1.0)
+    }
+
+    /// The weights c_r of [`Spectrum::tail`] for the sum over `count` terms from x (or to the window's end or
+    /// start when None), each with its error bound, or None where x or the last term is outside the window or a
+    /// step's condition fails.
+    pub(crate) fn weights(&self, x: u64, upper: bool, count: Option<u64>, t: f64) -> Option<Weights> {
         let n = self.n;
         if x < self.lo || x >= self.lo + self.len || t.is_nan() || t.abs() > 700.0 {
             return None;
         }
         let a = x - self.lo;
         // Terms d = 0 .. D - 1 of the geometric sum.
-        let dcount = if point {
-            1
-        } else if upper {
-            self.len - a
-        } else {
-            a + 1
+        let dcount = match count {
+            Some(c) if c == 0 || (upper && a + c > self.len) || (!upper && c > a + 1) => return None,
+            Some(c) => c,
+            None if upper => self.len - a,
+            None => a + 1,
         };
         // The weights are the powers of this double-double rho' (within 2^-96 of e^(-|t|), relative): rho'^d is
         // within (1 + 2^-96)^d - 1 <= 1.01 d 2^-96 of e^(-|t| d), relative, d < N.
@@ -482,9 +489,9 @@ impl Spectrum {
         let rel = 1.01 * n as f64 * DD_TRIG;
         let rho_d = dd_powi(rho, dcount);
         let one_rho = rho.0 == 1.0 && rho.1 == 0.0;
-        let (mut acc, mut acc_err, mut err) = ((0.0, 0.0), 0.0f64, 0.0f64);
-        let mut kept_mult = 0u64;
-        for (&r, (&(pr, pi), &pe)) in self.r.iter().zip(self.psi.iter().zip(&self.err)) {
+        let mut c_all = Vec::with_capacity(self.r.len());
+        let mut ec_all = Vec::with_capacity(self.r.len());
+        for &r in &self.r {
             // c_r = w^(-a) (1 - q^D) / (1 - q), q = rho w^(-1) (up) or rho w (down): p = w^(-a) (1 - q^D) conj(1 - q)
             // and m = |1 - q|^2 in double-double, c = p / m with both rounded to doubles.
             let u = unit((r as u128 * a as u128 % n as u128) as u64, n);
@@ -524,6 +531,26 @@ impl Spectrum {
             // |c^ - c|: rounding p and m to doubles and the division (3 U per part, relative), then the
             // double-double errors of p (absolute, over m) and of m (relative).
             let ec = up((3.01 * U * ac + dp / (md * (1.0 - dm_rel)) + 2.01 * dm_rel * ac) * 1.01);
+            c_all.push(c);
+            ec_all.push(ec);
+        }
+        Some(Weights { c: c_all, ec: ec_all, dcount, rel })
+    }
+
+    /// (1/N) sum_r psi_r c_r over the kept samples (`samples`: psi_r and its error bound, in the order of `r`)
+    /// with the weights `w`, as (T^, rel, abs) for `exact::finish`. The samples not kept are at most
+    /// `skip_scale` e^-CUT in modulus (1 for this law's own samples).
+    pub(crate) fn apply(
+        &self,
+        w: &Weights,
+        samples: impl Iterator<Item = ((f64, f64), f64)>,
+        skip_scale: f64,
+    ) -> Option<(f64, f64, f64)> {
+        let n = self.n;
+        let (mut acc, mut acc_err, mut err) = ((0.0, 0.0), 0.0f64, 0.0f64);
+        let mut kept_mult = 0u64;
+        for (((&r, &c), &ec), ((pr, pi), pe)) in self.r.iter().zip(&w.c).zip(&w.ec).zip(samples) {
+            let ac = norm(c);
             let mult = if r == 0 || 2 * r == n { 1.0 } else { 2.0 };
             kept_mult += mult as u64;
             let term = mult * (pr * c.0 - pi * c.1);
@@ -535,7 +562,7 @@ impl Spectrum {
         }
         // The samples not evaluated: |psi_r| <= e^-CUT and |c_r| <= D each (those of r and N - r counted apart).
         let skipped = n.saturating_sub(kept_mult) as f64;
-        err += skipped * (-CUT).exp() * dcount as f64;
+        err += skipped * skip_scale * (-CUT).exp() * w.dcount as f64;
         let inv = 1.0 / n as f64;
         let sum = (acc.0 + acc.1) * inv;
         // The aliased mass and the mass beyond the window, as in `build`; gradual underflow of the scaling.
@@ -544,8 +571,17 @@ impl Spectrum {
         if !sum.is_finite() || sum <= 0.0 {
             return None;
         }
-        Some((sum, rel, abs))
+        Some((sum, w.rel, abs))
     }
+}
+
+/// The weights of one geometric sum read from the samples ([`Spectrum::weights`]): c_r and its error bound per
+/// kept sample, the number of terms D and the weights' own relative error.
+pub struct Weights {
+    c: Vec<(f64, f64)>,
+    ec: Vec<f64>,
+    dcount: u64,
+    rel: f64,
 }
 
 /// An upper bound on |x| for a complex x held as doubles of moderate size: sqrt(fl(a^2 + b^2)) is within

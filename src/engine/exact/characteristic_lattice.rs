@@ -34,8 +34,13 @@
 //!   10^4 exposures where the tree's bound was 8e-11.
 //!
 //! Taken for books of at least `characteristic::MIN_EXPOSURES` random exposures on lattices wider than
-//! `lattice::KEEP_WHOLE` (narrower ones are multiplied whole, with relative errors only), when the samples to
-//! evaluate stay within `MAX_WORK` factor products.
+//! `lattice::KEEP_WHOLE` (narrower ones are multiplied whole, with relative errors only), when a cost model
+//! (`PRODUCT_NS` and the rest, measured) says it is cheaper than the product tree: a book whose events are
+//! too few for the spectrum to concentrate (sum q (1 - q) below about CUT) needs most of the N / 2 samples, and
+//! the tree is then faster (10^3 exposures of the books above: 145 ms against 9 ms).
+//!
+//! Also here: every exposure's contribution (sensitivity and tail without it) from one law's samples divided by
+//! the exposure's factor ([`contributions`]).
 
 use super::characteristic::{cos_sin, Spectrum, CUT};
 use super::fft::{self, dd_add};
@@ -53,8 +58,30 @@ const MID_LO: f64 = 0.375;
 const MID_HI: f64 = 0.625;
 /// How far below the grid's value B may fall between grid points: the grid is made fine enough for this.
 const SLACK: f64 = 20.0;
-/// Most factor products (samples evaluated times factors per sample): beyond it the tree is the better tool.
+/// Most factor products (samples evaluated times factors per sample), whatever the cost model says.
 const MAX_WORK: f64 = 4e8;
+/// The cost model that chooses between this construction and the product tree (`examples/time_units` on the
+/// books of 10^3 to 10^5 exposures in units log-uniform in 1..1000, release build, 2026-12-03): ns per factor
+/// product of a sample, per N log2 N of the window's transform, per lattice step of the tree (its cost
+/// follows the lattice's width, 68 to 75 ns per step measured), and for [`contributions`] per division of a
+/// sample by an exposure's factor and per weight (a sample's geometric sum for one unit size).
+const PRODUCT_NS: f64 = 1.2;
+const FFT_NS: f64 = 1.0;
+const TREE_NS: f64 = 70.0;
+const DIVIDE_NS: f64 = 10.0;
+const WEIGHT_NS: f64 = 1500.0;
+
+/// When [`build_with`] goes on once it knows how many samples it must evaluate.
+#[derive(Clone, Copy)]
+enum Pick {
+    /// Always (tests and benchmarks).
+    Always,
+    /// When it costs less than the product tree by the cost model.
+    Cheaper,
+    /// For [`contributions`]: when the law, the divisions and the weights cost less than a law per class of
+    /// exposures and at most four laws by the tree.
+    Contributions { classes: f64, sizes: f64, listed: f64 },
+}
 /// Lanes are rescaled by 2^SCALE_BITS once their modulus (as |re| + |im|) falls below 2^-SCALE_BITS, so that
 /// they stay above 2^-430 (64 factors of modulus >= 1/4 - e each between checks).
 const SCALE_BITS: i32 = 300;
@@ -198,23 +225,34 @@ pub fn tilted(model: &Model, t: f64) -> Option<Tilted> {
     if model.lattice_width().saturating_add(model.shift) <= KEEP_WHOLE && bounded {
         return None;
     }
-    build(model, t)
+    build_with(model, t, 0, Pick::Cheaper)
 }
 
 /// [`tilted`] without the size conditions (for tests and benchmarks).
 pub fn build(model: &Model, t: f64) -> Option<Tilted> {
+    build_with(model, t, 0, Pick::Always)
+}
+
+/// The tilted probability of an exposure of p and u steps at t, as `cgf::tilt_qr` forms it at t u (one
+/// exponential): (q, 1 - q), each within TILT_REL.
+#[inline]
+fn tilted_qr(p: f64, u: u64, t: f64) -> (f64, f64) {
+    let tu = t * u as f64;
+    let (a, b) = if tu > 0.0 { ((1.0 - p) * (-tu).exp(), p) } else { (1.0 - p, p * tu.exp()) };
+    let d = a + b;
+    (b / d, a / d)
+}
+
+/// [`build`] with the window's lower end `margin` steps further down: the law of S minus any one exposure of
+/// at most `margin` steps then has at most e^-TRUNC_LN below the window as well (S_-i < L implies
+/// S < L + u_i), so its samples (those of S divided by the exposure's factor) serve it too.
+fn build_with(model: &Model, t: f64, margin: u64, pick: Pick) -> Option<Tilted> {
     let t = round_tilt(t);
     if !t.is_finite() || t.abs() > 700.0 {
         return None;
     }
     let step = |v: &[u64], i: usize| v.get(i).copied().unwrap_or(1);
-    // Tilted probabilities as `cgf::tilt_qr` forms them at t u (one exponential per exposure).
-    let qr = |p: f64, u: u64| {
-        let tu = t * u as f64;
-        let (a, b) = if tu > 0.0 { ((1.0 - p) * (-tu).exp(), p) } else { (1.0 - p, p * tu.exp()) };
-        let d = a + b;
-        (b / d, a / d)
-    };
+    let qr = |p: f64, u: u64| tilted_qr(p, u, t);
     let (mut mean, mut var, mut m2, mut top) = (0.0f64, 0.0f64, 0.0f64, 1u64);
     let mut width: u64 = 0;
     let mut bk = Book {
@@ -300,6 +338,7 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
         return None;
     }
     let (klo, khi) = keep_range(mean, var, m2, top as f64, 0, max);
+    let klo = klo.saturating_sub(margin);
     let len_keep = (khi - klo + 1) as usize;
     if len_keep > 1 << 27 {
         return None;
@@ -325,6 +364,22 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
         return Some(Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default(), spectrum: None });
     }
     let cand = candidates(&a_terms, n as u64, (MAX_WORK / bk.mults) as u64)?;
+    let c = cand.len() as f64;
+    let cost = PRODUCT_NS * c * bk.mults + FFT_NS * nf * nf.log2();
+    let tree = TREE_NS * model.lattice_width() as f64;
+    let take = match pick {
+        Pick::Always => true,
+        Pick::Cheaper => cost <= tree,
+        Pick::Contributions { classes, sizes, listed } => {
+            // Within four exact evaluations' work (what the work budget counted for it: one evaluation costs
+            // about the tree's time) and cheaper than a law per class.
+            let all = cost + DIVIDE_NS * c * listed + WEIGHT_NS * c * sizes;
+            all <= 4.0 * tree && all <= classes * cost.min(tree)
+        }
+    };
+    if !take {
+        return None;
+    }
     let scale = cgf::scale(model, t);
     let (mut re, mut im) = (vec![0.0f64; n], vec![0.0f64; n]);
     re[0] = 1.0;
@@ -523,4 +578,121 @@ fn sample(bk: &Book, tab: &Tables, r: u64, n: u64, phase: u64) -> Option<((f64, 
     let a = (value.0 * value.0 + value.1 * value.1).sqrt() * (1.0 + 3.0 * U);
     let err = up(eta / (1.0 - eta) * a * (1.0 + 1e-9)) + 4.0 * f64::from_bits(1);
     Some((value, err))
+}
+
+/// Most distinct unit sizes among the listed exposures for [`contributions`]: each needs its own weights for
+/// the range sum (a few hundred double-double operations per sample).
+const MAX_UNIT_SIZES: usize = 4096;
+
+/// Whether [`contributions`] takes a book at the lattice index x (a cheap test for the work budget: it may
+/// still return None, where a factor cannot be bounded away from 0 or the samples would be too many).
+pub fn contributions_apply(model: &Model, moments: &crate::engine::numerics::moments::Moments, x: u64) -> bool {
+    let bounded = model.poisson <= 0.0 && model.scaled_poisson.is_empty();
+    let wide = model.lattice_width().saturating_add(model.shift) > KEEP_WHOLE || !bounded;
+    if model.random_exposures_bounded() < super::characteristic::MIN_EXPOSURES || !wide {
+        return false;
+    }
+    if !(x as f64 > moments.mean) || model.support_max().is_some_and(|m| x > m) {
+        return false;
+    }
+    let mut sizes: Vec<u64> = model.units.clone();
+    sizes.sort_unstable();
+    sizes.dedup();
+    sizes.len() <= MAX_UNIT_SIZES
+}
+
+/// Every listed exposure's sensitivity dP(S >= x)/dp_i = P(x - u_i <= S_-i < x) and tail without it
+/// P(S_-i >= x), for a lattice index x above the mean, from the samples of S's tilted law divided by the
+/// exposure's factor: phi_-i(w) = phi(w) / (1 + q_i (w^(u_i) - 1)). Dividing in the frequency domain is
+/// stable where deconvolving the pmf is not: the factor's modulus is at least |1 - 2 q_i| (and is taken from
+/// the computed factor near q = 1/2, None where it cannot be bounded away from 0).
+///
+/// Errors (docs/characteristic.md, "Leaving one exposure out"): for a sample psi^ within e_psi and a factor
+/// f^ within e_f (`factor_err`), |psi^ / f^ - psi / f| <= e_psi / |f^| + (|psi^| + e_psi) e_f / (|f^| (|f^| - e_f)),
+/// plus 7.01 U of the computed quotient (a complex product, |f^|^2 and a division per part). The samples not
+/// kept are below e^(-CUT + 1/2) for S_-i (its B is S's less q_i (1 - q_i) (1 - cos) <= 1/2). The tilted sums
+/// are read with `Spectrum::weights` and `Spectrum::apply`, the range sum from x - u_i over u_i points, and
+/// scaled by K_-i(t) = K(t) - ln M_i(t) (phi_i from `cgf::tilt` within 8 U, as `cgf::scale` counts it).
+/// None where the construction does not apply ([`contributions_apply`]); the caller then builds a law per
+/// class of exposures.
+pub fn contributions(
+    model: &Model,
+    moments: &crate::engine::numerics::moments::Moments,
+    x: u64,
+) -> Option<Vec<super::leave_one_out::Contribution>> {
+    use super::leave_one_out::Contribution;
+    use crate::engine::numerics::cgf::{tilt, TiltConsts};
+    use crate::engine::numerics::float::two_sum;
+    if !contributions_apply(model, moments, x) {
+        return None;
+    }
+    let top = model.max_step();
+    let t = round_tilt(super::solve_tilt(model, moments, x as f64, super::Dir::Up));
+    let mut sizes: Vec<u64> = model.units.clone();
+    sizes.sort_unstable();
+    sizes.dedup();
+    let pick = Pick::Contributions {
+        classes: super::leave_one_out::classes_in_units(model) as f64,
+        sizes: sizes.len().max(1) as f64,
+        listed: model.bernoulli.len() as f64,
+    };
+    let law = build_with(model, t, top, pick)?;
+    let spec = law.spectrum.as_deref()?;
+    let tab = Tables::new(spec.n);
+    let mask = spec.n - 1;
+    let tail_w = spec.weights(x, true, None, t)?;
+    let mut range_w: std::collections::HashMap<u64, super::characteristic::Weights> = std::collections::HashMap::new();
+    let step = |i: usize| model.units.get(i).copied().unwrap_or(1);
+    let skip = 0.5f64.exp() * (1.0 + 1e-12);
+    let mut out = Vec::with_capacity(model.bernoulli.len());
+    let mut divided: Vec<((f64, f64), f64)> = Vec::with_capacity(spec.r.len());
+    for (i, &p) in model.bernoulli.iter().enumerate() {
+        if i % 256 == 0 && interrupt::requested() {
+            return None;
+        }
+        let u = step(i);
+        let (q, _) = tilted_qr(p, u, t);
+        let e = factor_err(q, tab.ed);
+        divided.clear();
+        for (&r, (&(pr, pi), &pe)) in spec.r.iter().zip(spec.psi.iter().zip(&spec.err)) {
+            let (dr, di) = tab.d(u.wrapping_mul(r) & mask);
+            let f = (1.0 + q * dr, q * di);
+            let m2 = f.0 * f.0 + f.1 * f.1;
+            let af = m2.sqrt() * (1.0 - 3.0 * U);
+            let lb = af - e;
+            if lb.is_nan() || lb <= 0.0 {
+                return None;
+            }
+            let v = ((pr * f.0 + pi * f.1) / m2, (pi * f.0 - pr * f.1) / m2);
+            let apsi = (pr * pr + pi * pi).sqrt() * (1.0 + 3.0 * U);
+            let av = (v.0 * v.0 + v.1 * v.1).sqrt() * (1.0 + 3.0 * U);
+            let err = up((pe / af + (apsi + pe) * e / (af * lb) + 7.01 * U * av) * (1.0 + 1e-9));
+            divided.push((v, err));
+        }
+        // K_-i(t) = K(t) - ln M_i(t): ln M_i = phi_i + t u b_i.
+        let ti = tilt(p, &TiltConsts::new(t * u as f64));
+        let (h, l) = two_sum(law.scale.phi, -ti.phi);
+        let scale = cgf::Scale {
+            phi: h,
+            phi_lo: law.scale.phi_lo + l,
+            phi_err: up(law.scale.phi_err + 8.0 * U * ti.phi.abs() + 4.0 * U * U * (h.abs() + 4.0)),
+            b: law.scale.b - if ti.b { u as f64 } else { 0.0 },
+        };
+        let tail_without = {
+            let (sum, rel, abs) = spec.apply(&tail_w, divided.iter().copied(), skip)?;
+            super::finish_scaled(&scale, t, x, sum, 0.0, 0, rel, abs, 1.0)
+        };
+        if !range_w.contains_key(&u) {
+            if range_w.len() >= MAX_UNIT_SIZES {
+                return None;
+            }
+            range_w.insert(u, spec.weights(x.checked_sub(u)?, true, Some(u), t)?);
+        }
+        let sensitivity = {
+            let (sum, rel, abs) = spec.apply(&range_w[&u], divided.iter().copied(), skip)?;
+            super::finish_scaled(&scale, t, x - u, sum, 0.0, 0, rel, abs, 1.0)
+        };
+        out.push(Contribution { sensitivity, tail_without });
+    }
+    Some(out)
 }

@@ -67,8 +67,9 @@ pub fn round_tilt(t: f64) -> f64 {
 }
 
 /// The tilted law of a model with loss units, at t (rounded by [`round_tilt`]).
-/// Below `characteristic::MIN_EXPOSURES` random exposures, on narrow lattices and where the samples would be
-/// too many, by the product tree ([`tilted_tree`]); otherwise from the characteristic function.
+/// Below `characteristic::MIN_EXPOSURES` random exposures, on narrow lattices and where the samples would cost
+/// more than the tree, by the product tree ([`tilted_tree`]); otherwise from the characteristic function
+/// (`characteristic_lattice`).
 pub fn tilted(model: &Model, t: f64) -> Tilted {
     let t = round_tilt(t);
     if let Some(law) = super::characteristic_lattice::tilted(model, t) {

@@ -237,7 +237,24 @@ pub fn contributions(model: &Model, moments: &Moments, k: u64) -> Vec<Contributi
 /// exposures ([`classes_in_units`] of them: books in units repeat their classes): O(classes x n) rather than the
 /// product tree's O(n log n), which does not yet run on the lattice. Both tails carry the exact engine's
 /// rigorous bounds; the sensitivity's bound is their sum plus the rounding of the difference.
+///
+/// From 321 exposures on a wide lattice, at a threshold above the mean, every exposure's figures come instead
+/// from one law's samples divided by the exposure's factor (`characteristic_lattice::contributions`), in
+/// O(n x samples) for the whole book.
 pub fn contributions_in_units(model: &Model, k: u64) -> Vec<Contribution> {
+    contributions_in_units_spectrum(model, k).unwrap_or_else(|| contributions_in_units_by_class(model, k))
+}
+
+/// [`contributions_in_units`] from one law's samples (`characteristic_lattice::contributions`), or None where
+/// that construction does not apply or would cost more than the laws per class.
+pub fn contributions_in_units_spectrum(model: &Model, k: u64) -> Option<Vec<Contribution>> {
+    let moments = Moments::of(model);
+    let (x, _) = super::lattice::query(model, k, Side::Upper).ok()?;
+    super::characteristic_lattice::contributions(model, &moments, x)
+}
+
+/// [`contributions_in_units`] by one exact law per class of exposures.
+pub fn contributions_in_units_by_class(model: &Model, k: u64) -> Vec<Contribution> {
     let span = model.span();
     let steps = |j: usize| model.units.get(j).copied().unwrap_or(1);
     let mut seen: HashMap<(u64, u64), Contribution> = HashMap::new();
@@ -269,6 +286,15 @@ pub fn contributions_in_units(model: &Model, k: u64) -> Vec<Contribution> {
         out.push(c);
     }
     out
+}
+
+/// Whether [`contributions_in_units_spectrum`] may answer at k in units (then it costs at most the work of
+/// four exact evaluations: its law, and the divisions and weights, which its cost model keeps below a law per
+/// class); where it declines, [`contributions_in_units_by_class`] costs one evaluation per class.
+pub fn spectrum_may_answer(model: &Model, k: u64) -> bool {
+    let moments = Moments::of(model);
+    matches!(super::lattice::query(model, k, Side::Upper),
+        Ok((x, _)) if super::characteristic_lattice::contributions_apply(model, &moments, x))
 }
 
 /// Distinct (p_i, u_i) among the model's Bernoulli exposures: the exact laws [`contributions_in_units`] builds.

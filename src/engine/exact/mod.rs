@@ -396,7 +396,23 @@ pub(crate) fn finish(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, re
 /// [`finish`] for a value that may exceed 1 (an expectation): `cap` is the largest value the truth can take.
 #[allow(clippy::too_many_arguments)]
 fn finish_capped(law: &Tilted, x: u64, sum: f64, dsum: f64, terms: usize, rel: f64, abs: f64, cap: f64) -> Value {
-    let (ln_scale, ln_scale_lo, scale_err) = law.scale.ln_scale_dd(law.t, x as f64);
+    finish_scaled(&law.scale, law.t, x, sum, dsum, terms, rel, abs, cap)
+}
+
+/// [`finish_capped`] with the scale K(t) given apart from a law (a law with one exposure left out).
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn finish_scaled(
+    scale: &cgf::Scale,
+    t: f64,
+    x: u64,
+    sum: f64,
+    dsum: f64,
+    terms: usize,
+    rel: f64,
+    abs: f64,
+    cap: f64,
+) -> Value {
+    let (ln_scale, ln_scale_lo, scale_err) = scale.ln_scale_dd(t, x as f64);
     if sum <= 0.0 {
         // Nothing in the window: the truth is at most the window's absolute error, scaled back.
         let bound = abs.max(f64::MIN_POSITIVE);
