@@ -1,14 +1,20 @@
 //! The tilted law of a book with loss units from its characteristic function
 //! (src/engine/exact/characteristic_lattice.rs) against exact references and against the product tree:
-//! - small books in units (listed exposures, groups, certain exposures, probabilities a / 512) against De
-//!   Pril's recursion in exact rationals (De Pril 1986, tests/common/de_pril.rs), and books with compound
-//!   Poisson sources against Panjer's recursion in exact rationals (Panjer 1981, as in tests/compound.rs, with
-//!   e^-lambda enclosed in a rational interval): every window entry, the law rebuilt from tilted windows, and
-//!   P(S >= k) from `exact::upper_tail_of` far into the tail, with the bound's tightness measured;
+//! - small books in units (listed exposures, groups, certain exposures, probabilities a / 512, a span and an
+//!   offset) against De Pril's recursion in exact rationals (De Pril 1986, tests/common/de_pril.rs; for the
+//!   larger books the product of the generating functions in exact integers, equal to it), and books with
+//!   compound Poisson sources against Panjer's recursion in exact rationals (Panjer 1981, as in
+//!   tests/compound.rs, with e^-lambda enclosed in a dyadic interval): every window entry, the law rebuilt from
+//!   tilted windows, and P(S >= k) from `exact::upper_tail_of` far into the tail, with the bound's tightness
+//!   measured;
 //! - random books of 400 to 3000 exposures (units drawn several ways, groups, compound sources, certain
 //!   exposures, probabilities near 1/2): `characteristic_lattice::build` against the product tree
 //!   (`lattice::tilted_tree`), against itself at a second tilt, and `exact::evaluate` against the tree, each
-//!   within the sum of the two rigorous bounds.
+//!   within the sum of the two rigorous bounds;
+//! - a tilted probability of exactly 1/2, where `build` gives None and the exact method falls back to the tree.
+//!
+//! Run with --nocapture for the figures (observed error over bound, the bound's looseness, how often `build`
+//! gave None, the time of each construction).
 
 #[path = "common/bignum.rs"]
 mod bignum;
@@ -337,6 +343,9 @@ fn check_book(name: &str, model: &Model, ts: [f64; 2], zs: &[f64], fig: &mut Fig
         fig.rebuilt_obs_over_bound = fig.rebuilt_obs_over_bound.max(worst);
         assert!(w.inf < 1e-13, "{name} t={t}: inf {:e}", w.inf);
     }
+    // Source: the exact law's upper tails. P(S >= k) from the law tilted for k: |v - P| <= rel_err P, and the
+    // logarithm within ln(1 + rel_err) / (1 - rel_err) and a few ulps of itself of ln P (ln P from the exact
+    // integers by tests/common/bignum.rs).
     for (k, law) in &tail_laws {
         let k = *k;
         let v = exact::upper_tail_of(law, k);
@@ -388,9 +397,11 @@ fn small_book(n: usize, unit: impl Fn(usize) -> u64, groups: [u64; 2], certain: 
     m
 }
 
-/// Source: De Pril's recursion in exact rationals (books without sources) and Panjer's convolved with it (books
-/// with sources). Checks every window entry at t = 0, the law rebuilt at a positive and a negative tilt, and
-/// P(S >= k) from the bulk to the support's last point, each within its bound; and the bound's looseness.
+/// Source: De Pril's recursion in exact rationals (asserted equal, on the first book, to the product of the
+/// generating functions in exact integers, which is the reference for the larger books), and Panjer's
+/// recursion in rationals convolved with it (books with sources). Checks every window entry at t = 0, the law
+/// rebuilt at a positive and a negative tilt, and P(S >= k) from the bulk to mean + 12 sd or the support's last
+/// point, each within its bound; and the bound's looseness, reported in the figures.
 #[test]
 fn small_books_in_units_match_exact_rationals() {
     let mut fig = Figures::default();
