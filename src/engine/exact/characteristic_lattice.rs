@@ -620,6 +620,16 @@ pub fn contributions(
     moments: &crate::engine::numerics::moments::Moments,
     x: u64,
 ) -> Option<Vec<super::leave_one_out::Contribution>> {
+    contributions_with(model, moments, x, false)
+}
+
+/// [`contributions`], and with `always` whatever the cost model says (for tests and benchmarks).
+pub fn contributions_with(
+    model: &Model,
+    moments: &crate::engine::numerics::moments::Moments,
+    x: u64,
+    always: bool,
+) -> Option<Vec<super::leave_one_out::Contribution>> {
     use super::leave_one_out::Contribution;
     use crate::engine::numerics::cgf::{tilt, TiltConsts};
     use crate::engine::numerics::float::two_sum;
@@ -631,10 +641,14 @@ pub fn contributions(
     let mut sizes: Vec<u64> = model.units.clone();
     sizes.sort_unstable();
     sizes.dedup();
-    let pick = Pick::Contributions {
-        classes: super::leave_one_out::classes_in_units(model) as f64,
-        sizes: sizes.len().max(1) as f64,
-        listed: model.bernoulli.len() as f64,
+    let pick = if always {
+        Pick::Always
+    } else {
+        Pick::Contributions {
+            classes: super::leave_one_out::classes_in_units(model) as f64,
+            sizes: sizes.len().max(1) as f64,
+            listed: model.bernoulli.len() as f64,
+        }
     };
     let law = build_with(model, t, top, pick)?;
     let spec = law.spectrum.as_deref()?;
