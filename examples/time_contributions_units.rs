@@ -40,12 +40,12 @@ fn main() {
         // The law per class: 20 classes, each the exact tails of the book without one exposure.
         let classes = leave_one_out::classes_in_units(&m);
         let t = Instant::now();
-        for i in 0..20.min(n) {
+        for (i, &ui) in us.iter().enumerate().take(20) {
             let mut mi = m.clone();
             mi.bernoulli.remove(i);
             mi.units.remove(i);
             let mo = Moments::of(&mi);
-            let u = mi.span() * us[i];
+            let u = mi.span() * ui;
             leave_one_out::upper_in_units(&mi, &mo, &[k.saturating_sub(u), k]);
         }
         let per_class = t.elapsed().as_secs_f64() * 1e3 / 20f64.min(n as f64);

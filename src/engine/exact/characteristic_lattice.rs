@@ -592,7 +592,9 @@ pub fn contributions_apply(model: &Model, moments: &crate::engine::numerics::mom
     if model.random_exposures_bounded() < super::characteristic::MIN_EXPOSURES || !wide {
         return false;
     }
-    if !(x as f64 > moments.mean) || model.support_max().is_some_and(|m| x > m) {
+    // False for a NaN mean as well.
+    let above = x as f64 > moments.mean;
+    if !above || model.support_max().is_some_and(|m| x > m) {
         return false;
     }
     let mut sizes: Vec<u64> = model.units.clone();
