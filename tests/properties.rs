@@ -276,3 +276,22 @@ proptest! {
         prop_assert!(q.cdf_below.value < level && level <= q.cdf_at_count.value);
     }
 }
+
+/// Found by `extreme_stresses_and_factors_get_an_answer_or_a_problem` (proptest, in CI on 2026-12-03): a book
+/// whose only unbounded part is a Poisson rate of 1e-300, under the one-factor model, asked for a layer. At
+/// some node the tilt's solver returned t = 1.9e6, e^t overflowed the Poisson part's tilted rate, and its
+/// window's length overflowed. `exact::solve_tilt` now caps t where that rate would exceed four times the
+/// threshold (any t gives exact values); the layer is answered.
+#[test]
+fn a_vanishing_poisson_rate_under_the_factor_gets_its_layer() {
+    let p =
+        json!({"groups": [], "poisson_rates": [1e-300], "probabilities": [0.5552142574639116, 0.39878580187105944]});
+    let dep = json!({"model": "one_factor_gaussian", "nodes": 2, "rho": 0.16822630564891572});
+    let y = json!({"portfolio": p, "layers": [{"attachment": 1}], "tail_levels": [0.9], "dependence": dep});
+    let req: layers::LayersRequest = serde_json::from_value(y).unwrap();
+    let answer = compute::<layers::Layers>(&req, &limits()).expect("an answer");
+    let v = serde_json::to_value(&answer).unwrap();
+    let e = v["layers"][0]["expected_count"].as_f64().unwrap();
+    // E[(S - 1)+] with S the sum of two Bernoulli variables (the Poisson part adds nothing visible): at most 1.
+    assert!(e > 0.0 && e < 1.0, "{e}");
+}

@@ -126,6 +126,13 @@ pub fn poisson(lambda: f64, c: &TiltConsts) -> Window {
         // exp(-mu) rounds to 1: the part is a point mass at 0 up to mu <= 1e-300.
         return degenerate(0, None, 1.0);
     }
+    if !mu.is_finite() || mu > 1e15 {
+        // A tilt no caller should ask for (`exact::solve_tilt` caps it): a point with the whole mass as its error,
+        // so that every answer built on it carries a bound of 1 rather than a window of 10^8 points or more.
+        let mut w = degenerate(0, None, 1.0);
+        w.add_abs(1.0, 1.0);
+        return w;
+    }
     let (lo, hi) = Window::keep_range(mu, mu, 0, None);
     let mode = (mu.floor() as u64).clamp(lo, hi);
     ratio_window(lo, hi, mode, mu, mu, None, |j| mu / (j as f64 + 1.0), |j| j as f64 / mu, 2.0 * U)

@@ -261,11 +261,28 @@ pub(crate) fn solve_tilt(model: &Model, moments: &Moments, x: f64, dir: Dir) -> 
     };
     // Any t gives exact results; t only steers accuracy, so a coarse solution is enough.
     let sd = moments.sd().max(1.0);
-    let t = cgf::solve(model, moments, x, 0.05 * sd.min(10.0)).t;
+    let t = cap_tilt(model, cgf::solve(model, moments, x, 0.05 * sd.min(10.0)).t, x);
     match dir {
         Dir::Up => t.max(0.0),
         Dir::Down => t.min(0.0),
     }
+}
+
+/// t capped where a Poisson part's tilted rate would exceed 4 max(x, 1) events (a compound source's, 4 max(x, 1)
+/// / s): any t gives exact values with rigorous bounds, and a larger one only widens that part's window beyond
+/// the threshold, or overflows e^t (the solver can return such a t for a book whose only unbounded part is a
+/// vanishing rate, as the property tests found: rate 1e-300, t = 1.9e6). A NaN stays NaN (the callers check).
+fn cap_tilt(model: &Model, t: f64, x: f64) -> f64 {
+    let room = 4.0 * x.max(1.0);
+    let mut t = t;
+    if model.poisson > 0.0 {
+        t = t.min((room / model.poisson).ln());
+    }
+    for &(s, lam) in &model.scaled_poisson {
+        let s = s as f64;
+        t = t.min((room / s / lam).ln() / s);
+    }
+    t
 }
 
 /// P(S >= k) read from a tilted law built at t >= 0 (`tilted`, `tilted_tree`, `characteristic::build`): for
