@@ -178,8 +178,20 @@ fn generated_compound_requests_reach_the_computation() {
     assert!(parsed >= 30 && valid >= 8, "parsed {parsed}, answered {valid} of 300");
 }
 
+/// The properties' configuration: 300 cases from a fixed seed, so that a run of CI is reproducible (a random
+/// seed found the panic of `a_vanishing_poisson_rate_under_the_factor_gets_its_layer` in CI on 2026-12-03, and
+/// a red run that no one can replay helps nobody). Set PROPTEST_RNG_SEED to explore other seeds locally, as
+/// contributors should before changing the engine (DEVELOPERS.md).
+fn config() -> ProptestConfig {
+    let mut c = ProptestConfig { cases: 300, ..ProptestConfig::default() };
+    if std::env::var_os("PROPTEST_RNG_SEED").is_none() {
+        c.rng_seed = proptest::test_runner::RngSeed::Fixed(20_261_203);
+    }
+    c
+}
+
 proptest! {
-    #![proptest_config(ProptestConfig { cases: 300, .. ProptestConfig::default() })]
+    #![proptest_config(config())]
 
     /// Whatever the body, parsing and computing never panic, and refusals are 413/422 with pointers.
     #[test]
