@@ -349,13 +349,7 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
         return Some(Tilted { t, var: 0.0, window: Window::point(), scale: Scale::default(), spectrum: None });
     }
     let scale = scale(model, &sums, e, z0, m_top, p_max);
-    let (mut re, mut im) = (vec![0.0f64; n], vec![0.0f64; n]);
-    re[0] = 1.0;
-    // Sum of squares of the per-sample error bounds, and of the computed samples.
-    let (mut err2, mut norm2) = (0.0f64, 1.0f64);
-    let mut last = 0usize;
-    // The evaluated samples r = 0 ..= last and their error bounds, kept for `Spectrum::tail`.
-    let (mut kept, mut kept_err) = (vec![(1.0, 0.0)], vec![0.0]);
+    let mut samples = Samples::new(n);
     for r in 1..=n / 2 {
         let (c, sn) = cos_sin(r as u64, n as u64);
         let om = dd_sub((1.0, 0.0), c);
@@ -363,52 +357,99 @@ pub fn build(model: &Model, t: f64) -> Option<Tilted> {
             break;
         }
         let smp = sample(&sums, e, z0, om, sn, m_top, p_max, (r as u128 * klo as u128 % n as u128) as u64, n)?;
-        let (pr, pi) = smp.value;
-        // psi_(N - r) = conj(psi_r): the law is real.
-        re[r] = pr;
-        im[r] = pi;
+        samples.push(r as u64, smp.value, smp.err);
+    }
+    Some(samples.into_law(klo, len_keep, (mean, var, max), model.shift, t, scale))
+}
+
+/// The evaluated samples psi_r (r in 0..=N/2; psi_0 = 1 exactly) of a real law's spectrum on [L, L + N), with
+/// their error bounds, collected for one inverse FFT (`into_law`) and kept for `Spectrum::tail`. Every sample not
+/// pushed is below e^-CUT in modulus.
+pub(crate) struct Samples {
+    re: Vec<f64>,
+    im: Vec<f64>,
+    /// Sum of squares of the computed samples and of their error bounds, over all N (r and N - r both).
+    norm2: f64,
+    err2: f64,
+    r: Vec<u64>,
+    psi: Vec<(f64, f64)>,
+    err: Vec<f64>,
+    /// Samples of the N accounted for (r and N - r counted apart).
+    kept: u64,
+}
+
+impl Samples {
+    pub(crate) fn new(n: usize) -> Samples {
+        let (mut re, im) = (vec![0.0f64; n], vec![0.0f64; n]);
+        re[0] = 1.0;
+        Samples { re, im, norm2: 1.0, err2: 0.0, r: vec![0], psi: vec![(1.0, 0.0)], err: vec![0.0], kept: 1 }
+    }
+
+    /// Sample r (1 <= r <= N/2, increasing) and its error bound; psi_(N - r) = conj(psi_r): the law is real.
+    pub(crate) fn push(&mut self, r: u64, value: (f64, f64), err: f64) {
+        let n = self.re.len();
+        let r = r as usize;
+        let (pr, pi) = value;
+        self.re[r] = pr;
+        self.im[r] = pi;
         let mult = if 2 * r == n { 1.0 } else { 2.0 };
         if 2 * r != n {
-            re[n - r] = pr;
-            im[n - r] = -pi;
+            self.re[n - r] = pr;
+            self.im[n - r] = -pi;
         }
-        norm2 += mult * (pr * pr + pi * pi);
-        err2 += mult * smp.err * smp.err;
-        kept.push((pr, pi));
-        kept_err.push(smp.err);
-        last = r;
+        self.norm2 += mult * (pr * pr + pi * pi);
+        self.err2 += mult * err * err;
+        self.r.push(r as u64);
+        self.psi.push(value);
+        self.err.push(err);
+        self.kept += mult as u64;
     }
-    // Samples not evaluated: |phi| <= e^-CUT each.
-    let skipped = (n - if 2 * last == n { n } else { 2 * last + 1 }) as f64;
-    err2 += skipped * (-2.0 * CUT).exp();
-    fft::transform(&mut re, &mut im);
-    let m = n.trailing_zeros();
-    let g = gamma(nf + 2.0);
-    let norm_psi = (norm2 * (1.0 + g)).sqrt() * (1.0 + 2.0 * U);
-    let norm_err = (err2 * (1.0 + g)).sqrt() * (1.0 + 2.0 * U);
-    let rn = nf.sqrt();
-    // Gradual underflow in the transform: as in `fft::l2_bound`, at most 4 n (m + 2) sqrt(n) 2^-1074 before
-    // the division by n.
-    let underflow = 4.0 * nf * (m as f64 + 2.0) * rn * f64::from_bits(1) / nf;
-    let l2_err = up((fft::transform_rel(m) * norm_psi + norm_err) / rn * (1.0 + 4.0 * U)) + underflow;
-    // The window keeps the Bernstein range [klo, khi] only (the counts beyond it up to L + N - 1 hold at most
-    // e^-75 of mass, counted below), so that its width is what the work budget counts for it.
-    let len = len_keep;
-    let inv = 1.0 / nf;
-    let w: Vec<f64> = re[..len].iter().map(|&x| (x * inv).max(0.0)).collect();
-    let mut window = Window { lo: klo, w, rel: 0.0, abs: 0.0, inf: 0.0, l2: 0.0, mean, var, max };
-    window.add_abs_l2(up((len as f64).sqrt() * l2_err), l2_err, l2_err);
-    // Aliasing (the mass outside [L, L + N), folded in, non-negative) and the mass outside the window itself:
-    // each at most 2 e^-TRUNC_LN by Bernstein's inequality (`Window::keep_range`).
-    let tau = 4.0 * (-TRUNC_LN).exp() * (1.0 + 1e-12);
-    window.add_abs(tau, tau);
-    window.add_underflow_slack(len as f64);
-    window.lo += shift;
-    window.mean += shift as f64;
-    window.max = window.max.map(|mx| mx + shift);
-    let r = (0..kept.len() as u64).collect();
-    let spectrum = Spectrum { n: n as u64, lo: klo + shift, len: len as u64, r, psi: kept, err: kept_err };
-    Some(Tilted { t, var, window, scale, spectrum: Some(Box::new(spectrum)) })
+
+    /// The law on the window [klo, klo + len) by one inverse FFT, with its 2-norm error bound (Parseval and
+    /// Higham's Theorem 24.2), aliasing and truncation, shifted by the certain exposures; `moments` are the
+    /// tilted law's (mean, variance, largest value) before the shift.
+    pub(crate) fn into_law(
+        self,
+        klo: u64,
+        len: usize,
+        moments: (f64, f64, Option<u64>),
+        shift: u64,
+        t: f64,
+        scale: Scale,
+    ) -> Tilted {
+        let (mean, var, max) = moments;
+        let Samples { mut re, mut im, norm2, mut err2, r, psi, err, kept } = self;
+        let n = re.len();
+        let nf = n as f64;
+        // Samples not evaluated: |phi| <= e^-CUT each.
+        err2 += (n as u64).saturating_sub(kept) as f64 * (-2.0 * CUT).exp();
+        fft::transform(&mut re, &mut im);
+        let m = n.trailing_zeros();
+        let g = gamma(nf + 2.0);
+        let norm_psi = (norm2 * (1.0 + g)).sqrt() * (1.0 + 2.0 * U);
+        let norm_err = (err2 * (1.0 + g)).sqrt() * (1.0 + 2.0 * U);
+        let rn = nf.sqrt();
+        // Gradual underflow in the transform: as in `fft::l2_bound`, at most 4 n (m + 2) sqrt(n) 2^-1074 before
+        // the division by n.
+        let underflow = 4.0 * nf * (m as f64 + 2.0) * rn * f64::from_bits(1) / nf;
+        let l2_err = up((fft::transform_rel(m) * norm_psi + norm_err) / rn * (1.0 + 4.0 * U)) + underflow;
+        // The window keeps the Bernstein range [klo, khi] only (the points beyond it up to L + N - 1 hold at most
+        // e^-75 of mass, counted below), so that its width is what the work budget counts for it.
+        let inv = 1.0 / nf;
+        let w: Vec<f64> = re[..len].iter().map(|&x| (x * inv).max(0.0)).collect();
+        let mut window = Window { lo: klo, w, rel: 0.0, abs: 0.0, inf: 0.0, l2: 0.0, mean, var, max };
+        window.add_abs_l2(up((len as f64).sqrt() * l2_err), l2_err, l2_err);
+        // Aliasing (the mass outside [L, L + N), folded in, non-negative) and the mass outside the window itself:
+        // each at most 2 e^-TRUNC_LN by Bernstein's (or, on a lattice, Bennett's) inequality.
+        let tau = 4.0 * (-TRUNC_LN).exp() * (1.0 + 1e-12);
+        window.add_abs(tau, tau);
+        window.add_underflow_slack(len as f64);
+        window.lo += shift;
+        window.mean += shift as f64;
+        window.max = window.max.map(|mx| mx + shift);
+        let spectrum = Spectrum { n: n as u64, lo: klo + shift, len: len as u64, r, psi, err };
+        Tilted { t, var, window, scale, spectrum: Some(Box::new(spectrum)) }
+    }
 }
 
 /// The samples psi_r = phi(w_r) w_r^(-L), r = 0 ..= R (the others are below e^-CUT in modulus), with their

@@ -42,10 +42,10 @@
 //! Also here: every exposure's contribution (sensitivity and tail without it) from one law's samples divided by
 //! the exposure's factor ([`contributions`]).
 
-use super::characteristic::{cos_sin, Spectrum, CUT};
+use super::characteristic::{cos_sin, Samples, CUT};
 use super::fft::{self, dd_add};
 use super::lattice::{keep_range, round_tilt, KEEP_WHOLE};
-use super::window::{Window, TRUNC_LN};
+use super::window::Window;
 use super::Tilted;
 use crate::engine::interrupt;
 use crate::engine::numerics::cgf::{self, TILT_REL};
@@ -381,58 +381,17 @@ fn build_with(model: &Model, t: f64, margin: u64, pick: Pick) -> Option<Tilted> 
         return None;
     }
     let scale = cgf::scale(model, t);
-    let (mut re, mut im) = (vec![0.0f64; n], vec![0.0f64; n]);
-    re[0] = 1.0;
-    let (mut err2, mut norm2) = (0.0f64, 1.0f64);
-    let (mut kept, mut kept_err, mut kept_r) = (vec![(1.0, 0.0)], vec![0.0], vec![0u64]);
-    let mut kept_mult = 1u64;
+    let mut samples = Samples::new(n);
     for &r in &cand {
         if interrupt::requested() {
             return Some(Tilted { t, var: 0.0, window: Window::point(), scale: cgf::Scale::default(), spectrum: None });
         }
         let phase = (r as u128 * klo as u128 % n as u128) as u64;
         let (value, err) = sample(&bk, &tab, r, n as u64, phase)?;
-        let (pr, pi) = value;
-        re[r as usize] = pr;
-        im[r as usize] = pi;
-        let mult = if 2 * r as usize == n { 1u64 } else { 2 };
-        if 2 * r as usize != n {
-            re[n - r as usize] = pr;
-            im[n - r as usize] = -pi;
-        }
-        let mf = mult as f64;
-        norm2 += mf * (pr * pr + pi * pi);
-        err2 += mf * err * err;
-        kept.push(value);
-        kept_err.push(err);
-        kept_r.push(r);
-        kept_mult += mult;
+        samples.push(r, value, err);
     }
-    let skipped = (n as u64).saturating_sub(kept_mult) as f64;
-    err2 += skipped * (-2.0 * CUT).exp();
-    fft::transform(&mut re, &mut im);
-    let m = n.trailing_zeros();
-    let g = gamma(nf + 2.0);
-    let norm_psi = (norm2 * (1.0 + g)).sqrt() * (1.0 + 2.0 * U);
-    let norm_err = (err2 * (1.0 + g)).sqrt() * (1.0 + 2.0 * U);
-    let rn = nf.sqrt();
-    let underflow = 4.0 * nf * (m as f64 + 2.0) * rn * f64::from_bits(1) / nf;
-    let l2_err = up((fft::transform_rel(m) * norm_psi + norm_err) / rn * (1.0 + 4.0 * U)) + underflow;
-    let inv = 1.0 / nf;
-    let w: Vec<f64> = re[..len_keep].iter().map(|&x| (x * inv).max(0.0)).collect();
-    let mut window = Window { lo: klo, w, rel: 0.0, abs: 0.0, inf: 0.0, l2: 0.0, mean, var, max };
-    window.add_abs_l2(up((len_keep as f64).sqrt() * l2_err), l2_err, l2_err);
-    // Aliasing and the mass outside the window: at most e^-TRUNC_LN on each side of [klo, khi] (`keep_range`),
-    // so at most 2 e^-TRUNC_LN folded in and as much left out.
-    let tau = 4.0 * (-TRUNC_LN).exp() * (1.0 + 1e-12);
-    window.add_abs(tau, tau);
-    window.add_underflow_slack(len_keep as f64);
-    let shift = model.shift;
-    window.lo += shift;
-    window.mean += shift as f64;
-    window.max = window.max.map(|mx| mx + shift);
-    let spectrum = Spectrum { n: n as u64, lo: klo + shift, len: len_keep as u64, r: kept_r, psi: kept, err: kept_err };
-    Some(Tilted { t, var, window, scale, spectrum: Some(Box::new(spectrum)) })
+    // Aliasing and the mass outside the window: at most e^-TRUNC_LN on each side of [klo, khi] (`keep_range`).
+    Some(samples.into_law(klo, len_keep, (mean, var, max), model.shift, t, scale))
 }
 
 /// The samples r in 1..=N/2 that may exceed e^-CUT in modulus, in increasing order, from B on a grid of M
